@@ -1,0 +1,130 @@
+"""Input-term syntax → design-matrix columns.
+
+Syntax: a column name; `COL^k` (k = 2…12); `log(COL)` (natural log); `sqrt(COL)`.
+A string that equals an existing column name exactly is always that column.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import ColumnNotFoundError, TermSyntaxError, not_found_message
+
+_POWER = re.compile(r"^(?P<col>.+?)\s*\^\s*(?P<k>[0-9]+)$")
+_FUNC = re.compile(r"^(?P<fn>log|sqrt)\s*\(\s*(?P<col>.+?)\s*\)$", re.IGNORECASE)
+MAX_POWER = 12
+
+
+@dataclass(frozen=True)
+class Term:
+    """One design column: `kind` is 'column', 'power', 'log' or 'sqrt' of source column `column`."""
+
+    label: str
+    column: str
+    kind: str = "column"
+    power: int = 1
+
+    def values(self, x: np.ndarray) -> np.ndarray:
+        """The term's values from the source column (float64); invalid domain gives NaN."""
+        x = np.asarray(x, dtype=np.float64)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if self.kind == "column":
+                return x.copy()
+            if self.kind == "power":
+                return x**self.power
+            if self.kind == "log":
+                return np.where(x > 0, np.log(np.where(x > 0, x, 1.0)), np.nan)
+            if self.kind == "sqrt":
+                return np.where(x >= 0, np.sqrt(np.where(x >= 0, x, 0.0)), np.nan)
+        raise AssertionError(self.kind)
+
+    def domain_problem(self, x: np.ndarray) -> np.ndarray:
+        """Boolean mask of rows whose source value is outside the term's domain."""
+        x = np.asarray(x, dtype=np.float64)
+        with np.errstate(invalid="ignore"):
+            if self.kind == "log":
+                return np.isfinite(x) & (x <= 0)
+            if self.kind == "sqrt":
+                return np.isfinite(x) & (x < 0)
+        return np.zeros(x.shape, dtype=bool)
+
+    def domain_reason(self) -> str:
+        if self.kind == "log":
+            return f"{self.column} is zero or negative, so log({self.column}) is undefined"
+        if self.kind == "sqrt":
+            return f"{self.column} is negative, so sqrt({self.column}) is undefined"
+        return ""
+
+
+def parse_term(spec: str, columns: Sequence[str]) -> Term:
+    """Parse one term against the header names; exact column names win over syntax."""
+    spec_s = str(spec).strip()
+    names = [str(c) for c in columns]
+    if str(spec) in names:
+        return Term(label=str(spec), column=str(spec))
+    if spec_s in names:
+        return Term(label=spec_s, column=spec_s)
+    m = _FUNC.match(spec_s)
+    if m:
+        col = _column(m.group("col"), names, spec_s)
+        fn = m.group("fn").lower()
+        return Term(label=f"{fn}({col})", column=col, kind=fn)
+    m = _POWER.match(spec_s)
+    if m:
+        k = int(m.group("k"))
+        col = _column(m.group("col"), names, spec_s)
+        if k == 1:
+            return Term(label=col, column=col)
+        if not 2 <= k <= MAX_POWER:
+            raise TermSyntaxError(f'term "{spec_s}": the power must be between 2 and {MAX_POWER}; '
+                                  f'write for example "{col}^2"')
+        return Term(label=f"{col}^{k}", column=col, kind="power", power=k)
+    if any(ch in spec_s for ch in "~+*()"):
+        raise TermSyntaxError(f'term "{spec_s}" is not understood; give one term per --x: '
+                              f'a column name, COL^k (k = 2…{MAX_POWER}), log(COL) or sqrt(COL)')
+    raise ColumnNotFoundError(not_found_message("column", spec_s, names))
+
+
+def _column(name: str, names: list[str], spec: str) -> str:
+    if name in names:
+        return name
+    stripped = name.strip()
+    if stripped in names:
+        return stripped
+    raise ColumnNotFoundError(not_found_message("column", stripped, names) + f' (in term "{spec}")')
+
+
+def parse_terms(specs: Sequence[str], columns: Sequence[str]) -> tuple[Term, ...]:
+    """Parse every term; a repeated term is an error (it would make the design collinear)."""
+    terms = tuple(parse_term(s, columns) for s in specs)
+    seen: dict[str, str] = {}
+    for spec, term in zip(specs, terms):
+        if term.label in seen:
+            raise TermSyntaxError(f'term "{spec}" repeats "{seen[term.label]}"; give each term once')
+        seen[term.label] = spec
+    return terms
+
+
+def source_columns(terms: Sequence[Term]) -> tuple[str, ...]:
+    """The distinct source columns the terms need, in first-use order."""
+    out: list[str] = []
+    for t in terms:
+        if t.column not in out:
+            out.append(t.column)
+    return tuple(out)
+
+
+def polynomial_family(terms: Sequence[Term], column: str) -> list[int] | None:
+    """Powers of `column` used as plain/power terms, when they form 1…K with K ≥ 2; else None.
+
+    Such a family can be fitted on powers of the input scaled to [−1, 1] and converted back,
+    which keeps high-order polynomials accurate.
+    """
+    powers = sorted(t.power for t in terms if t.column == column and t.kind in ("column", "power"))
+    if len(powers) >= 2 and powers == list(range(1, len(powers) + 1)):
+        return powers
+    return None
