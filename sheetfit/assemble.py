@@ -1,0 +1,136 @@
+"""Engine arrays → the tidy result tables (one row per group, group × term, observation …)."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .model import EngineFit, design_row
+from .results import INTERCEPT
+from .terms import Term, source_columns
+
+CURVE_POINTS = 25
+
+
+def with_keys(keys: pd.DataFrame, codes: np.ndarray, body: dict) -> pd.DataFrame:
+    """Group key columns for `codes` followed by the body columns."""
+    out = keys.iloc[codes].reset_index(drop=True)
+    for k, v in body.items():
+        out[k] = v
+    return out
+
+
+def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, flags: np.ndarray, reasons: np.ndarray,
+                 dropped: np.ndarray, extra: dict[str, np.ndarray]) -> pd.DataFrame:
+    ok = fit.fitted_ok
+    G = fit.n_groups
+
+    def only(v):
+        return np.where(ok, v, np.nan)
+
+    reason_text = np.where(ok, reasons, fit.not_fitted_reason).astype(object)
+    body = {
+        "status": np.where(ok, "fitted", "not fitted"),
+        "flags": np.where(ok, flags, 0),
+        "reasons": reason_text,
+        "n": fit.n,
+        "rows dropped": dropped,
+        "parameters": np.full(G, fit.p),
+        "R²": only(inf["r2"]),
+        "adjusted R²": only(inf["adj_r2"]),
+        "residual std error": only(inf["rse"]),
+        "RMSE": only(inf["rmse"]),
+        "CV(RMSE) %": only(inf["cv"]),
+        "F": only(inf["f"]),
+        "F p-value": only(inf["f_p"]),
+        "AIC": only(inf["aic"]),
+        "BIC": only(inf["bic"]),
+    }
+    body.update({k: only(v) for k, v in extra.items()})
+    return with_keys(keys, np.arange(G), body)
+
+
+def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, labels: Sequence[str],
+                       extra: dict[str, np.ndarray]) -> pd.DataFrame:
+    """group × term rows for fitted groups; `extra` maps column name → (G, p) arrays."""
+    g_idx = np.flatnonzero(fit.fitted_ok)
+    p = fit.p
+    codes = np.repeat(g_idx, p)
+    sel = (codes, np.tile(np.arange(p), len(g_idx)))
+    body = {
+        "term": np.tile(np.asarray(labels, dtype=object), len(g_idx)),
+        "estimate": fit.beta[sel],
+        "std error": fit.se[sel],
+        "t": inf["t"][sel],
+        "p-value": inf["p"][sel],
+        "CI low": inf["ci_low"][sel],
+        "CI high": inf["ci_high"][sel],
+    }
+    for name, arr in extra.items():
+        body[name] = np.asarray(arr)[sel]
+    return with_keys(keys, codes, body)
+
+
+def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, terms: Sequence[Term],
+                 ranges: dict[str, tuple[np.ndarray, np.ndarray]]) -> pd.DataFrame:
+    """Fitted line and confidence band of the mean over each group's observed input range."""
+    cols = source_columns(terms)
+    if len(cols) != 1:
+        return pd.DataFrame(columns=list(keys.columns) + ["x", "fitted", "mean CI low", "mean CI high"])
+    col = cols[0]
+    lo, hi = ranges[col]
+    g_idx = np.flatnonzero(fit.fitted_ok & np.isfinite(lo) & np.isfinite(hi))
+    frac = np.linspace(0.0, 1.0, CURVE_POINTS)
+    xs = lo[g_idx, None] + (hi - lo)[g_idx, None] * frac[None, :]
+    D = design_row(terms, fit.intercept, {col: xs.ravel()}).reshape(len(g_idx), CURVE_POINTS, fit.p)
+    yhat = np.einsum("gkp,gp->gk", D, fit.beta[g_idx])
+    var = np.einsum("gkp,gpq,gkq->gk", D, fit.xtx_inv[g_idx], D) * fit.sigma2[g_idx, None]
+    half = inf["t_quantile"][g_idx, None] * np.sqrt(np.maximum(var, 0.0))
+    codes = np.repeat(g_idx, CURVE_POINTS)
+    return with_keys(keys, codes, {"x": xs.ravel(), "fitted": yhat.ravel(),
+                                   "mean CI low": (yhat - half).ravel(),
+                                   "mean CI high": (yhat + half).ravel()})
+
+
+def quantiles_table(keys: pd.DataFrame, fit: EngineFit, codes: np.ndarray) -> pd.DataFrame:
+    """Standardized residuals sorted per group against normal quantiles at (i − 3/8)/(n + 1/4)."""
+    ok = fit.fitted_ok[codes] & np.isfinite(fit.internal)
+    c = codes[ok]
+    r = fit.internal[ok]
+    order = np.lexsort((r, c))
+    c, r = c[order], r[order]
+    counts = np.bincount(c, minlength=fit.n_groups)
+    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    rank = np.arange(len(c)) - starts[c] + 1
+    q = stats.norm.ppf((rank - 0.375) / (counts[c] + 0.25))
+    return with_keys(keys, c, {"normal quantile": q, "standardized residual": r})
+
+
+def xtx_table(keys: pd.DataFrame, fit: EngineFit, labels: Sequence[str]) -> pd.DataFrame:
+    g_idx = np.flatnonzero(fit.fitted_ok)
+    p = fit.p
+    codes = np.repeat(g_idx, p * p)
+    rows = np.tile(np.repeat(np.arange(p), p), len(g_idx))
+    cols = np.tile(np.tile(np.arange(p), p), len(g_idx))
+    lab = np.asarray(labels, dtype=object)
+    return with_keys(keys, codes, {"row term": lab[rows], "column term": lab[cols],
+                                   "value": fit.xtx_inv[codes, rows, cols]})
+
+
+def ranges_table(keys: pd.DataFrame, fit: EngineFit,
+                 ranges: dict[str, tuple[np.ndarray, np.ndarray]]) -> pd.DataFrame:
+    g_idx = np.flatnonzero(fit.fitted_ok)
+    parts = []
+    for col, (lo, hi) in ranges.items():
+        parts.append(with_keys(keys, g_idx, {"column": col, "min": lo[g_idx], "max": hi[g_idx]}))
+    if not parts:
+        return pd.DataFrame(columns=list(keys.columns) + ["column", "min", "max"])
+    out = pd.concat(parts, ignore_index=True)
+    return out
+
+
+def coefficient_labels(terms: Sequence[Term], intercept: bool) -> list[str]:
+    return ([INTERCEPT] if intercept else []) + [t.label for t in terms]

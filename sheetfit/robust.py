@@ -1,0 +1,54 @@
+"""Std errors that stay valid when the variance changes (HC0–HC3) or residuals are correlated (Newey–West)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .model import LEVERAGE_ONE_TOL, EngineFit
+
+
+def hc_cov(fit: EngineFit, kind: str) -> np.ndarray:
+    """Heteroscedasticity-consistent covariance (G, p, p) of the raw coefficients."""
+    out = np.full((fit.n_groups, fit.p, fit.p), np.nan)
+    for b in fit.batches:
+        e2 = b.resid**2
+        h = b.leverage
+        with np.errstate(invalid="ignore", divide="ignore"):
+            one = np.where(h < 1.0 - LEVERAGE_ONE_TOL, 1.0 - h, np.nan)
+            if kind == "hc0":
+                w = e2
+            elif kind == "hc1":
+                w = e2 * (b.n / (b.n - fit.p))[:, None]
+            elif kind == "hc2":
+                w = e2 / one
+            elif kind == "hc3":
+                w = e2 / one**2
+            else:
+                raise ValueError(kind)
+        w = np.where(b.mask, w, 0.0)
+        meat = np.einsum("gmk,gm,gml->gkl", b.Q, w, b.Q)
+        out[b.groups] = b.A @ meat @ np.swapaxes(b.A, 1, 2)
+    return out
+
+
+def default_hac_lag(n: np.ndarray) -> np.ndarray:
+    """floor(4·(n/100)^(2/9)), the usual automatic Newey–West lag (common practice)."""
+    return np.floor(4.0 * (np.asarray(n, dtype=np.float64) / 100.0) ** (2.0 / 9.0)).astype(int)
+
+
+def hac_cov(fit: EngineFit, lags: int | None) -> tuple[np.ndarray, np.ndarray]:
+    """Newey–West covariance with Bartlett weights (G, p, p) and the lag used per group."""
+    out = np.full((fit.n_groups, fit.p, fit.p), np.nan)
+    lag_used = np.full(fit.n_groups, -1)
+    for b in fit.batches:
+        L = default_hac_lag(b.n) if lags is None else np.full(len(b.n), lags)
+        L = np.minimum(L, b.n - 1)
+        u = b.Q * b.resid[:, :, None]
+        S = np.einsum("gmk,gml->gkl", u, u)
+        for lag in range(1, int(L.max(initial=0)) + 1):
+            w = np.where(lag <= L, 1.0 - lag / (L + 1.0), 0.0)
+            G_l = np.einsum("gmk,gml->gkl", u[:, lag:], u[:, :-lag])
+            S += w[:, None, None] * (G_l + np.swapaxes(G_l, 1, 2))
+        out[b.groups] = b.A @ S @ np.swapaxes(b.A, 1, 2)
+        lag_used[b.groups] = L
+    return out, lag_used
