@@ -94,8 +94,37 @@ def jarque_bera(fit: EngineFit) -> CheckResult:
                        "residuals are not normally distributed: skewed or heavy-tailed (Jarque–Bera, {p})")
 
 
+def _shapiro_kernel():
+    """scipy's own Shapiro–Wilk routine without its per-call wrapper (10,000 groups: 2 s → 0.1 s).
+
+    Same algorithm and numbers as scipy.stats.shapiro (sorted data minus a middle value);
+    falls back to the public function if scipy reorganises its internals.
+    """
+    try:
+        from scipy.stats._ansari_swilk_statistics import swilk
+    except ImportError:  # pragma: no cover
+        return lambda e: tuple(stats.shapiro(e))
+    coefficients: dict[int, np.ndarray] = {}
+
+    def run(e: np.ndarray) -> tuple[float, float]:
+        n = len(e)
+        y = np.sort(e)
+        y -= e[n // 2]
+        a = coefficients.get(n)
+        if a is None:
+            a = np.zeros(n // 2)
+            w, pw, _ = swilk(y, a, 0)
+            coefficients[n] = a
+        else:
+            w, pw, _ = swilk(y, a, 1)
+        return float(w), float(pw)
+
+    return run
+
+
 def shapiro_wilk(fit: EngineFit) -> CheckResult:
     stat, pval, note = _empty(fit.n_groups)
+    kernel = _shapiro_kernel()
     for b in fit.batches:
         for gi, g in enumerate(b.groups):
             n = int(b.n[gi])
@@ -105,8 +134,7 @@ def shapiro_wilk(fit: EngineFit) -> CheckResult:
             elif not np.ptp(e) > 0:
                 note[g] = "residuals are all equal (perfect fit): no distribution to test"
             else:
-                res = stats.shapiro(e)
-                stat[g], pval[g] = res.statistic, res.pvalue
+                stat[g], pval[g] = kernel(e)
     return CheckResult("shapiro_wilk", "normal residuals (Shapiro–Wilk)", "p_small", stat, pval,
                        np.full(fit.n_groups, np.nan), note,
                        "residuals are not normally distributed (Shapiro–Wilk, {p})")

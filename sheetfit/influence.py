@@ -30,17 +30,24 @@ def row_highlights(fit: EngineFit, codes: np.ndarray, thr: Thresholds) -> dict[s
 
 
 def _by_group(values: np.ndarray, codes: np.ndarray, G: int, how: str) -> tuple[np.ndarray, np.ndarray]:
-    """Per-group max (or max of |values|) ignoring NaN, with the engine row index where it occurs."""
-    v = np.abs(values) if how == "abs" else values.copy()
+    """Per-group max (of |values| for 'abs') ignoring NaN, and the engine row where it occurs.
+
+    Engine rows are sorted by group code, so each group is one contiguous run.
+    """
+    v = np.abs(values) if how == "abs" else values
     v = np.where(np.isfinite(v), v, -np.inf)
-    order = np.lexsort((v, codes))             # within each group ascending; last is the max
-    last = np.full(G, -1)
-    last[codes[order]] = order
     best = np.full(G, np.nan)
-    has = last >= 0
-    best[has] = v[last[has]]
-    best[~np.isfinite(best)] = np.nan
-    return best, last
+    where = np.full(G, -1)
+    if len(v) == 0:
+        return best, where
+    starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
+    run_max = np.maximum.reduceat(v, starts)
+    present = codes[starts]
+    hit = np.flatnonzero(v == np.repeat(run_max, np.diff(np.r_[starts, len(v)])))
+    first_codes, first_idx = np.unique(codes[hit], return_index=True)
+    where[first_codes] = hit[first_idx]
+    best[present] = np.where(np.isfinite(run_max), run_max, np.nan)
+    return best, where
 
 
 def outlier_test(fit: EngineFit, codes: np.ndarray, source_rows: np.ndarray) -> CheckResult:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import os
 import platform
 import sys
 import time
@@ -302,8 +303,13 @@ def fit_job(job: FitJob, progress: Progress | None = None) -> FitResults:
 
     progress = progress or Progress(False)
     progress.stage("reading")
+    t0 = time.perf_counter()
     obs = read_observations(job)
-    return fit_observations(obs, job, progress)
+    t1 = time.perf_counter()
+    results = fit_observations(obs, job, progress)
+    t2 = time.perf_counter()
+    return _with_about(results, [("time to read (s)", round(t1 - t0, 3)),
+                                 ("time to fit and check (s)", round(t2 - t1, 3))])
 
 
 def fit_workbook(workbook: str | Path, *, y: str, x: Sequence[str] | str, group: Sequence[str] | str = (),
@@ -326,8 +332,13 @@ def run_job(job: FitJob, progress: bool = False) -> tuple[FitResults, Path]:
     after = sha256_of(Path(job.workbook))
     results = _with_about(results, [("input SHA-256 after", after)])
     bar.stage("writing")
+    t0 = time.perf_counter()
     path = write_results(results, out, overwrite=job.overwrite)
     bar.done()
+    if os.environ.get("SHEETFIT_TIMINGS"):
+        times = dict(results.about)
+        sys.stderr.write(f"timings: read {times['time to read (s)']:.2f} s, fit+checks "
+                         f"{times['time to fit and check (s)']:.2f} s, write {time.perf_counter() - t0:.2f} s\n")
     return results, path
 
 
