@@ -194,17 +194,15 @@ def _observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, 
         fit.fitted, fit.resid, fit.studentized, fit.leverage, fit.cooks)
     ok_group = fit.fitted_ok[codes_all]
     used = (reason == "") & ok_group
-    why = reason.copy()
-    for i in np.flatnonzero((reason == "") & ~ok_group):
-        why[i] = "group not fitted: " + str(fit.not_fitted_reason[codes_all[i]])
-    row_flags = np.full(N, "", dtype=object)
-    words = {"leverage one": "leverage 1", "high leverage": "high leverage",
-             "outlying": "outlying", "influential": "influential"}
-    for key, word in words.items():
-        mask = np.zeros(N, bool)
-        mask[pos] = hl[key]
-        for i in np.flatnonzero(mask):
-            row_flags[i] = f"{row_flags[i]}; {word}" if row_flags[i] else word
+    group_reason = np.array(["group not fitted: " + str(r) for r in fit.not_fitted_reason], dtype=object)
+    why = np.where((reason == "") & ~ok_group, group_reason[codes_all], reason)
+    words = ("leverage 1", "high leverage", "outlying", "influential")
+    bits = np.zeros(N, dtype=np.int64)
+    for i, key in enumerate(("leverage one", "high leverage", "outlying", "influential")):
+        bits[pos] |= hl[key].astype(np.int64) << i
+    table = np.array(["; ".join(w for i, w in enumerate(words) if code >> i & 1) for code in range(16)],
+                     dtype=object)
+    row_flags = table[bits]
     cols = [SOURCE_SHEET, SOURCE_ROW, *obs.group_columns]
     value_cols = [c for c in obs.numeric_columns if c not in cols]
     out = data[list(obs.group_columns) + [SOURCE_SHEET, SOURCE_ROW] + value_cols].copy()
@@ -220,14 +218,16 @@ def _observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, 
 
 
 def _ranges(cols: dict[str, np.ndarray], codes: np.ndarray, G: int) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Observed min and max of each source column per group (rows sorted by group)."""
     out = {}
+    starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]]) if len(codes) else np.array([], int)
+    present = codes[starts]
     for c, v in cols.items():
-        lo = np.full(G, np.inf)
-        hi = np.full(G, -np.inf)
-        np.minimum.at(lo, codes, v)
-        np.maximum.at(hi, codes, v)
-        lo[~np.isfinite(lo)] = np.nan
-        hi[~np.isfinite(hi)] = np.nan
+        lo = np.full(G, np.nan)
+        hi = np.full(G, np.nan)
+        if len(starts):
+            lo[present] = np.minimum.reduceat(v, starts)
+            hi[present] = np.maximum.reduceat(v, starts)
         out[c] = (lo, hi)
     return out
 
