@@ -1,0 +1,301 @@
+"""Command line: parse options, call one API function, print. No statistics here.
+
+Start-up stays light: pandas/numpy/scipy/statsmodels are imported only inside commands.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import enum
+import sys
+from collections.abc import Iterator
+from dataclasses import MISSING, fields
+from pathlib import Path
+from typing import Any, NoReturn
+
+import typer
+
+from .errors import SheetfitError
+from .job import (ADJUST_METHODS, INFERENCE_KINDS, OBSERVATION_MODES, ROBUST_KINDS, FitJob, Thresholds,
+                  load_job_file, make_job)
+
+PROG = "sheetfit"
+MB = 1024 * 1024
+
+# Defaults come from the job dataclasses so help text and library never disagree.
+DEFAULTS: dict[str, Any] = {
+    f.name: f.default for cls in (FitJob, Thresholds) for f in fields(cls) if f.default is not MISSING
+}
+
+
+def _choices(name: str, values: tuple[str, ...]) -> type[enum.Enum]:
+    """A str Enum of the allowed values, so typer shows and checks them (exit 2 on others)."""
+    return enum.Enum(name, {v: v for v in values}, type=str)
+
+
+Adjust = _choices("Adjust", ADJUST_METHODS)
+Robust = _choices("Robust", ROBUST_KINDS)
+Inference = _choices("Inference", INFERENCE_KINDS)
+ObservationRows = _choices("ObservationRows", OBSERVATION_MODES)
+
+
+app = typer.Typer(
+    name=PROG,
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+    rich_markup_mode=None,
+    context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100},
+)
+
+
+# ── error boundary (shared by every command, including ones added in their own modules) ──
+
+def fail(message: str, code: int = 1) -> NoReturn:
+    """Print `sheetfit: error: <message>` as one line on stderr and exit with `code`."""
+    typer.echo(f"{PROG}: error: {' '.join(str(message).split())}", err=True)
+    raise typer.Exit(code)
+
+
+@contextlib.contextmanager
+def error_boundary(debug: bool) -> Iterator[None]:
+    """The one place user errors become a one-line message and an exit code; --debug re-raises."""
+    try:
+        yield
+    except SheetfitError as exc:
+        if debug:
+            raise
+        fail(str(exc) or type(exc).__name__)
+    except KeyboardInterrupt:
+        if debug:
+            raise
+        typer.echo(f"{PROG}: interrupted; no output written", err=True)
+        raise typer.Exit(130) from None
+
+
+def _version(value: bool) -> None:
+    if value:
+        from importlib.metadata import PackageNotFoundError, version
+
+        try:
+            typer.echo(f"{PROG} {version(PROG)}")
+        except PackageNotFoundError:
+            typer.echo(f"{PROG} (version unknown: not installed)")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+                                 help="Print the version and exit."),
+) -> None:
+    """One least-squares fit per group of spreadsheet rows, checked, written to a new workbook.
+
+    Run `sheetfit demo` to see it on a bundled example, `sheetfit fit --help` for a worked example.
+    """
+
+
+# ── fit ──
+
+FIT_HELP = """Fit one least-squares model per group of rows and write a NEW results workbook.
+
+The input workbook is only read. Results go to <input name>-fit.xlsx beside it unless --out
+says otherwise; an existing results file is kept unless --overwrite is given.
+
+\b
+Example: a sheet "Monthly" with one row per site and month,
+columns Site, Month, kWh, Cooling degree-days and Pallets:
+  sheetfit fit usage.xlsx --sheet Monthly --group Site --y kWh \\
+      --x "Cooling degree-days" --x Pallets --order Month --out usage-results.xlsx
+
+\b
+Terms given to --x:
+  COLUMN          the column itself (a name that matches a column exactly always means it)
+  COLUMN^k        a power, k = 2 to 12 (add COLUMN too for a full polynomial)
+  log(COLUMN)     natural logarithm; rows with a value <= 0 are left out, with a reason
+  sqrt(COLUMN)    square root; rows with a negative value are left out, with a reason
+
+\b
+Settings can also come from a TOML job file (--job); options given here override it.
+Keys are the long option names (dashes or underscores), except: sheets = [...] for
+--sheet, intercept = false for --no-intercept, max_unpacked_bytes for --max-unpacked-mb.
+For example:
+  workbook = "usage.xlsx"          # relative paths are relative to the job file
+  sheets = ["Monthly"]
+  group = ["Site"]
+  y = "kWh"
+  x = ["Cooling degree-days", "Pallets"]
+  order = "Month"
+  [thresholds]
+  alpha = 0.05
+  adjust = "bh"
+
+\b
+Exit status: 0 done; 1 bad input or nothing could be fitted (one line on stderr);
+2 wrong usage; 130 interrupted.
+"""
+
+def _opt(default: Any, *names: str, help: str, show_default: bool | str = True, **kw: Any) -> Any:
+    return typer.Option(default, *names, help=help, show_default=show_default, **kw)
+
+
+@app.command("fit", help=FIT_HELP, no_args_is_help=True)
+def fit(
+    ctx: typer.Context,
+    workbook: Path | None = typer.Argument(
+        None, metavar="WORKBOOK", show_default=False,
+        help="The workbook to read (.xlsx, .xlsm, .xls, .ods or .csv)."),
+    sheet: list[str] | None = _opt(None, "--sheet", help="Sheet to read; repeat for several (default: the first sheet).", show_default=False, metavar="NAME"),
+    all_sheets: bool = _opt(False, "--all-sheets", help="Read every sheet (they must share the same headers).", show_default=False),
+    table: str | None = _opt(None, "--table", help="Read a named table or defined range instead of a whole sheet.", show_default=False, metavar="NAME"),
+    header_row: int | None = _opt(None, "--header-row", help="Row number of the header (default: first non-empty row).", show_default=False, metavar="N"),
+    group: list[str] | None = _opt(None, "--group", help="Column whose values split the rows into groups; "
+                                   "repeat for several (one fit per combination).", show_default=False, metavar="COL"),
+    y: str | None = _opt(None, "--y", help="Response column (the value being explained). Required.", show_default=False, metavar="COL"),
+    x: list[str] | None = _opt(None, "--x", help="Input term; repeat for several. Required.", show_default=False, metavar="TERM"),
+    no_intercept: bool = _opt(False, "--no-intercept", help="Fit without an intercept (a line through zero).", show_default=False),
+    level: float = _opt(DEFAULTS["level"], "--level", help="Confidence level of the intervals."),
+    order: str | None = _opt(None, "--order", help="Column giving the time order within a group (dates, times, "
+                             "counters) for the independence checks (default: row order).", show_default=False, metavar="COL"),
+    out: Path | None = _opt(None, "--out", help="Results workbook to write (default: <input name>-fit.xlsx).", show_default=False, metavar="RESULTS.xlsx"),
+    overwrite: bool = _opt(False, "--overwrite", help="Replace the results workbook if it exists.", show_default=False),
+    max_charts: int = _opt(DEFAULTS["max_charts"], "--max-charts", help="At most this many charts (flagged groups first)."),
+    observations: ObservationRows = _opt(ObservationRows(DEFAULTS["observations"]), "--observations",
+                                         help="Rows on the observations sheet: all, flagged (unusable, influential "
+                                              "and outlying rows only) or none."),
+    alpha: float = _opt(DEFAULTS["alpha"], "--alpha", help="Level for every p-value-based verdict."),
+    adjust: Adjust = _opt(Adjust(DEFAULTS["adjust"]), "--adjust",
+                          help="Adjust p-values across groups: bh (false discovery rate), holm, or none."),
+    min_r2: float = _opt(DEFAULTS["min_r2"], "--min-r2", help="Flag fits whose R² is below this."),
+    rows_per_coefficient: float = _opt(DEFAULTS["rows_per_coefficient"], "--rows-per-coefficient",
+                                       help="Flag fits with fewer rows per estimated coefficient."),
+    leverage_factor: float = _opt(DEFAULTS["leverage_factor"], "--leverage-factor",
+                                  help="Highlight rows with leverage above factor·p/n."),
+    studentized_cutoff: float = _opt(DEFAULTS["studentized_cutoff"], "--studentized-cutoff",
+                                     help="Highlight rows whose |studentized residual| exceeds this."),
+    cooks_factor: float = _opt(DEFAULTS["cooks_factor"], "--cooks-factor",
+                               help="Highlight rows with Cook's distance above factor/n."),
+    vif_max: float = _opt(DEFAULTS["vif_max"], "--vif-max", help="Flag inputs whose VIF exceeds this."),
+    condition_max: float = _opt(DEFAULTS["condition_max"], "--condition-max",
+                                help="Flag designs whose condition number exceeds this."),
+    bg_lags: int = _opt(DEFAULTS["bg_lags"], "--bg-lags", help="Lags of the Breusch–Godfrey test."),
+    hac_lags: int | None = _opt(None, "--hac-lags", help="Lags of the Newey–West std errors "
+                                "(default: floor(4·(n/100)^(2/9))).", show_default=False, metavar="N"),
+    robust: Robust = _opt(Robust(DEFAULTS["robust"]), "--robust",
+                          help="Kind of heteroscedasticity-robust std errors."),
+    inference: Inference = _opt(Inference(DEFAULTS["inference"]), "--inference",
+                                help="Std errors behind intervals and flags: classic or robust."),
+    job_file: Path | None = _opt(None, "--job", help="TOML job file with settings; options given here override it.", show_default=False, metavar="JOB.toml"),
+    strict: bool = _opt(False, "--strict", help="Stop with an error if any row cannot be used.", show_default=False),
+    csv_delimiter: str | None = _opt(None, "--csv-delimiter", help="Field separator of a .csv input (default: guessed).", show_default=False, metavar="C"),
+    csv_decimal: str | None = _opt(None, "--csv-decimal", help="Decimal mark of a .csv input (default: '.').", show_default=False, metavar="C"),
+    max_unpacked_mb: int = _opt(DEFAULTS["max_unpacked_bytes"] // MB, "--max-unpacked-mb",
+                                help="Refuse workbooks that unpack to more than this many MB."),
+    quiet: bool = _opt(False, "--quiet", "-q", help="No progress bar and no summary; only the results path.", show_default=False),
+    debug: bool = _opt(False, "--debug", help="Show the full traceback of an error.", show_default=False),
+) -> None:
+    given = _given_on_command_line(ctx)
+    with error_boundary(debug):
+        settings = _job_file_settings(job_file) if job_file is not None else {}
+        settings.update(_settings_from_options(ctx.params, given))
+        _require(ctx, settings)
+        job = make_job(settings)
+        from .pipeline import run_job, summary_lines
+
+        results, path = run_job(job, progress=not quiet and _stderr_is_tty())
+        typer.echo(f"results: {path}")
+        if not quiet:
+            for line in summary_lines(results):
+                typer.echo(line)
+
+
+def _given_on_command_line(ctx: typer.Context) -> set[str]:
+    """Names of the parameters the user actually typed (only those override the job file)."""
+    given = set()
+    for name in ctx.params:
+        source = ctx.get_parameter_source(name)
+        if source is not None and source.name in ("COMMANDLINE", "ENVIRONMENT", "PROMPT"):
+            given.add(name)
+    return given
+
+
+_NOT_SETTINGS = {"job_file", "quiet", "debug"}
+_RENAMED = {"sheet": "sheets"}
+
+
+def _settings_from_options(params: dict[str, Any], given: set[str]) -> dict[str, Any]:
+    """Settings (FitJob/Thresholds field names) for the options given on the command line."""
+    settings: dict[str, Any] = {}
+    for name in given - _NOT_SETTINGS:
+        value = params[name]
+        if isinstance(value, enum.Enum):
+            value = value.value
+        if name == "no_intercept":
+            settings["intercept"] = not value
+        elif name == "max_unpacked_mb":
+            settings["max_unpacked_bytes"] = int(value) * MB
+        elif name in ("sheet", "group", "x"):
+            settings[_RENAMED.get(name, name)] = tuple(value or ())
+        else:
+            settings[name] = value
+    return settings
+
+
+def _job_file_settings(path: Path) -> dict[str, Any]:
+    """The job file's settings; its relative workbook/out paths are taken from the job file's folder."""
+    settings = load_job_file(path)
+    for key in ("workbook", "out"):
+        value = settings.get(key)
+        if isinstance(value, str) and value and not Path(value).expanduser().is_absolute():
+            settings[key] = str(Path(path).parent / Path(value).expanduser())
+    return settings
+
+
+def _require(ctx: typer.Context, settings: dict[str, Any]) -> None:
+    """Missing required settings are usage errors (exit 2), whether typed or in the job file."""
+    if not settings.get("workbook"):
+        ctx.fail("Missing argument 'WORKBOOK' (or set workbook in the --job file).")
+    if not settings.get("y"):
+        ctx.fail("Missing option '--y' (or set y in the --job file).")
+    if not settings.get("x"):
+        ctx.fail("Missing option '--x' (or set x in the --job file).")
+
+
+def _stderr_is_tty() -> bool:
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
+# ── demo ──
+
+@app.command("demo")
+def demo(
+    folder: Path = typer.Option(Path("sheetfit-demo"), "--dir", metavar="DIR",
+                             help="Folder to write into (created if needed); its two demo files are replaced."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar and no summary; only the paths."),
+    debug: bool = typer.Option(False, "--debug", help="Show the full traceback of an error."),
+) -> None:
+    """Write the bundled demo workbook (invented cold-storage sites) and its results into DIR."""
+    with error_boundary(debug):
+        from .demo import run_demo
+        from .pipeline import summary_lines
+
+        workbook, results, path = run_demo(Path(folder), progress=not quiet and _stderr_is_tty())
+        typer.echo(f"demo workbook: {workbook}")
+        typer.echo(f"results: {path}")
+        if not quiet:
+            for line in summary_lines(results):
+                typer.echo(line)
+
+
+# ── predict ──
+# `sheetfit predict` lives in its own module; register it here with one line, e.g.
+#     from .predict_cli import predict; app.command("predict")(predict)
+# keeping that module's heavy imports inside its command function and using error_boundary().
+
+
+def main() -> None:
+    """Console-script entry point (`sheetfit`, `python -m sheetfit`)."""
+    app(prog_name=PROG)
