@@ -1,0 +1,89 @@
+"""Legacy .xls (BIFF): read with xlrd, which reports error cells, dates, hidden rows/columns and merged
+cells itself. Such files hold at most 65,536 rows, so speed is not a concern here.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from pathlib import Path
+
+from .cells import ErrorCell
+from .errors import NotAWorkbookError
+from .sources import Book, Grid
+from .xlsx import _version
+
+
+class XlsBook(Book):
+    """A BIFF workbook read with xlrd (formatting information on, for hidden rows and merges)."""
+
+    file_format = "xls"
+
+    def __init__(self, path: Path):
+        import xlrd
+
+        self.path = Path(path)
+        self.reader = f"xlrd {_version('xlrd')}"
+        try:
+            self._wb = xlrd.open_workbook(str(self.path), formatting_info=True, on_demand=True)
+        except Exception as exc:  # xlrd raises plain XLRDError/AssertionError/struct errors on bad files
+            text = " ".join(str(exc).split())[:160]
+            if "encrypt" in text.lower() or "password" in text.lower():
+                raise NotAWorkbookError(f'"{self.path.name}" is password-protected (encrypted); remove the password '
+                                        f'in a spreadsheet application and save a copy to read') from None
+            raise NotAWorkbookError(f'"{self.path.name}" is not a readable .xls workbook ({text}); '
+                                    f'open it in a spreadsheet application and save it as .xlsx') from None
+
+    def sheet_names(self) -> list[str]:
+        return list(self._wb.sheet_names())
+
+    def grid(self, sheet: str) -> Grid:
+        import xlrd
+
+        ws = self._wb.sheet_by_name(sheet)
+        datemode = self._wb.datemode
+        rows = []
+        for r in range(ws.nrows):
+            out = []
+            for ctype, value in zip(ws.row_types(r), ws.row_values(r)):
+                if ctype in (xlrd.XL_CELL_EMPTY, xlrd.XL_CELL_BLANK):
+                    out.append("")
+                elif ctype == xlrd.XL_CELL_NUMBER:
+                    out.append(float(value))
+                elif ctype == xlrd.XL_CELL_TEXT:
+                    out.append(value)
+                elif ctype == xlrd.XL_CELL_BOOLEAN:
+                    out.append(bool(value))
+                elif ctype == xlrd.XL_CELL_ERROR:
+                    out.append(ErrorCell(xlrd.error_text_from_code.get(value, "#VALUE!")))
+                elif ctype == xlrd.XL_CELL_DATE:
+                    out.append(_date(value, datemode))
+                else:
+                    out.append(value)
+            rows.append(out)
+        hidden_rows = frozenset(r + 1 for r, info in ws.rowinfo_map.items() if getattr(info, "hidden", 0))
+        hidden_cols = frozenset(c for c, info in ws.colinfo_map.items() if getattr(info, "hidden", 0))
+        merged = [(r1 + 1, c1, r2, c2 - 1) for r1, r2, c1, c2 in ws.merged_cells]
+        grid = Grid(sheet, rows, top=1, left=0, merged=merged, hidden_rows=hidden_rows, hidden_cols=hidden_cols)
+        grid.square()
+        return grid
+
+    def close(self) -> None:
+        try:
+            self._wb.release_resources()
+        except Exception:
+            pass
+
+
+def _date(value: float, datemode: int) -> object:
+    """A date cell as date, time or datetime, as the other readers give it."""
+    import xlrd
+
+    try:
+        stamp = xlrd.xldate_as_datetime(value, datemode)
+    except Exception:
+        return float(value)
+    if 0 <= value < 1:
+        return stamp.time()
+    if stamp.time() == dt.time(0):
+        return stamp.date()
+    return stamp
