@@ -1,0 +1,93 @@
+"""The results workbook: formats FitResults into sheets; computes no statistics.
+
+Sheets, in order: groups, coefficients, checks, observations, charts, overview, about, then
+add-on sheets (`_extra_sheets()`), then the data sheets that charts and formulas read.
+
+Adding a sheet: write a function `build(ctx: WriteContext) -> None` that calls
+`ctx.add_sheet(label)` and writes rows in order (constant_memory), using `ctx.styles` for formats
+and `ctx.note(item, text)` for lines on `about`; data it needs on a separate sheet goes through
+`ctx.reserve_data_sheet(label, fill)`, which returns the sheet's name at once (for formulas and
+chart ranges) and fills it after every builder ran. Then return it from `_extra_sheets()` below
+(or pass `extra_sheets=[build]` to write_results).
+"""
+
+from __future__ import annotations
+
+import shutil
+import tempfile
+from collections.abc import Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from ..errors import OutputError
+from .book import WORKBOOK_OPTIONS, SheetBuilder, WriteContext
+from .safe import atomic_output, check_output_path
+
+if TYPE_CHECKING:
+    from ..results import FitResults
+
+__all__ = ["write_results", "WriteContext", "SheetBuilder", "core_sheets"]
+
+ZIP64_CELLS = 40_000_000   # beyond this many observation cells the archive may pass 4 GB
+
+
+def core_sheets() -> list[SheetBuilder]:
+    """The contract's sheets, in order."""
+    from .about import about_sheet
+    from .charts import charts_sheets
+    from .tables import checks_sheet, coefficients_sheet, groups_sheet, observations_sheet
+    return [groups_sheet, coefficients_sheet, checks_sheet, observations_sheet, charts_sheets, about_sheet]
+
+
+def _extra_sheets() -> list[SheetBuilder]:
+    """Add-on sheets written after the core ones (explorer, predict…), in this order."""
+    from .explorer import explorer_sheet
+    from .whatif import whatif_sheet
+    return [explorer_sheet, whatif_sheet]
+
+
+def write_results(results: "FitResults", path: Path | None = None, overwrite: bool = False, *,
+                  extra_sheets: Sequence[SheetBuilder] | None = None) -> Path:
+    """Write the results workbook to `path` (default: beside the input) and return where it went.
+
+    Refuses the input file itself, an existing file unless `overwrite` (or the job's overwrite),
+    and an unwritable folder, each with OutputError. The file appears complete or not at all.
+    """
+    import xlsxwriter
+    from xlsxwriter.exceptions import FileCreateError, FileSizeError
+
+    from .styles import Styles
+
+    job = results.job
+    target = check_output_path(job.workbook, Path(path) if path is not None else job.output_path,
+                               overwrite or job.overwrite)
+    builders = [*core_sheets(), *_extra_sheets(), *(extra_sheets or ())]
+    scratch = tempfile.mkdtemp(prefix="sheetfit-")   # xlsxwriter's row files (constant_memory)
+    try:
+        with atomic_output(target, overwrite or job.overwrite) as tmp:
+            wb = xlsxwriter.Workbook(str(tmp), {**WORKBOOK_OPTIONS, "tmpdir": scratch})
+            if len(results.observations) * max(len(results.observations.columns), 1) > ZIP64_CELLS:
+                wb.use_zip64()
+            try:
+                ctx = WriteContext(workbook=wb, results=results, styles=Styles(wb))
+                for build in builders:
+                    build(ctx)
+                ctx.finish()
+                wb.close()
+            except (FileCreateError, FileSizeError) as exc:
+                raise OutputError(f'could not write "{target.name}": {exc}; choose another --out') from None
+            finally:
+                _release(wb)
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+    return target
+
+
+def _release(wb) -> None:
+    """Close xlsxwriter's open row files after a failed write, so the scratch folder can go."""
+    if wb.fileclosed:
+        return
+    for ws in wb.worksheets():
+        fh = getattr(ws, "row_data_fh", None)
+        if fh is not None and not fh.closed:
+            fh.close()

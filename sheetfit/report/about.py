@@ -1,0 +1,138 @@
+"""The `about` sheet: provenance and settings, notes on what was written, legend, definitions, cautions."""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from typing import Any
+
+from .book import WriteContext
+from .styles import CHART_LEGEND, HIGHLIGHTS
+
+VALUE_WIDTH = 110   # characters
+
+DEFINITIONS: tuple[tuple[str, str], ...] = (
+    ("p", "number of estimated coefficients (the intercept counts when fitted)"),
+    ("n", "observations used in the group's fit"),
+    ("RSS", "residual sum of squares: Σ residual²"),
+    ("RMSE", "√(RSS / n)"),
+    ("residual std error", "√(RSS / (n − p))"),
+    ("CV(RMSE) %", "100 · residual std error / mean(y)"),
+    ("R²", "1 − RSS / Σ(y − mean y)²; without an intercept: 1 − RSS / Σy²"),
+    ("adjusted R²", "1 − (1 − R²) · (n − k) / (n − p), k = 1 with an intercept, 0 without"),
+    ("F", "(explained sum of squares / (p − k)) / (RSS / (n − p)); F p-value from the F(p − k, n − p) "
+          "distribution"),
+    ("AIC", "−2 log L + 2p, with the Gaussian log-likelihood log L = −n/2 · (ln(2π · RSS/n) + 1)"),
+    ("BIC", "−2 log L + p · ln n"),
+    ("t", "estimate / std error; p-value two-sided from the t distribution with n − p degrees of freedom"),
+    ("CI low, CI high", "estimate ∓ t quantile · std error at the chosen confidence level"),
+    ("leverage", "diagonal of the hat matrix X(X'X)⁻¹X'"),
+    ("studentized residual", "residual divided by its standard error with the row left out (externally "
+                             "studentized)"),
+    ("Cook's distance", "residual² · leverage / (p · residual std error² · (1 − leverage)²)"),
+    ("adjusted p-value", "p-value adjusted across groups for the same check (see setting adjust)"),
+)
+
+ADJUST_WORDS = {
+    "bh": "Benjamini–Hochberg false discovery rate across groups, per check",
+    "holm": "Holm's step-down family-wise error rate across groups, per check",
+    "none": "none — every p-value is judged on its own, so expect more false alarms",
+}
+
+
+def cautions(adjust: str) -> tuple[tuple[str, str], ...]:
+    return (
+        ("association", "A fit shows association in these rows, not cause and effect."),
+        ("range", "Do not extrapolate: a fit describes y only within the observed range of its inputs."),
+        ("many groups", "Testing many groups at once produces false alarms by chance; adjustment used: "
+                        + ADJUST_WORDS.get(adjust, adjust) + "."),
+        ("rules of thumb", "Cut-offs such as R² below a minimum or rows per coefficient are common practice, "
+                           "not laws; judge flagged groups in context."),
+        ("regulated work", "Where results feed regulated or safety-relevant work, such as laboratory "
+                           "calibration or contractual savings claims, defer to the applicable standard, "
+                           "local codes and licensed practice."),
+    )
+
+
+def about_sheet(ctx: WriteContext) -> None:
+    """Create the sheet now (so it sits after the charts); write it last, when all notes are in."""
+    ws = ctx.add_sheet("about")
+    ctx.at_end(lambda: _write_about(ctx, ws))
+
+
+def _cell(value: Any) -> tuple[Any, bool]:
+    """A value as one cell; (cell, blanked) where blanked says a non-finite number was dropped."""
+    if value is None:
+        return "", False
+    if isinstance(value, bool):
+        return ("yes" if value else "no"), False
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        f = float(value)
+        return (value, False) if math.isfinite(f) else (None, True)
+    if isinstance(value, _dt.datetime):
+        return value.isoformat(sep=" ", timespec="seconds"), False
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        try:
+            return _cell(value.item())
+        except (TypeError, ValueError):
+            pass
+    if isinstance(value, (tuple, list)):
+        return (", ".join(str(v) for v in value) or "(none)"), False
+    text = str(value)
+    return text[:32_767], False
+
+
+def _write_about(ctx: WriteContext, ws) -> None:
+    st = ctx.styles
+    res = ctx.results
+    ws.set_column(0, 0, 30, st.text)
+    ws.set_column(1, 1, VALUE_WIDTH, st.wrap)
+    ws.set_landscape()
+    ws.fit_to_pages(1, 0)
+    rows: list[tuple[str, Any, Any]] = []   # (item, value, item format)
+    blanked: list[str] = []
+
+    def section(title: str) -> None:
+        rows.append(("", "", None))
+        rows.append((title, "", st.section))
+
+    for item, value in res.about:
+        cell, dropped = _cell(value)
+        if dropped:
+            blanked.append(str(item))
+        rows.append((str(item), cell, None))
+    if blanked:
+        ctx.note("about", "non-finite values left empty: " + ", ".join(blanked))
+
+    section("what this workbook holds")
+    for item, text in ctx.notes:
+        rows.append((f"{item} sheet", text, None))
+
+    section("colour legend")
+    for h in HIGHLIGHTS:
+        rows.append((h.colour_name, h.meaning, st.sample[h.key]))
+    for name, meaning in CHART_LEGEND:
+        rows.append((name, meaning, None))
+
+    section("definitions")
+    rows.extend((k, v, None) for k, v in DEFINITIONS)
+
+    section("cautions")
+    rows.extend((k, v, None) for k, v in cautions(res.job.thresholds.adjust))
+
+    ws.write_row(0, 0, ["item", "value"], st.header)
+    for r, (item, value, fmt) in enumerate(rows, start=1):
+        if fmt is not None:
+            ws.write_string(r, 0, item, fmt)
+        elif item:
+            ws.write_string(r, 0, item)
+        if value is None or value == "":
+            continue
+        if isinstance(value, str):
+            lines = sum(max(1, math.ceil(len(part) / (1.15 * VALUE_WIDTH))) for part in value.split("\n"))
+            if lines > 1:     # wrapped text needs a taller row; viewers do not all resize rows
+                ws.set_row(r, 15 * min(lines, 20))
+            ws.write_string(r, 1, value)
+        else:
+            ws.write_number(r, 1, value)
+    ws.freeze_panes(1, 0)

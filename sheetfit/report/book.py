@@ -1,0 +1,105 @@
+"""The shared state of one results-workbook write: workbook, formats, sheet names, notes.
+
+Sheet builders (core and add-on) receive a WriteContext; see `sheetfit.report.write_results`.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+from .styles import Styles
+
+if TYPE_CHECKING:
+    from ..results import FitResults
+
+MAX_SHEET_NAME = 31
+_BAD_SHEET_CHARS = re.compile(r"[\[\]:*?/\\\x00-\x1f]")
+_RESERVED = {"history"}  # Excel keeps this name for itself
+
+WORKBOOK_OPTIONS: dict[str, Any] = {
+    "strings_to_formulas": False,
+    "strings_to_urls": False,
+    "strings_to_numbers": False,
+    "constant_memory": True,
+    "nan_inf_to_errors": False,
+    "use_future_functions": True,
+}
+
+
+class SheetNames:
+    """Turns labels into valid, unique sheet names (case-insensitive), at most 31 characters."""
+
+    def __init__(self) -> None:
+        self._taken: set[str] = set()
+
+    def add(self, label: str) -> str:
+        base = _BAD_SHEET_CHARS.sub("_", str(label)).strip()
+        base = base.strip("'").strip() or "sheet"
+        if base.lower() in _RESERVED:
+            base += "_"
+        base = base[:MAX_SHEET_NAME].rstrip("'").rstrip() or "sheet"
+        name, k = base, 1
+        while name.lower() in self._taken:
+            k += 1
+            suffix = f" ({k})"
+            name = base[:MAX_SHEET_NAME - len(suffix)].rstrip("'") + suffix
+        self._taken.add(name.lower())
+        return name
+
+
+SheetBuilder = Callable[["WriteContext"], None]
+
+
+@dataclass
+class WriteContext:
+    """What every sheet builder shares while one results workbook is written.
+
+    Sheets appear in the order they are created. `add_sheet` creates one now;
+    `reserve_data_sheet` names a data sheet that is created and filled after every builder ran,
+    so data sheets sit last; `at_end` runs a callback after that (the `about` sheet uses it to
+    list the notes gathered from all builders). The workbook uses constant_memory: write each
+    sheet strictly row by row.
+    """
+
+    workbook: Any
+    results: "FitResults"
+    styles: Styles
+    names: SheetNames = field(default_factory=SheetNames)
+    notes: list[tuple[str, str]] = field(default_factory=list)
+    sheets: dict[str, Any] = field(default_factory=dict)
+    _data_sheets: list[tuple[str, Callable[[Any], None], bool]] = field(default_factory=list)
+    _at_end: list[Callable[[], None]] = field(default_factory=list)
+
+    def add_sheet(self, label: str) -> Any:
+        """Create a worksheet now, named from `label` (sanitised, unique)."""
+        name = self.names.add(label)
+        ws = self.workbook.add_worksheet(name)
+        self.sheets[name] = ws
+        return ws
+
+    def reserve_data_sheet(self, label: str, fill: Callable[[Any], None], hidden: bool = False) -> str:
+        """Name a data sheet now; it is created after all builders and `fill(worksheet)` writes it."""
+        name = self.names.add(label)
+        self._data_sheets.append((name, fill, hidden))
+        return name
+
+    def at_end(self, callback: Callable[[], None]) -> None:
+        self._at_end.append(callback)
+
+    def note(self, item: str, text: str) -> None:
+        """A line on `about` saying what sheet `item` holds, left out, blanked or cut."""
+        self.notes.append((item, text))
+
+    def finish(self) -> None:
+        """Create and fill the reserved data sheets, then run the end callbacks."""
+        for name, fill, hidden in self._data_sheets:
+            ws = self.workbook.add_worksheet(name)
+            self.sheets[name] = ws
+            fill(ws)
+            if hidden:
+                ws.hide()
+        for callback in self._at_end:
+            callback()

@@ -1,0 +1,165 @@
+"""Column preparation for fast row-by-row writing: cell values in bulk, formats and widths per column.
+
+Every column is converted once, vectorised; rows are then handed to xlsxwriter's write_row in
+blocks, so the per-cell Python work is only xlsxwriter's own.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+MAX_TEXT = 32_767  # characters a cell can hold
+
+COUNT_COLUMNS = {"flags", "n", "rows dropped", "parameters", "source row", "HAC lag",
+                 "high-leverage rows", "outlying rows", "influential rows", "rows read", "rows used"}
+FIXED_FORMATS = {
+    "R²": "0.0000", "adjusted R²": "0.0000", "leverage": "0.0000", "CV(RMSE) %": "0.00",
+    "studentized residual": "0.000", "standardized residual": "0.000", "normal quantile": "0.000",
+    "VIF": "0.00", "condition number": "0.0",
+}
+P_VALUE_FORMAT = "[<0.0001]0.00E+00;0.0000"   # small p-values in powers of ten, the rest as 0.0123
+SCIENTIFIC = "0.000E+00"
+DATE_FORMAT = "yyyy-mm-dd hh:mm"
+_EXCEL_EPOCH = np.datetime64("1899-12-30T00:00:00", "ns")
+
+
+def number_format(header: str, values: np.ndarray) -> str:
+    """A display format that shows sensible digits for this column (cells keep full precision)."""
+    if header in FIXED_FORMATS:
+        return FIXED_FORMATS[header]
+    if header in COUNT_COLUMNS:
+        return "0"
+    if header.endswith("p-value"):
+        return P_VALUE_FORMAT
+    v = np.abs(values[np.isfinite(values)])
+    v = v[v > 0]
+    if v.size == 0:
+        return "0"
+    if np.all(v == np.round(v)) and v.max() < 1e10:
+        return "0"
+    sample = v[:: v.size // 20_000] if v.size > 20_000 else v
+    lo, hi = np.percentile(sample, [5, 95])
+    if hi >= 1e7 or hi < 1e-3:
+        return SCIENTIFIC
+    if hi / lo > 1e5:
+        return "General"   # magnitudes too varied for one fixed number of decimals
+    decimals = min(6, max(0, 3 - math.floor(math.log10(lo))))
+    for k in range(decimals):        # data typed with fewer decimals (e.g. 47.9) keep their look
+        scaled = v * 10.0**k
+        if np.all(np.abs(scaled - np.round(scaled)) <= 1e-9 * np.maximum(scaled, 1.0)):
+            decimals = k
+            break
+    return "0" if decimals == 0 else "0." + "0" * decimals
+
+
+class Column:
+    """One table column ready to write: cell values by row block, format, width and counts."""
+
+    def __init__(self, header: str, series: pd.Series | None, n_rows: int) -> None:
+        self.header = str(header)
+        self.num_format: str | None = None
+        self.undefined = 0     # NaN numbers written as empty cells
+        self.infinite = 0      # ±inf written as empty cells
+        self.cut = 0           # texts cut to MAX_TEXT characters
+        self.timezone_dropped = False
+        self._bad: np.ndarray | None = None
+        self._mixed = False
+        if series is None:                                     # contract column not computed
+            self.kind = "empty"
+            self._array = np.full(n_rows, None, dtype=object)
+            self.width = len(self.header) + 4
+            return
+        dtype = series.dtype
+        if pd.api.types.is_bool_dtype(dtype):
+            self._text(series.map({True: "yes", False: "no"}))
+        elif pd.api.types.is_datetime64_any_dtype(dtype):
+            self._datetime(series)
+        elif pd.api.types.is_numeric_dtype(dtype):
+            self._numbers(series)
+        else:
+            self._text(series)
+
+    def _numbers(self, series: pd.Series) -> None:
+        self.kind = "number"
+        if pd.api.types.is_integer_dtype(series.dtype) and not series.hasnans:
+            self._array = series.to_numpy(dtype=np.int64)
+            self.num_format = "0"
+        else:
+            a = series.to_numpy(dtype=np.float64, na_value=np.nan)
+            finite = np.isfinite(a)
+            if not finite.all():
+                nan = np.isnan(a)
+                self.undefined = int(nan.sum())
+                self.infinite = int((~finite).sum()) - self.undefined
+                self._bad = ~finite
+            self._array = a
+            self.num_format = number_format(self.header, a)
+        self.width = max(len(self.header) + 3, 10)
+
+    def _datetime(self, series: pd.Series) -> None:
+        if getattr(series.dt, "tz", None) is not None:
+            series = series.dt.tz_convert("UTC").dt.tz_localize(None)
+            self.timezone_dropped = True
+        raw = series.to_numpy(dtype="datetime64[ns]")
+        days = (raw - _EXCEL_EPOCH) / np.timedelta64(1, "D")
+        self._numbers(pd.Series(days, dtype=np.float64))
+        self.undefined = 0 if self._bad is None else int(self._bad.sum())
+        self.num_format = DATE_FORMAT
+        self.width = max(len(self.header) + 3, 17)
+
+    def _text(self, series: pd.Series) -> None:
+        self.kind = "text"
+        arr = series.to_numpy(dtype=object, na_value=None)
+        inferred = pd.api.types.infer_dtype(arr, skipna=True)
+        if inferred not in ("string", "empty"):
+            self._mixed = True                                 # numbers and text in one column
+            plain = np.empty(len(arr), dtype=object)
+            plain[:] = [_plain(v) for v in arr]
+            arr = plain
+        texts = (v for v in arr if isinstance(v, str)) if self._mixed else filter(None, arr)
+        if max(map(len, texts), default=0) > MAX_TEXT:
+            arr = arr.copy()
+            for i, v in enumerate(arr):
+                if isinstance(v, str) and len(v) > MAX_TEXT:
+                    arr[i] = v[:MAX_TEXT]
+                    self.cut += 1
+        lengths = np.array([len(v) for v in arr[:2000] if isinstance(v, str) and v], dtype=np.float64)
+        self._array = arr
+        typical = float(np.percentile(lengths, 95)) if lengths.size else 0.0
+        self.width = min(max(len(self.header) + 3, typical + 2, 8), 60)
+
+    def block(self, lo: int, hi: int) -> list:
+        """Cell values of rows lo..hi-1: numbers, strings, or None for an empty cell."""
+        values = self._array[lo:hi].tolist()
+        if self._bad is not None:
+            bad = self._bad[lo:hi]
+            if bad.any():
+                for i in np.flatnonzero(bad).tolist():
+                    values[i] = None
+        return values
+
+
+def _plain(v: object) -> object:
+    """A mixed column's cell: finite numbers stay numbers, everything else becomes text."""
+    if v is None or isinstance(v, str):
+        return v
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, float, np.integer, np.floating)):
+        if not math.isfinite(float(v)):
+            return None
+        return v.item() if isinstance(v, np.generic) else v
+    return str(v)
+
+
+def column_letter(index: int) -> str:
+    """0 → A, 25 → Z, 26 → AA."""
+    letters = ""
+    index += 1
+    while index:
+        index, rem = divmod(index - 1, 26)
+        letters = chr(65 + rem) + letters
+    return letters

@@ -1,0 +1,208 @@
+"""The table sheets: groups, coefficients, checks, observations.
+
+Each is written row by row (constant_memory), with column formats, autofilter, a frozen header
+and conditional-formatting rules from the shared palette. Long tables continue on further sheets.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import pandas as pd
+
+from ..results import REASON, SOURCE_ROW, SOURCE_SHEET
+from ..terms import source_columns
+from .book import WriteContext
+from .columns import Column, column_letter
+
+MAX_DATA_ROWS = 1_048_575      # a sheet holds 1,048,576 rows, one of them the header
+BLOCK_ROWS = 50_000            # rows converted to Python values at a time
+
+GROUPS = ("status", "flags", "reasons", "n", "rows dropped", "parameters", "R²", "adjusted R²",
+          "residual std error", "RMSE", "CV(RMSE) %", "F", "F p-value", "AIC", "BIC")
+COEFFICIENTS = ("term", "estimate", "std error", "t", "p-value", "CI low", "CI high")
+COEFFICIENTS_OPTIONAL = ("VIF", "robust std error", "robust p-value", "HAC std error", "HAC p-value",
+                         "HAC lag")
+CHECKS = ("check", "statistic", "p-value", "adjusted p-value", "threshold", "verdict", "note")
+OBS_HEAD = (SOURCE_SHEET, SOURCE_ROW)
+OBS_TAIL = ("used", REASON, "fitted", "residual", "studentized residual", "leverage", "Cook's distance",
+            "row flags")
+PRINT_FIT_WIDTH = 220          # characters of column width that still print legibly on one page width
+WIDE_TEXT = {"reasons": 60, "note": 60, REASON: 45, "row flags": 30}
+
+
+@dataclass(frozen=True)
+class Rule:
+    """A whole-row highlight: `test` is a formula on `{c}`, the column's cell in the row."""
+
+    column: str
+    test: str
+    style: str
+
+
+def ordered_columns(df: pd.DataFrame, keys: Sequence[str], required: Sequence[str],
+                    optional: Sequence[str] = ()) -> list[str]:
+    """Keys, then the contract's columns (required ones always), then any others in their given order."""
+    order = [k for k in keys]
+    order += [c for c in required if c not in order]
+    order += [c for c in optional if c in df.columns and c not in order]
+    order += [c for c in df.columns if c not in order]
+    return order
+
+
+def write_table(ctx: WriteContext, label: str, df: pd.DataFrame, order: Sequence[str],
+                rules: Sequence[Rule] = (), freeze_columns: int = 0) -> list[str]:
+    """Write `df[order]` as a filtered, frozen, highlighted table; returns the sheet names used."""
+    n = len(df)
+    columns = [Column(h, df[h] if h in df.columns else None, n) for h in order]
+    _note_columns(ctx, label, columns)
+    parts = max(1, -(-n // MAX_DATA_ROWS))
+    names: list[str] = []
+    for part in range(parts):
+        ws = ctx.add_sheet(label if part == 0 else f"{label} ({part + 1})")
+        names.append(ws.name)
+        lo, hi = part * MAX_DATA_ROWS, min(n, (part + 1) * MAX_DATA_ROWS)
+        _write_part(ctx, ws, columns, lo, hi, rules, freeze_columns)
+    if parts > 1:
+        ctx.note(label, f"{n:,} rows: more than a sheet holds ({MAX_DATA_ROWS:,} data rows each), "
+                        f"so the table continues on {', '.join(repr(s) for s in names[1:])}")
+    return names
+
+
+def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
+                rules: Sequence[Rule], freeze_columns: int) -> None:
+    st = ctx.styles
+    # a text column right after a number column starts one space in, so the two do not touch
+    indent = [col.kind != "number" and j > 0 and columns[j - 1].kind == "number"
+              for j, col in enumerate(columns)]
+    widths = []
+    for j, col in enumerate(columns):
+        width = WIDE_TEXT.get(col.header, col.width) if col.kind == "text" else col.width
+        widths.append(width)
+        fmt = st.number(col.num_format) if col.num_format else (st.text_cell if indent[j] else None)
+        ws.set_column(j, j, width, fmt)
+        head = st.header_number if col.kind == "number" else (st.header_text if indent[j] else st.header)
+        ws.write_string(0, j, col.header, head)
+    write_row = ws.write_row
+    r = 1
+    for start in range(lo, hi, BLOCK_ROWS):
+        stop = min(hi, start + BLOCK_ROWS)
+        for row in zip(*(c.block(start, stop) for c in columns)):
+            write_row(r, 0, row)
+            r += 1
+    last_row, last_col = max(hi - lo, 0), len(columns) - 1
+    ws.autofilter(0, 0, last_row, last_col)
+    ws.freeze_panes(1, freeze_columns)
+    ws.set_landscape()
+    ws.repeat_rows(0)
+    if sum(widths) <= PRINT_FIT_WIDTH:     # printed: every column on the page width, if still readable
+        ws.fit_to_pages(1, 0)
+    if hi > lo:
+        headers = [c.header for c in columns]
+        for rule in rules:
+            if rule.column not in headers:
+                continue
+            cell = f"${column_letter(headers.index(rule.column))}2"
+            ws.conditional_format(1, 0, last_row, last_col, {
+                "type": "formula", "criteria": "=" + rule.test.format(c=cell),
+                "format": st.highlight[rule.style], "stop_if_true": True})
+
+
+def _note_columns(ctx: WriteContext, label: str, columns: list[Column]) -> None:
+    """Say on `about` which cells were left empty or cut, and why."""
+    infinite = [(c.header, c.infinite) for c in columns if c.infinite]
+    undefined = [(c.header, c.undefined) for c in columns if c.undefined]
+    cut = [(c.header, c.cut) for c in columns if c.cut]
+    if infinite:
+        ctx.note(label, "infinite values left as empty cells (e.g. F of a perfect fit): "
+                        + _counts(infinite))
+    if undefined:
+        ctx.note(label, "undefined values left as empty cells (the figure cannot be computed, e.g. a "
+                        "group not fitted, a row not used, no degrees of freedom left): " + _counts(undefined))
+    if cut:
+        ctx.note(label, f"texts longer than a cell holds cut to {32_767:,} characters: " + _counts(cut))
+    missing = [c.header for c in columns if c.kind == "empty"]
+    if missing:
+        ctx.note(label, "columns not computed in this run, left empty: " + ", ".join(missing))
+    if any(c.timezone_dropped for c in columns):
+        ctx.note(label, "date-times with a time zone are shown in UTC")
+
+
+def _counts(pairs: list[tuple[str, int]]) -> str:
+    return "; ".join(f"{h} {k:,}" for h, k in pairs)
+
+
+def _freeze(keys: Sequence[str]) -> int:
+    return len(keys) if 0 < len(keys) <= 3 else 0
+
+
+# --- the four table sheets ---------------------------------------------------------------------
+
+def groups_sheet(ctx: WriteContext) -> None:
+    res = ctx.results
+    keys = list(res.group_columns)
+    order = ordered_columns(res.groups, keys, GROUPS)
+    write_table(ctx, "groups", res.groups, order, freeze_columns=_freeze(keys), rules=(
+        Rule("status", '{c}="not fitted"', "left_out"),
+        Rule("flags", "{c}>0", "check_failed"),
+    ))
+
+
+def coefficients_sheet(ctx: WriteContext) -> None:
+    res = ctx.results
+    keys = list(res.group_columns)
+    order = ordered_columns(res.coefficients, keys, COEFFICIENTS, COEFFICIENTS_OPTIONAL)
+    write_table(ctx, "coefficients", res.coefficients, order, freeze_columns=_freeze(keys))
+
+
+def checks_sheet(ctx: WriteContext) -> None:
+    res = ctx.results
+    keys = list(res.group_columns)
+    order = ordered_columns(res.checks, keys, CHECKS)
+    write_table(ctx, "checks", res.checks, order, freeze_columns=_freeze(keys), rules=(
+        Rule("verdict", '{c}="fail"', "check_failed"),
+    ))
+
+
+def select_observations(obs: pd.DataFrame, mode: str) -> pd.DataFrame:
+    """Rows to write: all; only unusable or row-flagged ones ('flagged'); or none."""
+    if mode == "none":
+        return obs.iloc[0:0]
+    if mode == "flagged":
+        keep = pd.Series(False, index=obs.index)
+        if "used" in obs.columns:
+            keep |= obs["used"].astype(str).eq("no")
+        if "row flags" in obs.columns:
+            keep |= obs["row flags"].fillna("").astype(str).str.len().gt(0)
+        return obs.loc[keep]
+    return obs
+
+
+def observations_sheet(ctx: WriteContext) -> None:
+    res = ctx.results
+    keys = list(res.group_columns)
+    obs = res.observations
+    mode = res.job.observations
+    data_cols = [res.y, *source_columns(res.terms)]
+    extra_data = [c for c in obs.columns
+                  if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL)]
+    order = ordered_columns(obs, keys, [*OBS_HEAD, *data_cols, *extra_data, *OBS_TAIL])
+    rules = (Rule("used", '{c}="no"', "left_out"), Rule("row flags", 'LEN({c})>0', "unusual_row"))
+    total = len(obs)
+    if mode == "none":
+        ws = ctx.add_sheet("observations")
+        ws.set_column(0, 0, 110)
+        ws.write_string(0, 0, f"Observation rows were left out of this workbook (observations = none); "
+                              f"{total:,} rows were read. Run again with --observations all or flagged "
+                              "to list them.", ctx.styles.note)
+        ctx.note("observations", f"left out: all {total:,} rows (observations = none)")
+        return
+    chosen = select_observations(obs, mode)
+    write_table(ctx, "observations", chosen, order, rules=rules, freeze_columns=_freeze(keys))
+    if mode == "flagged":
+        ctx.note("observations", f"written: {len(chosen):,} of {total:,} rows (observations = flagged: "
+                                 f"unusable rows and rows with row flags); left out: {total - len(chosen):,} "
+                                 "used rows without row flags")
+    else:
+        ctx.note("observations", f"written: all {total:,} rows")
