@@ -72,3 +72,23 @@ def digits_table() -> list[tuple[str, float, float, float, float]]:
 if __name__ == "__main__":
     for r in digits_table():
         print(f"{r[0]:9s} coefficients {r[1]:5.1f}  std errors {r[2]:5.1f}  residual sd {r[3]:5.1f}  R² {r[4]:5.1f}")
+
+
+@pytest.mark.parametrize("name", ["filip", "longley", "noint1", "wampler4"])
+def test_nist_through_the_workbook_reader(name, tmp_path):
+    # The same certified digits when the data come through the CSV and .xlsx readers.
+    import xlsxwriter
+
+    cert = json.loads((NIST / "certified.json").read_text())["datasets"][name]
+    terms = [t for t in cert["model_terms"] if t != "1"]
+    frame = pd.read_csv(NIST / cert["csv"], dtype=str).astype(float)
+    book = tmp_path / f"{name}.xlsx"
+    with xlsxwriter.Workbook(str(book)) as wb:
+        ws = wb.add_worksheet("data")
+        ws.write_row(0, 0, list(frame.columns))
+        for i, row in enumerate(frame.itertuples(index=False), start=1):
+            ws.write_row(i, 0, list(row))
+    for source in (NIST / cert["csv"], book):
+        res = sheetfit.fit_workbook(source, y="y", x=terms, intercept=cert["intercept"])
+        assert lre(res.coefficients["estimate"], cert["coefficients"]).min() >= REQUIRED.get(name, 9.0)
+        assert lre(res.coefficients["std error"], cert["coefficient_sds"]).min() >= 9.0
