@@ -23,7 +23,7 @@ def __getattr__(name: str):
         from .report import write_results
         return write_results
     if name == "predict":
-        from .predict import predict
+        from .prediction import predict
         return predict
     if name == "FitJob":
         from .job import FitJob

@@ -291,9 +291,34 @@ def demo(
 
 
 # ── predict ──
-# `sheetfit predict` lives in its own module; register it here with one line, e.g.
-#     from .predict_cli import predict; app.command("predict")(predict)
-# keeping that module's heavy imports inside its command function and using error_boundary().
+
+@app.command("predict")
+def predict(
+    results_workbook: Path = typer.Argument(..., metavar="RESULTS.xlsx", show_default=False,
+                                            help="A results workbook written by `sheetfit fit`."),
+    new_rows: Path = typer.Argument(..., metavar="NEW_ROWS", show_default=False,
+                                    help="Workbook or CSV with the group key columns and the input columns."),
+    sheet: str | None = typer.Option(None, "--sheet", metavar="NAME", show_default=False,
+                                     help="Sheet of NEW_ROWS to read (default: the first sheet)."),
+    out: Path | None = typer.Option(None, "--out", metavar="PREDICTIONS.xlsx", show_default=False,
+                                    help="Where to write (default: <new rows name>-predicted.xlsx)."),
+    overwrite: bool = typer.Option(False, "--overwrite", help="Replace the output if it exists."),
+    debug: bool = typer.Option(False, "--debug", help="Show the full traceback of an error."),
+) -> None:
+    """Apply the models stored in a results workbook to new rows.
+
+    Writes each row's predicted value, the confidence interval of the mean, the prediction
+    interval of a new observation and an extrapolation flag; rows that cannot be predicted
+    (unknown group, missing input) get a reason.
+
+    Example:
+      sheetfit predict usage-fit.xlsx plan.xlsx --sheet Plan --out plan-predicted.xlsx
+    """
+    with error_boundary(debug):
+        from .prediction import predict_workbook
+
+        path = predict_workbook(results_workbook, new_rows, sheet, out, overwrite)
+        typer.echo(f"predictions: {path}")
 
 
 def main() -> None:

@@ -325,6 +325,9 @@ def run_job(job: FitJob, progress: bool = False) -> tuple[FitResults, Path]:
     from .report import write_results
     from .report.safe import check_output_path
 
+    from .sources import check_path
+
+    check_path(Path(job.workbook))          # a missing input is the first thing to say
     out = job.output_path
     check_output_path(Path(job.workbook), out, job.overwrite)
     bar = Progress(progress)

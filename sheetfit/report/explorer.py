@@ -1,0 +1,359 @@
+"""The `explorer` sheet: pick a fitted group from a drop-down and see its rows, fit figures and charts.
+
+The `explorer data` sheet holds every fitted group's used rows, sorted by group and then by the
+first input, with an index of each group's first row and row count. The explorer block fills by
+index arithmetic, INDEX(column, first + k − 1), so choosing a group costs one MATCH, not a scan.
+Rows beyond the group's size show nothing; chart cells there hold #N/A (not plotted, not shown).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..store import group_codes, unique_labels
+from ..terms import source_columns
+from . import styles as S
+from .book import WriteContext
+from .columns import P_VALUE_FORMAT, SCIENTIFIC, number_format
+from .whatif import Cells, area, lookup, ref
+
+MAX_BLOCK = 500             # rows the block shows; larger groups show an even sample of this many
+MAX_ROWS = 100_000          # rows on the data sheet at most: with many groups, fewer rows per group…
+MIN_PER_GROUP = 20          # …but not fewer than this; groups beyond the total are left out
+METRICS = ("n", "R²", "adjusted R²", "residual std error", "RMSE", "CV(RMSE) %", "F p-value", "flags", "reasons")
+COEF = ("estimate", "std error", "p-value", "CI low", "CI high")
+CHART_W, CHART_H = 440, 300
+TOP = 9                     # first metric row (0-based)
+
+
+@dataclass
+class Explorer:
+    """What the explorer shows: groups, their index entries, and the rows of the data sheet."""
+
+    labels: list[str]
+    index: pd.DataFrame                  # one row per group: first, rows, metrics, coefficient columns
+    rows: pd.DataFrame                   # group, source row, inputs, y, fitted, residual
+    sources: list[str]
+    y: str
+    terms: list[str]
+    block: int
+    sampled: int = 0                     # groups shown as an even sample of `cap` rows
+    cap: int = 0                         # rows kept per group
+    left_out: int = 0                    # fitted groups left out to keep the data sheet small
+    formats: dict[str, str] = field(default_factory=dict)
+
+
+def plan_explorer(res: Any) -> Explorer:
+    """Every fitted group's used rows, sorted by group, first input and source row, with an index."""
+    keys = list(res.group_columns)
+    g = res.groups
+    fitted = (g[g["status"].astype(str).eq("fitted")] if "status" in g.columns else g).reset_index(drop=True)
+    G = len(fitted)
+    sources = list(source_columns(res.terms))
+    cols = ["source row", *sources, res.y, "fitted", "residual"]
+    obs = res.observations
+    used = obs["used"].astype(str).eq("yes") if "used" in obs.columns else pd.Series(True, index=obs.index)
+    fit = pd.to_numeric(obs.get("fitted", pd.Series(np.nan, index=obs.index)), errors="coerce")
+    obs = obs.loc[used & fit.notna()]
+    code = group_codes(obs, keys, fitted)
+    obs, code = obs[code >= 0], code[code >= 0]
+    table = pd.DataFrame({c: (pd.to_numeric(obs[c], errors="coerce").to_numpy(np.float64) if c in obs.columns
+                              else np.full(len(obs), np.nan)) for c in cols})
+    order = np.lexsort((table["source row"].to_numpy(), table[sources[0]].to_numpy(), code))
+    table, code = table.iloc[order].reset_index(drop=True), code[order]
+    counts = np.bincount(code, minlength=G)
+    starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    cap = int(min(MAX_BLOCK, max(MIN_PER_GROUP, MAX_ROWS // max(int((counts > 0).sum()), 1))))
+    take = np.ones(len(code), dtype=bool)
+    big = np.flatnonzero(counts > cap)
+    for gi in big:                        # larger groups: an even sample across the first input
+        mask = np.zeros(counts[gi], dtype=bool)
+        mask[np.linspace(0, counts[gi] - 1, cap).round().astype(int)] = True
+        take[starts[gi]:starts[gi] + counts[gi]] = mask
+    shown = np.bincount(code[take], minlength=G)
+    include = (shown > 0) & (np.cumsum(shown) <= MAX_ROWS)
+    take &= include[code]
+    table, code = table[take].reset_index(drop=True), code[take]
+    gi = np.flatnonzero(include)
+    kept = [tuple(fitted[k].astype(str).iloc[i] for k in keys) for i in gi]
+    labels = list(unique_labels(kept))
+    n_shown = shown[gi]
+    idx = pd.DataFrame({"group": labels, "first row": 1 + np.concatenate(([0], np.cumsum(n_shown)[:-1])),
+                        "rows": n_shown})
+    for mtr in METRICS:
+        idx[mtr] = fitted[mtr].to_numpy()[gi] if mtr in fitted.columns else np.nan
+    fv = table["fitted"].to_numpy()
+    at = np.concatenate(([0], np.cumsum(n_shown)[:-1])).astype(np.intp)
+    idx["lowest fitted"] = np.minimum.reduceat(fv, at) if len(fv) else np.empty(0)
+    idx["highest fitted"] = np.maximum.reduceat(fv, at) if len(fv) else np.empty(0)
+    terms = list(res.term_labels)
+    coef = res.coefficients
+    c_code = np.full(G, -1, dtype=np.int64)
+    c_code[gi] = np.arange(len(gi))
+    cc = group_codes(coef, keys, fitted) if len(coef) else np.empty(0, dtype=np.int64)
+    rows_of = np.where(cc >= 0, c_code[np.maximum(cc, 0)], -1)
+    term_at = pd.Index(terms).get_indexer(coef["term"].astype(str)) if len(coef) else np.empty(0, dtype=np.int64)
+    ok = (rows_of >= 0) & (term_at >= 0)
+    for t_i, t in enumerate(terms):
+        for c in COEF:
+            values = np.full(len(gi), np.nan)
+            if c in coef.columns:
+                sel = ok & (term_at == t_i)
+                values[rows_of[sel]] = pd.to_numeric(coef[c], errors="coerce").to_numpy(np.float64)[sel]
+            idx[f"{c}: {t}"] = values
+    table.insert(0, "group", np.asarray(labels, dtype=object)[np.repeat(np.arange(len(gi)), n_shown)])
+    ex = Explorer(labels, idx, table, sources, res.y, terms, int(n_shown.max()) if len(gi) else 0,
+                  sampled=int(len(big)), cap=cap, left_out=int(((shown > 0) & ~include).sum()))
+    for c in cols[1:]:
+        ex.formats[c] = number_format(c, table[c].to_numpy(np.float64))
+    for mtr in METRICS:
+        if mtr != "reasons" and mtr in fitted.columns:
+            ex.formats[mtr] = number_format(mtr, pd.to_numeric(idx[mtr], errors="coerce").to_numpy(np.float64))
+    for c in COEF:
+        vals = pd.to_numeric(coef[c], errors="coerce").to_numpy(np.float64) if c in coef.columns else np.empty(0)
+        fmt = P_VALUE_FORMAT if c == "p-value" else number_format(c, vals)
+        ex.formats[c] = SCIENTIFIC if fmt == "General" else fmt     # General overflows narrow cells
+    return ex
+
+
+def _cell(v: Any) -> Any:
+    """A data-sheet cell: numbers stay numbers; missing numbers become empty text."""
+    if v is None:
+        return ""
+    if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
+        f = float(v)
+        return f if math.isfinite(f) else ""
+    return str(v)
+
+
+def fill_data(ws: Any, ex: Explorer, st: Any) -> None:
+    ws.set_column(0, 0, 24)
+    ws.set_column(1, max(len(ex.index.columns), len(ex.rows.columns)), 14)
+    ws.set_landscape()
+    ws.fit_to_pages(1, 0)
+    ws.write_string(0, 0, "Rows behind the 'explorer' sheet: an index of each group's first row and row count, "
+                          "then every group's rows, sorted by group. Do not sort, insert or delete rows.", st.note)
+    ws.write_row(2, 0, list(ex.index.columns), st.header)
+    for r, row in enumerate(ex.index.itertuples(index=False), start=3):
+        ws.write_row(r, 0, [_cell(v) for v in row])
+    h = data_header(ex)
+    ws.write_row(h, 0, list(ex.rows.columns), st.header)
+    for r, row in enumerate(ex.rows.itertuples(index=False), start=h + 1):
+        ws.write_row(r, 0, [_cell(v) for v in row])
+
+
+def block_headers(ex: Explorer) -> list[str]:
+    """Columns of the explorer block: inputs (the first one is the charts' x), y, fitted, residual, source row."""
+    return [*ex.sources, ex.y, "fitted", "residual", "source row"]
+
+
+def _floor(ex: Explorer) -> dict[str, Any]:
+    """A fixed lower bound for the fit chart's y axis when every group's values are positive.
+
+    Axis bounds cannot follow the chosen group, and automatic scaling starts positive data at
+    zero, which squashes groups whose values lie far from zero; the lowest value over all
+    groups keeps every group's points in view.
+    """
+    v = pd.to_numeric(pd.concat([ex.rows[ex.y], ex.rows["fitted"]]), errors="coerce").to_numpy(np.float64)
+    v = v[np.isfinite(v)]
+    if not v.size or v.min() <= 0:
+        return {}
+    lo = float(v.min())
+    step = 10 ** math.floor(math.log10(lo))
+    floor = math.floor(lo / step) * step
+    if floor >= lo:
+        floor -= step
+    return {"min": floor} if floor > 0 else {}
+
+
+def data_header(ex: Explorer) -> int:
+    return 3 + len(ex.index) + 1
+
+
+def explorer_sheet(ctx: WriteContext, group: str | None = None, cache: bool = True) -> None:
+    """The `explorer` sheet and its `explorer data` sheet; `group` presets the drop-down (default: the
+    first fitted group); `cache=False` leaves formula results empty (for recalculation tests)."""
+    res = ctx.results
+    st = ctx.styles
+    ex = plan_explorer(res)
+    ws = ctx.add_sheet("explorer")
+    if not ex.labels:
+        ws.set_column(0, 0, 100)
+        ws.write_string(0, 0, "No group explorer: no group could be fitted (see the groups sheet).", st.title)
+        return
+    data = ctx.reserve_data_sheet("explorer data", lambda sheet: fill_data(sheet, ex, st))
+    g = ex.labels.index(group) if group is not None else 0
+    cells = Cells(cache)
+    spots = _layout(ctx, cells, ex, data, g)
+    block_top = spots.block_top
+    for c, h in enumerate(block_headers(ex)):
+        coef = (["term", *COEF][c] if c <= len(COEF) else "")
+        ws.set_column(c, c, 30 if c == 0 else min(max(15, len(h) + 3, len(coef) + 3), 32))
+    ws.hide_gridlines(2)
+    ws.set_landscape()
+    ws.fit_to_pages(1, 0)
+    ws.repeat_rows(block_top - 1)
+    cells.flush(ws)
+    last = block_top + ex.block - 1
+    ws.data_validation(3, 1, 3, 1, {"validate": "list", "source": "=" + area(data, 3, 0, 2 + len(ex.labels), 0),
+                                    "error_title": "not a fitted group",
+                                    "error_message": "Choose one of the fitted groups from the list."})
+    ncol = len(block_headers(ex))
+    ws.conditional_format(block_top, 0, last, ncol - 1, {
+        "type": "formula", "criteria": f"=ISNA({ref(None, block_top, 0, False)})", "format": st.quiet})
+    _charts(ctx, ws, ex, spots)
+    note = (f"choose one of {len(ex.labels)} fitted groups in the pale straw cell; the block shows up to "
+            f"{ex.block} rows (cells for the charts hold #N/A, shown blank, beyond the group's rows)"
+            + (f"; {ex.sampled} groups larger than {ex.cap} rows show an even sample of {ex.cap}"
+               if ex.sampled else "")
+            + (f"; {ex.left_out} fitted groups left out (the data sheet keeps at most {MAX_ROWS:,} rows)"
+               if ex.left_out else "") + f"; rows are on sheet '{data}'")
+    ctx.note("explorer", note)
+
+
+@dataclass(frozen=True)
+class Spots:
+    """Rows (0-based) the charts need: the zero-line cells, the chart row, the block's first row."""
+
+    zero_row: int
+    chart_row: int
+    block_top: int
+
+
+def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) -> Spots:
+    """Fill `cells` with the explorer's text and formulas; returns where the charts go."""
+    st = ctx.styles
+    G = len(ex.labels)
+    idx_cols = list(ex.index.columns)
+    idx_area = area(data, 3, 0, 2 + G, len(idx_cols) - 1)
+    pos = ref(None, 5, 1)
+    chosen = ex.index.iloc[g]
+
+    def pick(name: str) -> str:
+        return f"INDEX({idx_area},{pos},{idx_cols.index(name) + 1})"
+
+    cells.text(0, 0, "Group explorer", st.title)
+    cells.text(1, 0, "Choose a group in the shaded cell: its fit figures, coefficients, charts and rows follow "
+                     f"(rows used in the fit, sorted by {ex.sources[0]}).", st.note)
+    cells.text(3, 0, "group", st.group_label)
+    cells.text(3, 1, ex.labels[g], st.input)
+    cells.text(3, 2, "(list of fitted groups)", st.note)
+    cells.text(4, 0, "rows shown", st.group_label)
+    cnt, first = ref(None, 4, 1), ref(None, 6, 1)
+    cells.formula(4, 1, f"=IF(ISNA({pos}),0,{pick('rows')})", st.number("0"), int(chosen["rows"]))
+    n_all = int(chosen["n"]) if "n" in chosen and pd.notna(chosen["n"]) else int(chosen["rows"])
+    sample_note = (f"an even sample of the {n_all} rows used" if n_all > int(chosen["rows"]) else "")
+    cells.formula(4, 2, f'=IF(ISNA({pos}),"choose a fitted group from the list in cell B4",'
+                        f'IF({cnt}<{pick("n")},"an even sample of the "&{pick("n")}&" rows used",""))',
+                  st.note, sample_note)
+    cells.text(5, 0, "position in the list", st.note)
+    cells.formula(5, 1, "=" + lookup(ref(None, 3, 1), area(data, 3, 0, 2 + G, 0)), st.note, g + 1)
+    cells.text(6, 0, f"first row on sheet '{data}'", st.note)
+    cells.formula(6, 1, f"=IF(ISNA({pos}),1,{pick('first row')})", st.note, int(chosen["first row"]))
+
+    cells.text(TOP - 1, 0, "fit", st.header)
+    cells.text(TOP - 1, 1, "value", st.header)
+    r = TOP
+    for mtr in [m for m in METRICS if m in idx_cols]:
+        v = chosen[mtr]
+        fmt = st.number(ex.formats[mtr]) if mtr in ex.formats else None
+        cells.text(r, 0, mtr, st.text if mtr == "reasons" else None)
+        text = mtr == "reasons"         # &"" keeps an empty text cell empty instead of showing 0
+        cells.formula(r, 1, "=" + pick(mtr) + ('&""' if text else ""), st.wrap if text else fmt,
+                      "" if pd.isna(v) else (str(v) if text else v))
+        if text:
+            cells.merge(r, 1, len(COEF), height=48)
+        r += 1
+    zero = st.number(";;;")
+    for label in ("lowest fitted", "highest fitted"):
+        cells.text(r, 0, f"{label} value")
+        cells.formula(r, 1, "=" + pick(label), st.number(ex.formats.get("fitted", "General")), chosen[label])
+        cells.number(r, 2, 0.0, zero)       # the residual chart's zero line runs through these cells
+        r += 1
+    zero_row = r - 2
+
+    r += 1
+    cells.text(r, 0, "term", st.header)
+    for c, name in enumerate(COEF, start=1):
+        cells.text(r, c, name, st.header)
+    for t in ex.terms:
+        r += 1
+        cells.text(r, 0, t)
+        for c, name in enumerate(COEF, start=1):
+            v = chosen[f"{name}: {t}"]
+            cells.formula(r, c, "=" + pick(f"{name}: {t}"), st.number(ex.formats[name]),
+                          "" if pd.isna(v) else float(v))
+    r += 2
+    cells.formula(r, 0, f'=IF(ISNA({pos}),"","charts and rows of "&{ref(None, 3, 1)})', st.section,
+                  f"charts and rows of {ex.labels[g]}")
+    chart_row = r + 1
+    block_top = r + 2 + math.ceil(CHART_H / 20) + 2
+
+    head = block_headers(ex)
+    for c, h in enumerate(head):
+        cells.text(block_top - 1, c, h, st.header)
+    d0 = data_header(ex) + 1
+    d1 = d0 + max(len(ex.rows), 1) - 1
+    m = len(ex.sources)
+    chart_cols = {0, m, m + 1, m + 2}
+    fmts = [st.number(ex.formats[h]) for h in head[:-1]] + [st.number("0")]
+    cached = ex.rows.iloc[int(chosen["first row"]) - 1:int(chosen["first row"]) - 1 + int(chosen["rows"])]
+    for k in range(1, ex.block + 1):
+        rr = block_top + k - 1
+        for c, h in enumerate(head):
+            d = list(ex.rows.columns).index(h)
+            rng = area(data, d0, d, d1, d)
+            empty = "NA()" if c in chart_cols else '""'
+            value: Any = cached.iloc[k - 1][h] if k <= len(cached) else ("#N/A" if c in chart_cols else "")
+            if isinstance(value, float) and math.isnan(value):
+                value = ""
+            cells.formula(rr, c, f"=IF({k}<={cnt},INDEX({rng},{first}+{k - 1}),{empty})", fmts[c], value)
+    return Spots(zero_row, chart_row, block_top)
+
+
+def _text(name: str) -> str:
+    """A chart title or axis name as plain text: a leading '=' would make it a cell reference."""
+    return " " + name if name.startswith("=") else name
+
+
+def _charts(ctx: WriteContext, ws: Any, ex: Explorer, spots: Spots) -> None:
+    m = len(ex.sources)
+    block_top = spots.block_top
+    last = block_top + ex.block - 1
+    sheet = ws.name
+    x_col, y_col, f_col, r_col = 0, m, m + 1, m + 2
+
+    def col(c: int) -> list:
+        return [sheet, block_top, c, last, c]
+
+    one = m == 1
+    fit = ctx.workbook.add_chart({"type": "scatter"})
+    fit.set_title(S.chart_title(_text(f"{ex.y} against {ex.sources[0]}")))
+    fit.add_series({**S.point_series("observations"), "categories": col(x_col), "values": col(y_col)})
+    fitted = (S.line_series("fitted") if one else
+              {"name": "fitted values", "line": {"none": True},
+               "marker": {"type": "x", "size": 6, "border": {"color": S.FITTED, "width": 1.25}}})
+    fit.add_series({**fitted, "categories": col(x_col), "values": col(f_col)})
+    fit.set_x_axis(S.axis(_text(ex.sources[0])))
+    fit.set_y_axis(S.axis(_text(ex.y), **_floor(ex)))
+    fit.set_legend({"position": "bottom", "font": {"size": S.CHART_AXIS_SIZE - 1, "name": S.FONT}})
+    resid = ctx.workbook.add_chart({"type": "scatter"})
+    resid.set_title(S.chart_title("residuals against fitted values"))
+    resid.add_series({**S.point_series("residuals"), "categories": col(f_col), "values": col(r_col)})
+    z = spots.zero_row
+    resid.add_series({**S.line_series("zero", colour=S.REFERENCE, width=1.0),
+                      "categories": [sheet, z, 1, z + 1, 1], "values": [sheet, z, 2, z + 1, 2]})
+    resid.set_x_axis(S.axis("fitted"))
+    resid.set_y_axis(S.axis("residual"))
+    resid.set_legend({"none": True})
+    top = spots.chart_row
+    for k, chart in enumerate((fit, resid)):
+        chart.set_size({"width": CHART_W, "height": CHART_H})
+        chart.set_chartarea({"border": {"color": "#BFBFBF"}})
+        chart.show_na_as_empty_cell()
+        ws.insert_chart(top, 0, chart, {"x_offset": 4 + k * (CHART_W + 14), "y_offset": 4, "object_position": 3})

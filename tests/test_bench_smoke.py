@@ -1,0 +1,24 @@
+"""The benchmark script runs end to end at its smallest size (a smoke test; no timing is asserted)."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+BENCH = Path(__file__).resolve().parents[1] / "bench" / "run.py"
+
+
+def test_bench_smoke_prints_phase_table(tmp_path: Path) -> None:
+    p = subprocess.run([sys.executable, str(BENCH), "--smoke", "--dir", str(tmp_path)],
+                       capture_output=True, text=True, timeout=240, stdin=subprocess.DEVNULL)
+    assert p.returncode == 0, p.stdout[-2000:] + p.stderr[-2000:]
+    out = p.stdout
+    assert "| way | read s | fit+checks s | write s |" in out
+    for row in ("| hand-written (pandas + statsmodels)", "| sheetfit CLI |", "| I/O floor"):
+        assert row in out
+    assert "hand-written / sheetfit end to end" in out and "statsmodels loop / sheetfit fit+checks" in out
+    assert "- error:" not in out
+    # statsmodels is the oracle: the batched engine's estimates and std errors match its per-group OLS
+    diff = float(out.split("loop vs sheetfit: ")[1].split()[0])
+    assert diff < 1e-9

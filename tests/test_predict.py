@@ -1,0 +1,199 @@
+"""Predictions from stored models: `sheetfit.predict` and `predict_workbook`.
+
+Oracle: statsmodels OLS `get_prediction(exog).summary_frame(alpha)` fitted on the same rows
+(mean, mean_se, mean_ci_lower/upper, obs_ci_lower/upper).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+import sheetfit
+from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
+from sheetfit.pipeline import fit_frame
+from sheetfit.prediction import predict_workbook
+from sheetfit.store import RESULT_COLUMNS, read_store, store_from_results
+from sheetfit.report import write_results
+
+ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
+          "mean CI high": "mean_ci_upper", "prediction low": "obs_ci_lower", "prediction high": "obs_ci_upper"}
+X_TERMS = ["x", "x^2", "log(z)"]
+
+
+def frame(seed: int = 3) -> pd.DataFrame:
+    """Three groups of different sizes; y curves in x and grows with log(z)."""
+    rng = np.random.default_rng(seed)
+    parts = []
+    for g, n, c in (("A", 30, 1.0), ("B", 45, -0.5), ("C", 22, 2.0)):
+        x = rng.uniform(1, 10, n)
+        z = rng.uniform(0.5, 20, n)
+        y = 5 + c * x - 0.3 * x**2 + 2.5 * np.log(z) + rng.normal(0, 1.5, n)
+        parts.append(pd.DataFrame({"g": g, "x": x, "z": z, "y": y}))
+    return pd.concat(parts, ignore_index=True)
+
+
+def oracle(data: pd.DataFrame, group: str, new: pd.DataFrame, level: float) -> pd.DataFrame:
+    d = data[data["g"] == group]
+    design = lambda f: np.column_stack([np.ones(len(f)), f["x"], f["x"] ** 2, np.log(f["z"])])  # noqa: E731
+    fit = sm.OLS(d["y"].to_numpy(), design(d)).fit()
+    return fit.get_prediction(design(new)).summary_frame(alpha=1 - level)
+
+
+def assert_matches(pred: pd.DataFrame, expected: pd.DataFrame, rtol: float = 1e-9) -> None:
+    for ours, theirs in ORACLE.items():
+        np.testing.assert_allclose(pred[ours].to_numpy(np.float64), expected[theirs].to_numpy(), rtol=rtol,
+                                   err_msg=ours)
+
+
+@pytest.fixture(scope="module")
+def data() -> pd.DataFrame:
+    return frame()
+
+
+@pytest.fixture(scope="module")
+def results(data):
+    return fit_frame(data, y="y", x=X_TERMS, group="g")
+
+
+NEW = pd.DataFrame({"x": [1.5, 5.0, 9.9, 12.0, 0.2], "z": [0.7, 3.0, 19.0, 25.0, 1.0]})
+
+
+@pytest.mark.parametrize("group", ["A", "B", "C"])
+def test_predict_matches_statsmodels_get_prediction(results, data, group):
+    new = NEW.assign(g=group)
+    pred = sheetfit.predict(results, new)
+    assert list(pred.columns) == ["g", "x", "z", *RESULT_COLUMNS]
+    assert (pred["reason"] == "").all()
+    assert_matches(pred, oracle(data, group, new, 0.95))
+
+
+def test_level_follows_the_fit(data):
+    res = fit_frame(data, y="y", x=X_TERMS, group="g", level=0.9)
+    new = NEW.assign(g="B")
+    assert_matches(sheetfit.predict(res, new), oracle(data, "B", new, 0.9))
+
+
+def test_model_store_round_trip_from_the_results_workbook(results, data, tmp_path):
+    path = write_results(results, tmp_path / "fit.xlsx")
+    store = read_store(path)
+    direct = store_from_results(results)
+    assert store.labels == direct.labels == ("A", "B", "C")
+    assert store.group_columns == ("g",) and store.y == "y" and store.intercept and store.level == 0.95
+    assert [t.label for t in store.terms] == X_TERMS
+    np.testing.assert_allclose(store.beta, direct.beta, rtol=1e-14)
+    np.testing.assert_allclose(store.xtx_inv, direct.xtx_inv, rtol=1e-14)
+    np.testing.assert_array_equal(store.df, [30 - 4, 45 - 4, 22 - 4])
+    new = pd.concat([NEW.assign(g=g) for g in "ABC"], ignore_index=True)
+    from_file = sheetfit.predict(path, new)
+    for g in "ABC":
+        rows = from_file["g"] == g
+        assert_matches(from_file[rows], oracle(data, g, new[rows], 0.95))
+
+
+def test_extrapolation_names_the_input_outside_the_range(results, data):
+    d = data[data["g"] == "A"]
+    new = pd.DataFrame({"g": ["A", "A", "A"], "x": [d["x"].mean(), d["x"].max() + 1, d["x"].min() - 0.5],
+                        "z": [d["z"].mean(), d["z"].mean(), d["z"].max() * 2]})
+    ext = sheetfit.predict(results, new)["extrapolation"].tolist()
+    assert ext[0] == "no"
+    assert ext[1].startswith("yes: x above the observed range")
+    assert "x below the observed range" in ext[2] and "z above the observed range" in ext[2]
+
+
+def test_rows_that_cannot_be_predicted_keep_a_reason(results):
+    new = pd.DataFrame({"g": ["A", "Q", "B", "C", "A", "B"],
+                        "x": [2.0, 2.0, None, "abc", "3.5", 4.0],
+                        "z": [1.0, 1.0, 1.0, 1.0, 2.0, -1.0]})
+    pred = sheetfit.predict(results, new)
+    why = pred["reason"].tolist()
+    assert why[0] == "" and np.isfinite(pred["predicted"][0])
+    assert 'no fitted model for group "Q"' in why[1]
+    assert why[2] == "x: empty cell"
+    assert why[3] == 'x: text "abc" is not a number'
+    assert why[4] == ""                              # numbers stored as text are read as numbers
+    assert why[5] == "z is zero or negative, so log(z) is undefined"
+    assert pred["predicted"][1:4].isna().all() and pred["predicted"][5:].isna().all()
+    assert pred["extrapolation"][1:4].eq("").all()
+
+
+def test_missing_columns_are_reasons_not_crashes(results):
+    pred = sheetfit.predict(results, pd.DataFrame({"x": [2.0], "Z": [1.0]}))
+    assert pred["reason"][0] == 'no group column "g" in the new rows; no input column "z" in the new rows'
+    assert pred["predicted"].isna().all()
+
+
+def test_numeric_group_keys_match_their_text_labels():
+    rng = np.random.default_rng(11)
+    df = pd.DataFrame({"site": np.repeat([101, 202], 15), "x": rng.uniform(0, 5, 30)})
+    df["y"] = 1 + 2 * df["x"] + rng.normal(0, 0.2, 30)
+    res = fit_frame(df, y="y", x="x", group="site")
+    pred = sheetfit.predict(res, pd.DataFrame({"site": [202, 202.0, "101"], "x": [1.0, 1.0, 1.0]}))
+    assert (pred["reason"] == "").all()
+
+
+def test_model_without_groups():
+    rng = np.random.default_rng(5)
+    df = pd.DataFrame({"x": rng.uniform(0, 5, 25)})
+    df["y"] = 3 - df["x"] + rng.normal(0, 0.3, 25)
+    res = fit_frame(df, y="y", x="x")
+    new = pd.DataFrame({"x": [0.5, 2.0, 6.0]})
+    pred = sheetfit.predict(res, new)
+    fit = sm.OLS(df["y"], sm.add_constant(df["x"])).fit()
+    expected = fit.get_prediction(sm.add_constant(new["x"], has_constant="add")).summary_frame(alpha=0.05)
+    assert_matches(pred, expected)
+
+
+def write_new_rows(path, rows: list[list], header=("g", "note", "x", "z")) -> None:
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.title = "new"
+    ws.append(list(header))
+    for r in rows:
+        ws.append(r)
+    wb.save(path)
+
+
+def test_predict_workbook_end_to_end(results, data, tmp_path):
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["A", "first", 2.0, 5.0], ["B", "second", "7.5", 1.5], [None, None, None, None],
+                              ["X", "unknown", 2.0, 5.0], ["C", "empty x", None, 3.0], ["C", "far", 15.0, 3.0]])
+    out = predict_workbook(fit_path, new_path, "new", None, False)
+    assert out == new_path.with_name("new-predicted.xlsx")
+    wb = openpyxl.load_workbook(out, read_only=True)
+    rows = list(wb["predictions"].iter_rows(values_only=True))
+    head = list(rows[0])
+    assert head == ["source row", "g", "note", "x", "z", *RESULT_COLUMNS]
+    body = [dict(zip(head, r)) for r in rows[1:]]
+    assert [b["source row"] for b in body] == [2, 3, 5, 6, 7]       # the blank row 4 is skipped
+    assert [b["reason"] or "" for b in body][:2] == ["", ""]
+    assert 'no fitted model for group "X"' in body[2]["reason"]
+    assert body[3]["reason"] == "x: empty cell"
+    assert body[4]["extrapolation"].startswith("yes: x above the observed range")
+    for b, g, x, z in ((body[0], "A", 2.0, 5.0), (body[1], "B", 7.5, 1.5), (body[4], "C", 15.0, 3.0)):
+        expected = oracle(data, g, pd.DataFrame({"x": [x], "z": [z]}), 0.95).iloc[0]
+        for ours, theirs in ORACLE.items():
+            assert b[ours] == pytest.approx(expected[theirs], rel=1e-9)
+    wb.close()
+
+
+def test_predict_workbook_refuses_what_it_should(results, tmp_path):
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["A", "", 2.0, 5.0]])
+    out = predict_workbook(fit_path, new_path, None, tmp_path / "p.xlsx", False)
+    with pytest.raises(sheetfit.errors.OutputError, match="already exists"):
+        predict_workbook(fit_path, new_path, None, out, False)
+    assert predict_workbook(fit_path, new_path, None, out, True) == out.resolve()
+    with pytest.raises(SheetNotFoundError, match='sheet "nope" not found'):
+        predict_workbook(fit_path, new_path, "nope", tmp_path / "q.xlsx", False)
+    with pytest.raises(ResultsWorkbookError, match='no "model store" sheet'):
+        predict_workbook(new_path, new_path, None, tmp_path / "r.xlsx", False)
+    with pytest.raises(sheetfit.errors.OutputError, match="is the input"):
+        predict_workbook(fit_path, new_path, None, new_path, True)
+    with pytest.raises(sheetfit.errors.OutputError, match="is the results workbook"):
+        predict_workbook(fit_path, new_path, None, fit_path, True)
