@@ -6,6 +6,7 @@ import hashlib
 import os
 import platform
 import sys
+import threading
 import time
 from collections.abc import Sequence
 from pathlib import Path
@@ -23,20 +24,52 @@ from .terms import parse_terms, source_columns
 
 
 class Progress:
-    """Stage messages with elapsed time on stderr, only when asked and stderr is a terminal."""
+    """A one-line progress display on stderr: stage, elapsed time and a moving bar.
 
-    def __init__(self, enabled: bool):
+    Only when asked and stderr is a terminal, and only once the run has taken more than
+    `delay` seconds, so quick runs print nothing.
+    """
+
+    STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
+
+    def __init__(self, enabled: bool, delay: float = 2.0):
         self.enabled = enabled and sys.stderr.isatty()
         self.t0 = time.perf_counter()
+        self.delay = delay
+        self.current = ""
+        self.shown = False
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+        if self.enabled:
+            self._thread = threading.Thread(target=self._tick, daemon=True)
+            self._thread.start()
+
+    def _line(self) -> str:
+        step = (len(self.STAGES) if self.current == "done" else
+                self.STAGES.index(self.current) + 1 if self.current in self.STAGES else 0)
+        width = 20
+        done = round(width * step / len(self.STAGES))
+        bar = "#" * done + "-" * (width - done)
+        return f"\r[{bar}] {self.current:<18} {time.perf_counter() - self.t0:6.1f} s"
+
+    def _tick(self) -> None:
+        while not self._stop.wait(0.5):
+            if time.perf_counter() - self.t0 >= self.delay and self.current:
+                sys.stderr.write(self._line())
+                sys.stderr.flush()
+                self.shown = True
 
     def stage(self, text: str) -> None:
-        if self.enabled:
-            sys.stderr.write(f"\r[{time.perf_counter() - self.t0:6.1f} s] {text:<40}")
-            sys.stderr.flush()
+        self.current = text
 
     def done(self) -> None:
-        if self.enabled:
-            sys.stderr.write("\n")
+        if self._thread is not None:
+            self._stop.set()
+            self._thread.join()
+            if self.shown:
+                self.current = "done"
+                sys.stderr.write(self._line() + "\n")
+                sys.stderr.flush()
 
 
 def sha256_of(path: Path) -> str:
@@ -331,13 +364,15 @@ def run_job(job: FitJob, progress: bool = False) -> tuple[FitResults, Path]:
     out = job.output_path
     check_output_path(Path(job.workbook), out, job.overwrite)
     bar = Progress(progress)
-    results = fit_job(job, bar)
-    after = sha256_of(Path(job.workbook))
-    results = _with_about(results, [("input SHA-256 after", after)])
-    bar.stage("writing")
-    t0 = time.perf_counter()
-    path = write_results(results, out, overwrite=job.overwrite)
-    bar.done()
+    try:
+        results = fit_job(job, bar)
+        after = sha256_of(Path(job.workbook))
+        results = _with_about(results, [("input SHA-256 after", after)])
+        bar.stage("writing")
+        t0 = time.perf_counter()
+        path = write_results(results, out, overwrite=job.overwrite)
+    finally:
+        bar.done()
     if os.environ.get("SHEETFIT_TIMINGS"):
         times = dict(results.about)
         sys.stderr.write(f"timings: read {times['time to read (s)']:.2f} s, fit+checks "
