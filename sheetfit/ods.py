@@ -8,10 +8,9 @@ from __future__ import annotations
 import zipfile
 from pathlib import Path
 
-from .cells import NO_RESULT, ErrorCell
 from .errors import NotAWorkbookError
 from .sources import Book, Grid
-from .xlsx import SheetMarks, _calamine_call, _version
+from .xlsx import SheetMarks, _calamine_call, _version, marked_grid
 
 _T = "{urn:oasis:names:tc:opendocument:xmlns:table:1.0}"
 _O = "{urn:oasis:names:tc:opendocument:xmlns:office:1.0}"
@@ -130,16 +129,7 @@ class OdsBook(Book):
         except Exception as exc:  # zlib, zip, XML or defusedxml errors all mean a damaged file
             raise NotAWorkbookError(f'"{self.path.name}" is damaged and cannot be read ({exc}); open it in a '
                                     f'spreadsheet application and save it again') from None
-        grid = Grid(sheet, rows, top=start[0] + 1, left=start[1], merged=merged,
-                    hidden_rows=frozenset(marks.hidden_rows), hidden_cols=frozenset(marks.hidden_cols),
-                    rectangular=True)
-        for (r, c), code in marks.errors.items():
-            grid.put(r, c, ErrorCell(code))
-        for r, c in marks.no_result:
-            grid.put(r, c, NO_RESULT)
-        grid.no_result = sorted(marks.no_result)
-        grid.square()
-        return grid
+        return marked_grid(sheet, rows, start, merged, marks)
 
     def close(self) -> None:
         self._zip.close()

@@ -204,16 +204,7 @@ class XlsxBook(Book):
             start = ws.start or (0, 0)
             merged = [(r1 + 1, c1, r2 + 1, c2) for (r1, c1), (r2, c2) in (ws.merged_cell_ranges or [])]
             marks = _scan_result(scan, self.path.name) if scan else SheetMarks()
-        grid = Grid(sheet, rows, top=start[0] + 1, left=start[1], merged=merged,
-                    hidden_rows=frozenset(marks.hidden_rows), hidden_cols=frozenset(marks.hidden_cols),
-                    rectangular=True)
-        for (r, c), code in marks.errors.items():
-            grid.put(r, c, ErrorCell(code))
-        for r, c in marks.no_result:
-            grid.put(r, c, NO_RESULT)
-        grid.no_result = sorted(marks.no_result)
-        grid.square()
-        return grid
+        return marked_grid(sheet, rows, start, merged, marks)
 
     def region_names(self) -> list[str]:
         return self._table_names() + [n for n in self._names if not n.startswith("_xlnm.")]
@@ -279,6 +270,20 @@ def _version(dist: str) -> str:
         return version(dist)
     except PackageNotFoundError:
         return "?"
+
+
+def marked_grid(sheet: str, rows: list, start: tuple[int, int], merged: list, marks: SheetMarks) -> Grid:
+    """A calamine grid with the error cells and formulas without results that calamine reads as blanks."""
+    grid = Grid(sheet, rows, top=start[0] + 1, left=start[1], merged=merged,
+                hidden_rows=frozenset(marks.hidden_rows), hidden_cols=frozenset(marks.hidden_cols),
+                rectangular=True)
+    for (r, c), code in marks.errors.items():
+        grid.put(r, c, ErrorCell(code))
+    for r, c in marks.no_result:
+        grid.put(r, c, NO_RESULT)
+    grid.no_result = sorted(marks.no_result)
+    grid.square()
+    return grid
 
 
 def _calamine_call(fn, name: str):
