@@ -158,8 +158,7 @@ def fit_observations(obs: Observations, job: FitJob, progress: Progress | None =
         "high-leverage rows": np.bincount(codes, weights=hl["high leverage"], minlength=G),
         "outlying rows": np.bincount(codes, weights=hl["outlying"], minlength=G),
         "influential rows": np.bincount(codes, weights=hl["influential"], minlength=G),
-        "condition number": collinearity.condition_number(fit)
-        if fit.p - (1 if job.intercept else 0) >= 2 else np.full(G, np.nan),
+        "condition number": next(r.statistic for r in results if r.key == "condition"),
     }
     dropped = np.bincount(codes_all, weights=~usable, minlength=G).astype(int)
     groups = assemble.groups_table(keys, fit, inf, n_flags, reasons, dropped, group_extra)
