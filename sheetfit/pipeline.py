@@ -296,7 +296,7 @@ def _about(job: FitJob, info: ReadInfo, groups: pd.DataFrame, observations: pd.D
         ("region", info.region), ("header row", info.header_row),
         ("rows read", info.rows_read), ("rows used", used), ("rows not used", info.rows_read - used),
         ("hidden rows (used)", info.hidden_rows), ("hidden columns (used)", info.hidden_columns),
-        ("date/time inputs", ", ".join(info.date_columns) + " (as days since the group's earliest date)"
+        ("date/time columns", ", ".join(info.date_columns) + " (as days since the group's earliest date)"
          if info.date_columns else "(none)"),
         ("groups", len(groups)), ("groups fitted", int(fit.fitted_ok.sum())),
         ("groups not fitted", int((~fit.fitted_ok).sum())),
