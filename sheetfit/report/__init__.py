@@ -78,9 +78,25 @@ def write_results(results: "FitResults", path: Path | None = None, overwrite: bo
                 raise OutputError(f'could not write "{target.name}": {exc}; choose another --out') from None
             finally:
                 _release(wb)
+            if ctx.bulk:                  # large tables: their rows go in while the archive is copied
+                _splice(tmp, Path(scratch) / "shell.xlsx", ctx.bulk, target)
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
     return target
+
+
+def _splice(tmp: Path, shell: Path, bulk: list, target: Path) -> None:
+    """Move xlsxwriter's workbook aside and rebuild it at `tmp` with the bulk rows inserted."""
+    from .fastrows import splice
+    shutil.move(str(tmp), str(shell))
+    try:
+        with open(tmp, "xb") as fh:
+            splice(shell, fh, bulk)
+    except OSError as exc:
+        raise OutputError(f'could not write "{target.name}" ({exc.strerror or exc}); '
+                          "choose another --out") from None
+    finally:
+        shell.unlink(missing_ok=True)
 
 
 def _release(wb) -> None:

@@ -70,6 +70,7 @@ class WriteContext:
     names: SheetNames = field(default_factory=SheetNames)
     notes: list[tuple[str, str]] = field(default_factory=list)
     sheets: dict[str, Any] = field(default_factory=dict)
+    bulk: list[Any] = field(default_factory=list)    # fastrows.BulkRows spliced in after close
     _data_sheets: list[tuple[str, Callable[[Any], None], bool]] = field(default_factory=list)
     _at_end: list[Callable[[], None]] = field(default_factory=list)
 
@@ -85,6 +86,12 @@ class WriteContext:
         name = self.names.add(label)
         self._data_sheets.append((name, fill, hidden))
         return name
+
+    def add_bulk(self, ws: Any, first_row: int, columns: list[tuple[int, Any, Any]]) -> None:
+        """Rows from `first_row` of `ws` written in bulk after close (see fastrows.bulk_rows); write no
+        other cell in those rows."""
+        from .fastrows import bulk_rows
+        self.bulk.append(bulk_rows(ws.name, first_row, columns))
 
     def at_end(self, callback: Callable[[], None]) -> None:
         self._at_end.append(callback)

@@ -131,6 +131,10 @@ class Column:
         typical = float(np.percentile(lengths, 95)) if lengths.size else 0.0
         self.width = min(max(len(self.header) + 3, typical + 2, 8), 60)
 
+    def values(self, lo: int, hi: int) -> np.ndarray:
+        """Rows lo..hi-1 as an array: int or float (non-finite = empty cell) or object (None = empty)."""
+        return self._array[lo:hi]
+
     def block(self, lo: int, hi: int) -> list:
         """Cell values of rows lo..hi-1: numbers, strings, or None for an empty cell."""
         values = self._array[lo:hi].tolist()

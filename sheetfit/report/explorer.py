@@ -17,6 +17,7 @@ import pandas as pd
 
 from ..store import group_codes, unique_labels
 from ..terms import source_columns
+from . import fastrows
 from . import styles as S
 from .book import WriteContext
 from .columns import P_VALUE_FORMAT, SCIENTIFIC, number_format
@@ -131,7 +132,23 @@ def _cell(v: Any) -> Any:
     return str(v)
 
 
-def fill_data(ws: Any, ex: Explorer, st: Any) -> None:
+def _bulk_values(series: pd.Series) -> np.ndarray:
+    """A column as `_cell` would write it, for the bulk path: numbers as floats, the rest as text."""
+    if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
+        return series.to_numpy(dtype=np.float64, na_value=np.nan)
+    return np.array([_cell(v) for v in series.tolist()], dtype=object)
+
+
+def _rows(ws: Any, first: int, df: pd.DataFrame, bulk: Any) -> None:
+    if bulk is not None and fastrows.use_fast(len(df), len(df.columns)):
+        bulk(ws, first, [(j, _bulk_values(df[c]), None) for j, c in enumerate(df.columns)])
+        return
+    for r, row in enumerate(df.itertuples(index=False), start=first):
+        ws.write_row(r, 0, [_cell(v) for v in row])
+
+
+def fill_data(ws: Any, ex: Explorer, st: Any, bulk: Any = None) -> None:
+    """Write the data sheet; `bulk` (WriteContext.add_bulk) lets large blocks take the fast path."""
     ws.set_column(0, 0, 24)
     ws.set_column(1, max(len(ex.index.columns), len(ex.rows.columns)), 14)
     ws.set_landscape()
@@ -139,12 +156,10 @@ def fill_data(ws: Any, ex: Explorer, st: Any) -> None:
     ws.write_string(0, 0, "Rows behind the 'explorer' sheet: an index of each group's first row and row count, "
                           "then every group's rows, sorted by group. Do not sort, insert or delete rows.", st.note)
     ws.write_row(2, 0, list(ex.index.columns), st.header)
-    for r, row in enumerate(ex.index.itertuples(index=False), start=3):
-        ws.write_row(r, 0, [_cell(v) for v in row])
+    _rows(ws, 3, ex.index, bulk)
     h = data_header(ex)
     ws.write_row(h, 0, list(ex.rows.columns), st.header)
-    for r, row in enumerate(ex.rows.itertuples(index=False), start=h + 1):
-        ws.write_row(r, 0, [_cell(v) for v in row])
+    _rows(ws, h + 1, ex.rows, bulk)
 
 
 def block_headers(ex: Explorer) -> list[str]:
@@ -186,7 +201,7 @@ def explorer_sheet(ctx: WriteContext, group: str | None = None, cache: bool = Tr
         ws.set_column(0, 0, 100)
         ws.write_string(0, 0, "No group explorer: no group could be fitted (see the groups sheet).", st.title)
         return
-    data = ctx.reserve_data_sheet("explorer data", lambda sheet: fill_data(sheet, ex, st))
+    data = ctx.reserve_data_sheet("explorer data", lambda sheet: fill_data(sheet, ex, st, ctx.add_bulk))
     g = ex.labels.index(group) if group is not None else 0
     cells = Cells(cache)
     spots = _layout(ctx, cells, ex, data, g)

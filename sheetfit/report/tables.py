@@ -2,6 +2,7 @@
 
 Each is written row by row (constant_memory), with column formats, autofilter, a frozen header
 and conditional-formatting rules from the shared palette. Long tables continue on further sheets.
+Large tables hand their data rows to the bulk path (fastrows), which inserts the same cells after close.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ import pandas as pd
 
 from ..results import REASON, SOURCE_ROW, SOURCE_SHEET
 from ..terms import source_columns
+from . import fastrows
 from .book import WriteContext
 from .columns import Column, column_letter
 
@@ -76,21 +78,25 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
     # a text column right after a number column starts one space in, so the two do not touch
     indent = [col.kind != "number" and j > 0 and columns[j - 1].kind == "number"
               for j, col in enumerate(columns)]
-    widths = []
+    widths, formats = [], []
     for j, col in enumerate(columns):
         width = WIDE_TEXT.get(col.header, col.width) if col.kind == "text" else col.width
         widths.append(width)
         fmt = st.number(col.num_format) if col.num_format else (st.text_cell if indent[j] else None)
+        formats.append(fmt)
         ws.set_column(j, j, width, fmt)
         head = st.header_number if col.kind == "number" else (st.header_text if indent[j] else st.header)
         ws.write_string(0, j, col.header, head)
-    write_row = ws.write_row
-    r = 1
-    for start in range(lo, hi, BLOCK_ROWS):
-        stop = min(hi, start + BLOCK_ROWS)
-        for row in zip(*(c.block(start, stop) for c in columns)):
-            write_row(r, 0, row)
-            r += 1
+    if fastrows.use_fast(hi - lo, len(columns)):     # same cells, XML built in bulk after the workbook closes
+        ctx.add_bulk(ws, 1, [(j, c.values(lo, hi), formats[j]) for j, c in enumerate(columns)])
+    else:
+        write_row = ws.write_row
+        r = 1
+        for start in range(lo, hi, BLOCK_ROWS):
+            stop = min(hi, start + BLOCK_ROWS)
+            for row in zip(*(c.block(start, stop) for c in columns)):
+                write_row(r, 0, row)
+                r += 1
     last_row, last_col = max(hi - lo, 0), len(columns) - 1
     ws.autofilter(0, 0, last_row, last_col)
     ws.freeze_panes(1, freeze_columns)
