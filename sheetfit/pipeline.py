@@ -150,9 +150,17 @@ def fit_observations(obs: Observations, job: FitJob, progress: Progress | None =
     dep = np.zeros(G, bool)
     het[failed.loc[failed["check"].str.startswith("constant variance"), "_code"].to_numpy()] = True
     dep[failed.loc[failed["check"].str.startswith("independent residuals"), "_code"].to_numpy()] = True
+    covs = _robust_covariances(fit, thr)
+    if thr.inference == "robust" and (het | dep).any():
+        # The model F-test becomes a Wald test with the robust covariance where it applies.
+        cov = np.where(dep[:, None, None], covs["hac"], covs["hc"])
+        f_rob, p_rob = robust.wald_f(fit, cov)
+        use = het | dep
+        results[0] = checks.model_f_test(fit, np.where(use, f_rob, inf["f"]), np.where(use, p_rob, inf["f_p"]))
+        check_table, n_flags, reasons = flags.verdicts(results, fit.fitted_ok, thr)
     check_table = assemble.with_keys(keys, check_table.pop("_code").to_numpy(), check_table.to_dict("series"))
 
-    coef_extra, inf = _robust_columns(fit, inf, het, dep, job, vifs)
+    coef_extra, inf = _robust_columns(fit, inf, het, dep, job, vifs, covs)
     hl = influence.row_highlights(fit, codes, thr)
     group_extra = {
         "high-leverage rows": np.bincount(codes, weights=hl["high leverage"], minlength=G),
@@ -179,7 +187,14 @@ def fit_observations(obs: Observations, job: FitJob, progress: Progress | None =
     )
 
 
-def _robust_columns(fit, inf: dict, het: np.ndarray, dep: np.ndarray, job: FitJob, vifs: np.ndarray):
+def _robust_covariances(fit, thr) -> dict[str, np.ndarray]:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        hac, lag = robust.hac_cov(fit, thr.hac_lags)
+        return {"hc": robust.hc_cov(fit, thr.robust), "hac": hac, "lag": lag}
+
+
+def _robust_columns(fit, inf: dict, het: np.ndarray, dep: np.ndarray, job: FitJob, vifs: np.ndarray,
+                    covs: dict[str, np.ndarray]):
     """Extra coefficient columns: VIF, robust (HC) std errors where variance is not constant,
     Newey–West std errors where residuals are not independent; --inference robust swaps them in."""
     from scipy import stats
@@ -190,10 +205,9 @@ def _robust_columns(fit, inf: dict, het: np.ndarray, dep: np.ndarray, job: FitJo
         extra["VIF"] = vifs
     df = fit.df_resid[:, None]
     with np.errstate(invalid="ignore", divide="ignore"):
-        hc = robust.hc_cov(fit, thr.robust)
-        hc_se = np.sqrt(np.diagonal(hc, axis1=1, axis2=2))
-        hac, lag = robust.hac_cov(fit, thr.hac_lags)
-        hac_se = np.sqrt(np.diagonal(hac, axis1=1, axis2=2))
+        hc_se = np.sqrt(np.diagonal(covs["hc"], axis1=1, axis2=2))
+        hac_se = np.sqrt(np.diagonal(covs["hac"], axis1=1, axis2=2))
+        lag = covs["lag"]
         kind = thr.robust.upper()
         extra[f"robust std error ({kind})"] = np.where(het[:, None], hc_se, np.nan)
         extra[f"robust p-value ({kind})"] = np.where(het[:, None], 2 * stats.t.sf(np.abs(fit.beta / hc_se), df), np.nan)
@@ -208,8 +222,8 @@ def _robust_columns(fit, inf: dict, het: np.ndarray, dep: np.ndarray, job: FitJo
             q = inf["t_quantile"][:, None]
             inf = dict(inf, t=t, p=2 * stats.t.sf(np.abs(t), df), ci_low=fit.beta - q * se,
                        ci_high=fit.beta + q * se)
-            extra["std error used"] = np.where(use_hac[:, None], "Newey–West (HAC)",
-                                               np.where(use_hc[:, None], kind, "classic"))
+            used = np.where(use_hac, "Newey–West (HAC)", np.where(use_hc, kind, "classic"))
+            extra["std error used"] = np.repeat(used[:, None], fit.p, axis=1)
     return extra, inf
 
 

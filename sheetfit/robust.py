@@ -52,3 +52,21 @@ def hac_cov(fit: EngineFit, lags: int | None) -> tuple[np.ndarray, np.ndarray]:
         out[b.groups] = b.A @ S @ np.swapaxes(b.A, 1, 2)
         lag_used[b.groups] = L
     return out, lag_used
+
+
+def wald_f(fit: EngineFit, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """F = b'V⁻¹b / q of all slopes (the intercept excluded) with covariance `cov`, and its p-value
+    from F(q, n − p)."""
+    from scipy import stats
+
+    off = 1 if fit.intercept else 0
+    q = fit.p - off
+    b = fit.beta[:, off:]
+    V = cov[:, off:, off:]
+    ok = np.isfinite(V).all(axis=(1, 2)) & np.isfinite(b).all(axis=1)
+    F = np.full(fit.n_groups, np.nan)
+    if ok.any():
+        sol = np.linalg.solve(V[ok], b[ok][..., None])[..., 0]
+        F[ok] = (b[ok] * sol).sum(axis=1) / q
+    with np.errstate(invalid="ignore"):
+        return F, stats.f.sf(F, q, fit.df_resid)

@@ -153,3 +153,18 @@ def test_checks_that_cannot_run_are_na_with_a_note():
     assert row["verdict"] == "n/a" and "distinct" in row["note"]
     assert (res.checks["verdict"].isin(["pass", "fail", "n/a"])).all()
     assert (res.checks.loc[res.checks["verdict"] == "n/a", "note"].str.len() > 0).all()
+
+
+def test_robust_inference_uses_robust_wald_f_and_intervals():
+    rng = np.random.default_rng(31)
+    n = 60
+    x = rng.uniform(0, 10, n)
+    frame = pd.DataFrame({"x": x, "y": 1 + 0.3 * x + rng.normal(size=n) * 0.05 * x**2})
+    res = sheetfit.fit_frame(frame, y="y", x=["x"], inference="robust", adjust="none")
+    assert (res.checks.loc[res.checks["check"].str.startswith("constant variance"), "verdict"] == "fail").any()
+    ref = sm.OLS(frame["y"], sm.add_constant(frame["x"])).fit(cov_type="HC3", use_t=True)   # statsmodels
+    f_row = res.checks[res.checks["check"] == "model F-test"].iloc[0]
+    assert_close(f_row["statistic"], np.squeeze(ref.fvalue), RTOL)
+    assert_close(f_row["p-value"], np.squeeze(ref.f_pvalue), 1e-7)
+    assert_close(res.coefficients["CI low"], np.asarray(ref.conf_int(0.05))[:, 0], RTOL)
+    assert (res.coefficients["std error used"] == "HC3").all()
