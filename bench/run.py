@@ -81,12 +81,34 @@ def _emit(**result) -> None:
     print(TAG + json.dumps(result), flush=True)
 
 
-def _handwritten_loop(df, xs: list[str], keys: list[str] | None, closed_form: bool):
+def _more_checks(res) -> tuple[dict, dict]:
+    """The rest of sheetfit's checks, the statsmodels/scipy way: per-group and per-coefficient extras."""
+    import numpy as np
+    from scipy.stats import shapiro
+    from statsmodels.stats.diagnostic import acorr_breusch_godfrey, het_white
+    from statsmodels.stats.outliers_influence import variance_inflation_factor
+
+    exog = res.model.exog
+    sw, sw_p = shapiro(res.resid)
+    w_lm, w_p, _, _ = het_white(res.resid, exog)
+    bg_lm, bg_p, _, _ = acorr_breusch_godfrey(res, nlags=1)
+    unit = exog / np.linalg.norm(exog, axis=0)
+    lag = int(np.floor(4 * (res.nobs / 100) ** (2 / 9)))
+    group = {"Shapiro–Wilk": sw, "SW p-value": sw_p, "White": w_lm, "White p-value": w_p,
+             "Breusch–Godfrey": bg_lm, "BG p-value": bg_p, "condition number": np.linalg.cond(unit)}
+    coef = {"VIF": [np.nan] + [variance_inflation_factor(exog, j) for j in range(1, exog.shape[1])],
+            "HC3 std error": np.asarray(res.HC3_se),
+            "HAC std error": res.get_robustcov_results(cov_type="HAC", maxlags=lag).bse}
+    return group, coef
+
+
+def _handwritten_loop(df, xs: list[str], keys: list[str] | None, closed_form: bool, all_checks: bool):
     """The per-group statsmodels loop an analyst would write; returns the three result tables."""
     import numpy as np
     import pandas as pd
     import statsmodels.api as sm
     from statsmodels.stats.diagnostic import het_breuschpagan, linear_reset
+    from statsmodels.stats.multitest import multipletests
     from statsmodels.stats.outliers_influence import OLSInfluence
     from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
@@ -108,16 +130,17 @@ def _handwritten_loop(df, xs: list[str], keys: list[str] | None, closed_form: bo
             stud = infl.get_resid_studentized_external(sigma=np.sqrt(s2))
         else:             # statsmodels' own attribute: refits the group once per row
             stud = infl.resid_studentized_external
+        more_group, more_coef = _more_checks(res) if all_checks else ({}, {})
         ci = res.conf_int()
         coef_rows.append(pd.DataFrame({"g": key, "term": res.params.index, "estimate": res.params.values,
                                        "std error": res.bse.values, "t": res.tvalues.values,
                                        "p-value": res.pvalues.values, "CI low": ci[0].values,
-                                       "CI high": ci[1].values}))
+                                       "CI high": ci[1].values, **more_coef}))
         metric_rows.append({"g": key, "n": int(res.nobs), "R²": res.rsquared, "adjusted R²": res.rsquared_adj,
                             "F": res.fvalue, "F p-value": res.f_pvalue, "AIC": res.aic, "BIC": res.bic,
                             "Breusch–Pagan": bp_lm, "BP p-value": bp_p, "Jarque–Bera": jb, "JB p-value": jb_p,
                             "Durbin–Watson": dw, "RESET F": float(reset.fvalue),
-                            "RESET p-value": float(reset.pvalue)})
+                            "RESET p-value": float(reset.pvalue), **more_group})
         part = sub.copy()
         part["fitted"] = res.fittedvalues
         part["residual"] = res.resid
@@ -125,7 +148,11 @@ def _handwritten_loop(df, xs: list[str], keys: list[str] | None, closed_form: bo
         part["leverage"] = lev
         part["Cook's distance"] = cooks
         obs_parts.append(part)
-    return pd.concat(coef_rows, ignore_index=True), pd.DataFrame(metric_rows), pd.concat(obs_parts)
+    metrics = pd.DataFrame(metric_rows)
+    if all_checks:   # false-discovery-rate adjustment of each check's p-values across groups
+        for c in [c for c in metrics.columns if c.endswith("p-value") and c != "F p-value"]:
+            metrics[c.replace("p-value", "adjusted p-value")] = multipletests(metrics[c], method="fdr_bh")[1]
+    return pd.concat(coef_rows, ignore_index=True), metrics, pd.concat(obs_parts)
 
 
 def worker_handwritten(a: dict) -> None:
@@ -146,7 +173,7 @@ def worker_handwritten(a: dict) -> None:
         rng = np.random.default_rng(a["seed"])
         keys = list(np.sort(rng.choice(all_keys, a["baseline_groups"], replace=False)))
     t0 = time.perf_counter()
-    coef, metrics, obs = _handwritten_loop(df, xs, keys, a["closed_form"])
+    coef, metrics, obs = _handwritten_loop(df, xs, keys, a["closed_form"], a["all_checks"])
     t_fit = time.perf_counter() - t0
     t0 = time.perf_counter()
     with pd.ExcelWriter(a["out"]) as w:
@@ -285,7 +312,7 @@ def bench_size(size: str, folder: Path, opts: argparse.Namespace) -> dict:
     sf_out = folder / f"sheetfit-{size}.xlsx"
     base = {"file": str(file), "inputs": opts.inputs, "seed": opts.seed}
     hand_args = {**base, "out": str(folder / f"hand-{size}.xlsx"), "closed_form": not opts.loo_studentized,
-                 "baseline_groups": opts.baseline_groups}
+                 "baseline_groups": opts.baseline_groups, "all_checks": opts.all_checks}
     runs: dict[str, list[dict]] = {"sheetfit": [], "floor": [], "hand": []}
     for i in range(opts.repeat):
         print(f"  repeat {i + 1}/{opts.repeat}:", end="", flush=True)
@@ -300,7 +327,7 @@ def bench_size(size: str, folder: Path, opts: argparse.Namespace) -> dict:
             print(f" {name} {r['wall']:.1f} s" + (" (failed)" if "error" in r else ""), end="", flush=True)
         print(flush=True)
     return {"size": size, "rows": rows, "groups": groups, "inputs": opts.inputs, "file_mb": file.stat().st_size / 1e6,
-            "runs": runs}
+            "all_checks": opts.all_checks, "runs": runs}
 
 
 def summarise(res: dict) -> dict:
@@ -335,7 +362,7 @@ def report(res: dict, s: dict) -> list[str]:
              "| way | read s | fit+checks s | write s | start-up, hashing s | end to end s | CPU s (whole process) "
              "| peak memory MB |",
              "|---|---:|---:|---:|---:|---:|---:|---:|",
-             f"| hand-written (pandas + statsmodels){'*' if ex else ''} | {fmt(h['read'])} | {fmt(h['fit'])} | "
+             f"| hand-written (pandas + statsmodels{', all checks' if res['all_checks'] else ''}){'*' if ex else ''} | {fmt(h['read'])} | {fmt(h['fit'])} | "
              f"{fmt(h['write'])} | not counted | {fmt(h['total'])} | {fmt(h['cpu'])} | "
              f"{fmt(h['peak_handwritten_mb'], 0)} |",
              f"| sheetfit CLI | {fmt(sf['read'])} | {fmt(sf['fit'])} | {fmt(sf['write'])} | {fmt(sf['other'])} | "
@@ -383,6 +410,16 @@ def machine() -> list[str]:
             "(maximum resident set size of each child process)"]
 
 
+def help_time(repeat: int) -> float:
+    """Median wall time of `python -m sheetfit --help` (start-up of the command line)."""
+    times = []
+    for _ in range(max(repeat, 3)):
+        t0 = time.perf_counter()
+        subprocess.run([sys.executable, "-m", "sheetfit", "--help"], capture_output=True, stdin=subprocess.DEVNULL)
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
 def source_digest() -> str:
     """Short digest of sheetfit's source files, to tell which code a recorded run measured."""
     import hashlib
@@ -406,6 +443,9 @@ def main(argv: list[str] | None = None) -> int:
                     help="time the statsmodels loop on N sampled groups and scale linearly (labelled)")
     ap.add_argument("--loo-studentized", action="store_true",
                     help="hand-written way uses statsmodels' resid_studentized_external (refits each row)")
+    ap.add_argument("--all-checks", action="store_true",
+                    help="hand-written way also runs the rest of sheetfit's checks (Shapiro–Wilk, White, "
+                         "Breusch–Godfrey, VIF, condition number, HC3 and HAC std errors, BH adjustment)")
     ap.add_argument("--skip-handwritten", action="store_true", help="time only sheetfit and the I/O floor")
     ap.add_argument("--smoke", action="store_true", help="smallest size, one run, loop on 20 groups (CI)")
     ap.add_argument("--json", type=Path, help="also write all measurements to this JSON file")
@@ -427,6 +467,7 @@ def main(argv: list[str] | None = None) -> int:
     digest = source_digest()
     print("# sheetfit benchmark\n\n" + "\n".join(machine()) + f"\n- sheetfit source digest: {digest}", flush=True)
     print(f"- command: python bench/run.py {' '.join(argv if argv is not None else sys.argv[1:])}", flush=True)
+    print(f"- `python -m sheetfit --help`: {help_time(opts.repeat):.2f} s (median)", flush=True)
     failed = False
     all_results = []
     try:
