@@ -3,19 +3,13 @@ against statsmodels get_prediction (reference library)."""
 
 from __future__ import annotations
 
-import subprocess
-import sys
-
 import numpy as np
 import openpyxl
 import pandas as pd
 import statsmodels.api as sm
 import xlsxwriter
 
-
-def run(*args, cwd):
-    return subprocess.run([sys.executable, "-m", "sheetfit", *map(str, args)], cwd=cwd,
-                          capture_output=True, text=True, timeout=300)
+from tests.conftest import run_cli as run
 
 
 def test_fit_then_predict(tmp_path):
