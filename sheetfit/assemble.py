@@ -96,17 +96,33 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, terms: Sequence[
 
 
 def quantiles_table(keys: pd.DataFrame, fit: EngineFit, codes: np.ndarray) -> pd.DataFrame:
-    """Standardized residuals sorted per group against normal quantiles at (i − 3/8)/(n + 1/4)."""
+    """Standardized residuals sorted per group against normal quantiles at (i − 3/8)/(n + 1/4).
+
+    Sorted within each batch's padded rows (short sorts), and the normal quantiles computed once
+    per distinct group size.
+    """
     ok = fit.fitted_ok[codes] & np.isfinite(fit.internal)
-    c = codes[ok]
-    r = fit.internal[ok]
-    order = np.lexsort((r, c))
-    c, r = c[order], r[order]
-    counts = np.bincount(c, minlength=fit.n_groups)
+    counts = np.bincount(codes[ok], minlength=fit.n_groups)
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
-    rank = np.arange(len(c)) - starts[c] + 1
-    q = stats.norm.ppf((rank - 0.375) / (counts[c] + 0.25))
-    return with_keys(keys, c, {"normal quantile": q, "standardized residual": r})
+    resid = np.empty(int(counts.sum()))
+    quantile = np.empty_like(resid)
+    for b in fit.batches:
+        vals = fit.internal[np.where(b.mask, b.rows, 0)]
+        vals = np.where(b.mask & np.isfinite(vals), vals, np.inf)
+        vals.sort(axis=1)
+        n = counts[b.groups]
+        sizes, which = np.unique(n, return_inverse=True)
+        m = vals.shape[1]
+        rank = np.arange(1, m + 1)
+        by_size = np.full((len(sizes), m), np.nan)
+        for k, size in enumerate(sizes):
+            by_size[k, :size] = stats.norm.ppf((rank[:size] - 0.375) / (size + 0.25))
+        take = rank[None, :] <= n[:, None]
+        dest = (starts[b.groups][:, None] + rank[None, :] - 1)[take]
+        resid[dest] = vals[take]
+        quantile[dest] = by_size[which][take]
+    c = np.repeat(np.arange(fit.n_groups), counts)
+    return with_keys(keys, c, {"normal quantile": quantile, "standardized residual": resid})
 
 
 def xtx_table(keys: pd.DataFrame, fit: EngineFit, labels: Sequence[str]) -> pd.DataFrame:

@@ -55,6 +55,12 @@ def _aux_r2(Z: np.ndarray, u: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray,
     diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
     with np.errstate(invalid="ignore", divide="ignore"):
         ok = ~((diag / np.where(norm > 0, norm, 1.0)) < AUX_TOL).any(axis=1)
+    r2, rss = _projection_r2(Q, u, mask)
+    return r2, rss, ok
+
+
+def _projection_r2(Q: np.ndarray, u: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Centred R² and residual sum of squares of u on the columns of Q (orthonormal, spanning a constant)."""
     fitted = np.einsum("gmk,gk->gm", Q, np.einsum("gmk,gm->gk", Q, u))
     n = mask.sum(axis=1)
     resid = (u - fitted) * mask
@@ -63,7 +69,7 @@ def _aux_r2(Z: np.ndarray, u: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray,
     tss = (((u - ubar[:, None]) * mask) ** 2).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         r2 = 1.0 - rss / tss
-    return r2, rss, ok
+    return r2, rss
 
 
 def _with_constant(b: Batch, intercept: bool) -> np.ndarray:
@@ -79,10 +85,11 @@ def jarque_bera(fit: EngineFit) -> CheckResult:
         n = b.n.astype(np.float64)
         e = b.resid - (b.resid.sum(axis=1) / n)[:, None]
         e = e * b.mask
-        m2 = (e**2).sum(axis=1) / n
+        e2 = e * e
+        m2 = e2.sum(axis=1) / n
         with np.errstate(invalid="ignore", divide="ignore"):
-            skew = (e**3).sum(axis=1) / n / m2**1.5
-            kurt = (e**4).sum(axis=1) / n / m2**2
+            skew = (e2 * e).sum(axis=1) / n / m2**1.5
+            kurt = (e2 * e2).sum(axis=1) / n / m2**2
             jb = n / 6.0 * (skew**2 + (kurt - 3.0) ** 2 / 4.0)
         zero = ~(m2 > 0)
         jb[zero] = np.nan
@@ -144,9 +151,14 @@ def breusch_pagan(fit: EngineFit) -> CheckResult:
     """Koenker's studentized form: n·R² of squared residuals on the model's inputs."""
     stat, pval, note = _empty(fit.n_groups)
     for b in fit.batches:
-        Z = _with_constant(b, fit.intercept)
-        k = Z.shape[2]
-        r2, _, ok = _aux_r2(Z, b.resid**2, b.mask)
+        if fit.intercept:       # the model's own design holds the constant: reuse its QR
+            k = b.Q.shape[2]
+            r2, _ = _projection_r2(b.Q, b.resid**2, b.mask)
+            ok = np.ones(len(b.groups), dtype=bool)
+        else:
+            Z = _with_constant(b, fit.intercept)
+            k = Z.shape[2]
+            r2, _, ok = _aux_r2(Z, b.resid**2, b.mask)
         lm = b.n * r2
         bad = ~ok | ~np.isfinite(lm)
         lm[bad] = np.nan
@@ -284,7 +296,8 @@ def reset(fit: EngineFit) -> CheckResult:
         f = (b.y - b.resid) * b.mask
         scale = np.abs(f).max(axis=1, keepdims=True)
         f = f / np.where(scale > 0, scale, 1.0)
-        Z = np.concatenate([b.W, (f**2)[:, :, None], (f**3)[:, :, None]], axis=2)
+        f2 = f * f
+        Z = np.concatenate([b.W, f2[:, :, None], (f2 * f)[:, :, None]], axis=2)
         df2 = b.n - p - 2
         small = df2 < 1
         _, rss_u, ok = _aux_r2(Z, b.y, b.mask)

@@ -79,13 +79,12 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
             known = np.isfinite(stat) & np.isfinite(threshold)
         verdict = np.where(known, np.where(fail, "fail", "pass"), "n/a")
         note = res.note.copy()
-        for g in idx:
-            if verdict[g] == "n/a" and not note[g]:
-                note[g] = "cannot be computed for this group"
-            if verdict[g] == "fail":
-                reasons[g].append(res.failure.format(
-                    stat=_fmt(stat[g]), p=_p_words(adj[g], thr.adjust), thr=_fmt(threshold[g]),
-                    extra=(res.extra[g] if res.extra is not None else "")))
+        unexplained = fitted & (verdict == "n/a") & (note == "")
+        note[unexplained] = "cannot be computed for this group"
+        for g in np.flatnonzero(fitted & (verdict == "fail")):
+            reasons[g].append(res.failure.format(
+                stat=_fmt(stat[g]), p=_p_words(adj[g], thr.adjust), thr=_fmt(threshold[g]),
+                extra=(res.extra[g] if res.extra is not None else "")))
         frames.append(pd.DataFrame({
             "_code": idx, "check": res.name, "statistic": stat[idx], "p-value": raw[idx],
             "adjusted p-value": adj[idx], "threshold": threshold[idx],

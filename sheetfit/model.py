@@ -224,9 +224,11 @@ def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray,
         b = _from_working(T, gamma[..., None], order)[..., 0]
         # One step of iterative refinement with the residual taken in the raw basis in
         # extended precision recovers digits lost between the working and the raw basis.
+        # The refined fit's residual is r minus the projection of r, so it needs no second pass.
         r = _raw_residual(colp, yp, mask, terms, intercept, b)
-        b = b + _from_working(T, np.linalg.solve(R, np.einsum("gmk,gm->gk", Q, r)[..., None]), order)[..., 0]
-        e = _raw_residual(colp, yp, mask, terms, intercept, b)
+        qtr = np.einsum("gmk,gm->gk", Q, r)
+        b = b + _from_working(T, np.linalg.solve(R, qtr[..., None]), order)[..., 0]
+        e = r - np.einsum("gmk,gk->gm", Q, qtr)
         fit = (yp - e) * mask
         A = _from_working(T, rinv, order)
         h = (Q**2).sum(axis=2)

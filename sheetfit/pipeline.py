@@ -18,6 +18,7 @@ import pandas as pd
 from . import assemble, checks, collinearity, flags, influence, robust
 from .errors import NoUsableDataError, UnusableRowsError
 from .job import FitJob, load_job_file, make_job
+from .memory import ordinary_pages
 from .model import fit_groups, inference
 from .results import REASON, SOURCE_ROW, SOURCE_SHEET, FitResults, Observations, ReadInfo
 from .terms import parse_terms, source_columns
@@ -92,7 +93,11 @@ def _row_reasons(obs: Observations) -> np.ndarray:
 
 def fit_observations(obs: Observations, job: FitJob, progress: Progress | None = None) -> FitResults:
     """Fit, check and flag every group of already-read observations."""
-    progress = progress or Progress(False)
+    with ordinary_pages():
+        return _fit_observations(obs, job, progress or Progress(False))
+
+
+def _fit_observations(obs: Observations, job: FitJob, progress: Progress) -> FitResults:
     thr = job.thresholds
     data = obs.data
     terms = obs.terms
@@ -150,7 +155,7 @@ def fit_observations(obs: Observations, job: FitJob, progress: Progress | None =
     dep = np.zeros(G, bool)
     het[failed.loc[failed["check"].str.startswith("constant variance"), "_code"].to_numpy()] = True
     dep[failed.loc[failed["check"].str.startswith("independent residuals"), "_code"].to_numpy()] = True
-    covs = _robust_covariances(fit, thr)
+    covs = _robust_covariances(fit, thr, het, dep)
     if thr.inference == "robust" and (het | dep).any():
         # The model F-test becomes a Wald test with the robust covariance where it applies.
         cov = np.where(dep[:, None, None], covs["hac"], covs["hc"])
@@ -187,10 +192,12 @@ def fit_observations(obs: Observations, job: FitJob, progress: Progress | None =
     )
 
 
-def _robust_covariances(fit, thr) -> dict[str, np.ndarray]:
+def _robust_covariances(fit, thr, het: np.ndarray, dep: np.ndarray) -> dict[str, np.ndarray]:
+    """Robust (HC) covariances where variance is not constant, Newey–West where residuals are
+    not independent; NaN for the other groups, which never show or use them."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        hac, lag = robust.hac_cov(fit, thr.hac_lags)
-        return {"hc": robust.hc_cov(fit, thr.robust), "hac": hac, "lag": lag}
+        hac, lag = robust.hac_cov(fit, thr.hac_lags, only=dep)
+        return {"hc": robust.hc_cov(fit, thr.robust, only=het), "hac": hac, "lag": lag}
 
 
 def _robust_columns(fit, inf: dict, het: np.ndarray, dep: np.ndarray, job: FitJob, vifs: np.ndarray,
@@ -296,12 +303,15 @@ def _nothing_fitted(fit, G: int) -> str:
 
 
 def _about(job: FitJob, info: ReadInfo, groups: pd.DataFrame, observations: pd.DataFrame, fit) -> list:
-    import openpyxl
-    import scipy
-    import statsmodels
-    import xlsxwriter
+    from importlib.metadata import PackageNotFoundError, version
 
     from . import __version__
+
+    def installed(package: str) -> str:
+        try:
+            return version(package)
+        except PackageNotFoundError:
+            return "(not installed)"
 
     used = int((observations["used"] == "yes").sum())
     rows = [
@@ -322,9 +332,9 @@ def _about(job: FitJob, info: ReadInfo, groups: pd.DataFrame, observations: pd.D
     rows += [(f"setting: {k}", v) for k, v in job.settings_rows()]
     rows += [
         ("sheetfit", __version__), ("python", platform.python_version()),
-        ("numpy", np.__version__), ("pandas", pd.__version__), ("scipy", scipy.__version__),
-        ("statsmodels", statsmodels.__version__), ("openpyxl", openpyxl.__version__),
-        ("xlsxwriter", xlsxwriter.__version__),
+        ("numpy", np.__version__), ("pandas", pd.__version__), ("scipy", installed("scipy")),
+        ("statsmodels", installed("statsmodels")), ("openpyxl", installed("openpyxl")),
+        ("xlsxwriter", installed("xlsxwriter")),
         ("run at", time.strftime("%Y-%m-%d %H:%M:%S %Z")),
     ]
     return rows
@@ -378,12 +388,13 @@ def run_job(job: FitJob, progress: bool = False) -> tuple[FitResults, Path]:
     check_output_path(Path(job.workbook), out, job.overwrite)
     bar = Progress(progress)
     try:
-        results = fit_job(job, bar)
-        after = sha256_of(Path(job.workbook))
-        results = _with_about(results, [("input SHA-256 after", after)])
-        bar.stage("writing")
-        t0 = time.perf_counter()
-        path = write_results(results, out, overwrite=job.overwrite)
+        with ordinary_pages():
+            results = fit_job(job, bar)
+            after = sha256_of(Path(job.workbook))
+            results = _with_about(results, [("input SHA-256 after", after)])
+            bar.stage("writing")
+            t0 = time.perf_counter()
+            path = write_results(results, out, overwrite=job.overwrite)
     finally:
         bar.done()
     if os.environ.get("SHEETFIT_TIMINGS"):

@@ -4,30 +4,44 @@ from __future__ import annotations
 
 import numpy as np
 
-from .model import LEVERAGE_ONE_TOL, EngineFit
+from .model import LEVERAGE_ONE_TOL, Batch, EngineFit
 
 
-def hc_cov(fit: EngineFit, kind: str) -> np.ndarray:
-    """Heteroscedasticity-consistent covariance (G, p, p) of the raw coefficients."""
+def _selected(b: Batch, only: np.ndarray | None) -> tuple[np.ndarray | slice, np.ndarray] | None:
+    """Positions within batch `b` of the groups asked for (all when `only` is None)."""
+    if only is None:
+        return slice(None), b.groups
+    pick = np.flatnonzero(only[b.groups])
+    return (pick, b.groups[pick]) if len(pick) else None
+
+
+def hc_cov(fit: EngineFit, kind: str, only: np.ndarray | None = None) -> np.ndarray:
+    """Heteroscedasticity-consistent covariance (G, p, p) of the raw coefficients; with `only`
+    (a (G,) mask) just for those groups, NaN elsewhere."""
     out = np.full((fit.n_groups, fit.p, fit.p), np.nan)
     for b in fit.batches:
-        e2 = b.resid**2
-        h = b.leverage
+        if (sel := _selected(b, only)) is None:
+            continue
+        at, groups = sel
+        e2 = b.resid[at] ** 2
+        h = b.leverage[at]
+        n = b.n[at]
         with np.errstate(invalid="ignore", divide="ignore"):
             one = np.where(h < 1.0 - LEVERAGE_ONE_TOL, 1.0 - h, np.nan)
             if kind == "hc0":
                 w = e2
             elif kind == "hc1":
-                w = e2 * (b.n / (b.n - fit.p))[:, None]
+                w = e2 * (n / (n - fit.p))[:, None]
             elif kind == "hc2":
                 w = e2 / one
             elif kind == "hc3":
                 w = e2 / one**2
             else:
                 raise ValueError(kind)
-        w = np.where(b.mask, w, 0.0)
-        meat = np.einsum("gmk,gm,gml->gkl", b.Q, w, b.Q)
-        out[b.groups] = b.A @ meat @ np.swapaxes(b.A, 1, 2)
+        w = np.where(b.mask[at], w, 0.0)
+        Q, A = b.Q[at], b.A[at]
+        meat = np.einsum("gmk,gm,gml->gkl", Q, w, Q)
+        out[groups] = A @ meat @ np.swapaxes(A, 1, 2)
     return out
 
 
@@ -36,21 +50,27 @@ def default_hac_lag(n: np.ndarray) -> np.ndarray:
     return np.floor(4.0 * (np.asarray(n, dtype=np.float64) / 100.0) ** (2.0 / 9.0)).astype(int)
 
 
-def hac_cov(fit: EngineFit, lags: int | None) -> tuple[np.ndarray, np.ndarray]:
-    """Newey–West covariance with Bartlett weights (G, p, p) and the lag used per group."""
+def hac_cov(fit: EngineFit, lags: int | None, only: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Newey–West covariance with Bartlett weights (G, p, p) and the lag used per group; with
+    `only` (a (G,) mask) just for those groups (NaN and lag −1 elsewhere)."""
     out = np.full((fit.n_groups, fit.p, fit.p), np.nan)
     lag_used = np.full(fit.n_groups, -1)
     for b in fit.batches:
-        L = default_hac_lag(b.n) if lags is None else np.full(len(b.n), lags)
-        L = np.minimum(L, b.n - 1)
-        u = b.Q * b.resid[:, :, None]
+        if (sel := _selected(b, only)) is None:
+            continue
+        at, groups = sel
+        n = b.n[at]
+        L = default_hac_lag(n) if lags is None else np.full(len(n), lags)
+        L = np.minimum(L, n - 1)
+        u = b.Q[at] * b.resid[at][:, :, None]
         S = np.einsum("gmk,gml->gkl", u, u)
         for lag in range(1, int(L.max(initial=0)) + 1):
             w = np.where(lag <= L, 1.0 - lag / (L + 1.0), 0.0)
             G_l = np.einsum("gmk,gml->gkl", u[:, lag:], u[:, :-lag])
             S += w[:, None, None] * (G_l + np.swapaxes(G_l, 1, 2))
-        out[b.groups] = b.A @ S @ np.swapaxes(b.A, 1, 2)
-        lag_used[b.groups] = L
+        A = b.A[at]
+        out[groups] = A @ S @ np.swapaxes(A, 1, 2)
+        lag_used[groups] = L
     return out, lag_used
 
 

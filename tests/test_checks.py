@@ -117,6 +117,25 @@ def test_robust_covariances_match_statsmodels(intercept):
         assert lag[gi] == int(np.floor(4 * (len(sub) / 100) ** (2 / 9)))                     # common practice
 
 
+def test_robust_covariances_for_chosen_groups_only():
+    # Asking for some groups gives exactly the full computation's values there and NaN elsewhere.
+    frame = seeded_groups(seed=11, k=2, sizes=(25, 40, 70, 33, 26))
+    terms = parse_terms(["x1", "x2"], list(frame.columns))
+    codes = frame["grp"].str[1:].astype(int).to_numpy()
+    fit = fit_groups(frame["y"].to_numpy(), {c: frame[c].to_numpy() for c in ("x1", "x2")}, codes, 5,
+                     terms, True)
+    only = np.array([True, False, True, False, True])
+    full_hac, full_lag = robust.hac_cov(fit, None)
+    hac, lag = robust.hac_cov(fit, None, only=only)
+    np.testing.assert_array_equal(hac[only], full_hac[only])
+    np.testing.assert_array_equal(lag[only], full_lag[only])
+    assert np.isnan(hac[~only]).all() and (lag[~only] == -1).all()
+    hc = robust.hc_cov(fit, "hc1", only=only)
+    np.testing.assert_array_equal(hc[only], robust.hc_cov(fit, "hc1")[only])
+    assert np.isnan(hc[~only]).all()
+    assert np.isnan(robust.hc_cov(fit, "hc3", only=np.zeros(5, bool))).all()
+
+
 @pytest.mark.parametrize("method,sm_name", [("bh", "fdr_bh"), ("holm", "holm")])
 def test_adjustment_matches_multipletests(method, sm_name):
     rng = np.random.default_rng(1)
