@@ -59,7 +59,7 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
     """Long checks table (group code, check, statistic, p, adjusted p, threshold, verdict, note),
     failure count per group and the reasons text per group."""
     G = len(fitted)
-    reasons: list[list[str]] = [[] for _ in range(G)]
+    reasons: dict[int, list[str]] = {}     # failing groups only: G empty lists would cost a GC pass
     frames = []
     idx = np.flatnonzero(fitted)
     for res in results:
@@ -82,7 +82,7 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
         unexplained = fitted & (verdict == "n/a") & (note == "")
         note[unexplained] = "cannot be computed for this group"
         for g in np.flatnonzero(fitted & (verdict == "fail")):
-            reasons[g].append(res.failure.format(
+            reasons.setdefault(g, []).append(res.failure.format(
                 stat=_fmt(stat[g]), p=_p_words(adj[g], thr.adjust), thr=_fmt(threshold[g]),
                 extra=(res.extra[g] if res.extra is not None else "")))
         frames.append(pd.DataFrame({
@@ -94,6 +94,9 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
     if len(table):
         order = np.argsort(table["_code"].to_numpy(), kind="stable")
         table = table.iloc[order].reset_index(drop=True)
-    counts = np.array([len(r) for r in reasons])
-    text = np.array(["; ".join(r) for r in reasons], dtype=object)
+    counts = np.zeros(G, dtype=np.int64)
+    text = np.full(G, "", dtype=object)
+    for g, words in reasons.items():
+        counts[g] = len(words)
+        text[g] = "; ".join(words)
     return table, counts, text
