@@ -21,6 +21,7 @@ from xlsxwriter.utility import quote_sheetname, xl_rowcol_to_cell
 from ..prediction import predict_cells
 from ..store import (GROUP_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER, ModelStore,
                      store_from_results)
+from . import fastrows
 from .book import WriteContext
 from .columns import SCIENTIFIC, number_format
 
@@ -142,8 +143,8 @@ def store_layout(store: ModelStore) -> StoreLayout:
                        len(store.group_columns), p, len(store.sources))
 
 
-def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any) -> None:
-    """Write the store sheet row by row."""
+def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any, bulk: Any = None) -> None:
+    """Write the store sheet row by row; `bulk` (WriteContext.add_bulk) lets many groups take the fast path."""
     ws.set_column(0, 0, 26)
     ws.set_column(1, lay.width - 1, 16)
     ws.set_landscape()
@@ -172,6 +173,10 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any) -> None:
         head += [f"min: {c}", f"max: {c}"]
     ws.write_row(lay.group_header, 0, head, st.header)
     sci = st.number(SCIENTIFIC)
+    if bulk is not None and fastrows.use_fast(len(store), lay.width):
+        bulk(ws, lay.first, _store_columns(store, lay, sci))
+        ws.freeze_panes(0, 1)
+        return
     for g in range(len(store)):
         r = lay.first + g
         ws.write_string(r, 0, store.labels[g])
@@ -189,6 +194,23 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any) -> None:
                 if math.isfinite(v):
                     ws.write_number(r, c, float(v))
     ws.freeze_panes(0, 1)
+
+
+def _store_columns(store: ModelStore, lay: StoreLayout, sci: Any) -> list[tuple[int, Any, Any]]:
+    """The group rows of the store as (column, values, format) for the bulk writer; same cells as the loop."""
+    G = len(store)
+    cols: list[tuple[int, Any, Any]] = [(0, np.array(store.labels, dtype=object), None)]
+    keys = np.array(store.keys, dtype=object).reshape(G, lay.k)
+    cols += [(1 + j, keys[:, j], None) for j in range(lay.k)]
+    cols += [(lay.col_n(), np.asarray(store.n, dtype=np.int64), None),
+             (lay.col_df(), np.asarray(store.df, dtype=np.float64), None),
+             (lay.col_s2(), np.asarray(store.sigma2, dtype=np.float64), sci)]
+    cols += [(lay.col_coef(j), store.beta[:, j], sci) for j in range(lay.p)]
+    inv = store.xtx_inv.reshape(G, lay.p * lay.p)
+    cols += [(lay.col_inv(0, 0) + i, inv[:, i], sci) for i in range(lay.p * lay.p)]
+    for j in range(lay.m):
+        cols += [(lay.col_min(j), store.lo[:, j], None), (lay.col_max(j), store.hi[:, j], None)]
+    return cols
 
 
 # --- the predict sheet --------------------------------------------------------------------------
@@ -213,7 +235,7 @@ def whatif_sheet(ctx: WriteContext, group: str | None = None, inputs: Mapping[st
         ws.write_string(0, 0, f"No what-if predictions: {why}.", st.title)
         ctx.note("predict", f"not written: {why}")
         return
-    name = ctx.reserve_data_sheet(STORE_SHEET, lambda sheet: fill_store(sheet, store, lay, st))
+    name = ctx.reserve_data_sheet(STORE_SHEET, lambda sheet: fill_store(sheet, store, lay, st, ctx.add_bulk))
     g = store.labels.index(group) if group is not None else 0
     level = store.level if level is None else level
     values = [float((inputs or {}).get(c, _mid(store.lo[g, j], store.hi[g, j])))
