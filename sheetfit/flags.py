@@ -77,7 +77,7 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
             with np.errstate(invalid="ignore"):
                 fail = stat > threshold if res.rule == "above" else stat < threshold
             known = np.isfinite(stat) & np.isfinite(threshold)
-        verdict = np.where(known, np.where(fail, "fail", "pass"), "n/a")
+        verdict = np.array(["n/a", "pass", "fail"], dtype=object)[known * (1 + fail.astype(np.intp))]
         note = res.note.copy()
         unexplained = fitted & (verdict == "n/a") & (note == "")
         note[unexplained] = "cannot be computed for this group"
