@@ -17,7 +17,7 @@ from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
 from sheetfit.pipeline import fit_frame
 from sheetfit.prediction import predict_workbook
 from sheetfit.store import RESULT_COLUMNS, read_store, store_from_results
-from sheetfit.report import write_results
+from sheetfit.report import fastrows, write_results
 
 ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
           "mean CI high": "mean_ci_upper", "prediction low": "obs_ci_lower", "prediction high": "obs_ci_upper"}
@@ -77,13 +77,20 @@ def test_level_follows_the_fit(data):
     assert_matches(sheetfit.predict(res, new), oracle(data, "B", new, 0.9))
 
 
-def test_model_store_round_trip_from_the_results_workbook(results, data, tmp_path):
+@pytest.mark.parametrize("bulk", [False, True], ids=["row by row", "bulk writer"])
+def test_model_store_round_trip_from_the_results_workbook(results, data, tmp_path, monkeypatch, bulk):
+    # Large stores go through the bulk XML writer, which keeps every bit of each number.
+    monkeypatch.setattr(fastrows, "THRESHOLD", 0 if bulk else None)
     path = write_results(results, tmp_path / "fit.xlsx")
     store = read_store(path)
     direct = store_from_results(results)
     assert store.labels == direct.labels == ("A", "B", "C")
     assert store.group_columns == ("g",) and store.y == "y" and store.intercept and store.level == 0.95
     assert [t.label for t in store.terms] == X_TERMS
+    if bulk:
+        np.testing.assert_array_equal(store.beta, direct.beta)
+        np.testing.assert_array_equal(store.xtx_inv, direct.xtx_inv)
+        np.testing.assert_array_equal(store.sigma2, direct.sigma2)
     np.testing.assert_allclose(store.beta, direct.beta, rtol=1e-14)
     np.testing.assert_allclose(store.xtx_inv, direct.xtx_inv, rtol=1e-14)
     np.testing.assert_array_equal(store.df, [30 - 4, 45 - 4, 22 - 4])
