@@ -9,8 +9,8 @@ import zipfile
 from pathlib import Path
 
 from .errors import NotAWorkbookError
-from .sources import Book, Grid
-from .xlsx import SheetMarks, _calamine_call, _version, marked_grid
+from .sources import Grid
+from .xlsx import CalamineZipBook, SheetMarks, _calamine_call, _version, marked_grid
 
 _T = "{urn:oasis:names:tc:opendocument:xmlns:table:1.0}"
 _O = "{urn:oasis:names:tc:opendocument:xmlns:office:1.0}"
@@ -99,18 +99,15 @@ def scan_ods(zf: zipfile.ZipFile, sheet: str) -> tuple[SheetMarks, list[tuple[in
     return marks, merged
 
 
-class OdsBook(Book):
+class OdsBook(CalamineZipBook):
     """An OpenDocument spreadsheet read with python-calamine plus the content.xml pass."""
 
     file_format = "ods"
 
     def __init__(self, path: Path):
-        import python_calamine as pc
-
         self.path = Path(path)
         self.reader = f"python-calamine {_version('python-calamine')} (values) + content.xml pass (errors, hidden, merged)"
-        self._wb = _calamine_call(lambda: pc.CalamineWorkbook.from_path(str(self.path)), self.path.name)
-        self._zip = zipfile.ZipFile(self.path)
+        self._open()
         try:
             self._scan = _needs_scan(self._zip)
         except Exception as exc:  # zlib or zip errors while unpacking content.xml
@@ -130,10 +127,3 @@ class OdsBook(Book):
             raise NotAWorkbookError(f'"{self.path.name}" is damaged and cannot be read ({exc}); open it in a '
                                     f'spreadsheet application and save it again') from None
         return marked_grid(sheet, rows, start, merged, marks)
-
-    def close(self) -> None:
-        self._zip.close()
-        try:
-            self._wb.close()
-        except Exception:
-            pass

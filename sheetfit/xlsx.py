@@ -178,17 +178,31 @@ def _scan_slow(zf: zipfile.ZipFile, part: str) -> SheetMarks:
     return marks
 
 
-class XlsxBook(Book):
-    """An .xlsx/.xlsm workbook read with python-calamine plus the XML scan."""
+class CalamineZipBook(Book):
+    """A zipped workbook (.xlsx, .ods) whose values python-calamine reads and whose XML sheetfit scans."""
 
-    def __init__(self, path: Path, file_format: str = "xlsx"):
+    def _open(self) -> None:
         import python_calamine as pc
 
-        self.path, self.file_format = Path(path), file_format
-        self.reader = f"python-calamine {_version('python-calamine')} (values) + XML scan (errors, formulas, hidden)"
         self._pc = pc
         self._wb = _calamine_call(lambda: pc.CalamineWorkbook.from_path(str(self.path)), self.path.name)
         self._zip = zipfile.ZipFile(self.path)
+
+    def close(self) -> None:
+        self._zip.close()
+        try:
+            self._wb.close()
+        except Exception:
+            pass
+
+
+class XlsxBook(CalamineZipBook):
+    """An .xlsx/.xlsm workbook read with python-calamine plus the XML scan."""
+
+    def __init__(self, path: Path, file_format: str = "xlsx"):
+        self.path, self.file_format = Path(path), file_format
+        self.reader = f"python-calamine {_version('python-calamine')} (values) + XML scan (errors, formulas, hidden)"
+        self._open()
         self._parts, self._names = _workbook_parts(self._zip)
         self._kinds = {m.name: str(m.typ) for m in self._wb.sheets_metadata}
 
@@ -245,13 +259,6 @@ class XlsxBook(Book):
             raise TableNotFoundError(f'defined name "{key}" refers to sheet "{sheet}", which does not exist')
         return Region(sheet, header_row=top, bottom=bottom, left=left, right=right,
                       label=f'defined name "{key}" ({target})')
-
-    def close(self) -> None:
-        self._zip.close()
-        try:
-            self._wb.close()
-        except Exception:
-            pass
 
 
 def _scan_result(future, name: str) -> SheetMarks:

@@ -22,6 +22,18 @@ def seeded_groups(seed: int = 7, sizes=(12, 30, 47, 9, 60), k: int = 2, noise: f
     return pd.concat(parts, ignore_index=True)
 
 
+def curved_groups(spec, seed: int) -> pd.DataFrame:
+    """Groups (key, rows, slope) whose y curves in x and grows with log(z): for models x + x^2 + log(z)."""
+    rng = np.random.default_rng(seed)
+    parts = []
+    for g, n, c in spec:
+        x = rng.uniform(1, 10, n)
+        z = rng.uniform(0.5, 20, n)
+        y = 5 + c * x - 0.3 * x**2 + 2.5 * np.log(z) + rng.normal(0, 1.5, n)
+        parts.append(pd.DataFrame({"g": g, "x": x, "z": z, "y": y}))
+    return pd.concat(parts, ignore_index=True)
+
+
 def statsmodels_fit(frame: pd.DataFrame, y: str, xs: list[str], intercept: bool):
     """statsmodels OLS of one group (raw columns; the reference implementation)."""
     X = frame[xs].to_numpy(dtype=float)

@@ -18,6 +18,7 @@ from sheetfit.pipeline import fit_frame
 from sheetfit.prediction import predict_workbook
 from sheetfit.store import RESULT_COLUMNS, read_store, store_from_results
 from sheetfit.report import fastrows, write_results
+from tests.oracle import curved_groups
 
 ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
           "mean CI high": "mean_ci_upper", "prediction low": "obs_ci_lower", "prediction high": "obs_ci_upper"}
@@ -26,14 +27,7 @@ X_TERMS = ["x", "x^2", "log(z)"]
 
 def frame(seed: int = 3) -> pd.DataFrame:
     """Three groups of different sizes; y curves in x and grows with log(z)."""
-    rng = np.random.default_rng(seed)
-    parts = []
-    for g, n, c in (("A", 30, 1.0), ("B", 45, -0.5), ("C", 22, 2.0)):
-        x = rng.uniform(1, 10, n)
-        z = rng.uniform(0.5, 20, n)
-        y = 5 + c * x - 0.3 * x**2 + 2.5 * np.log(z) + rng.normal(0, 1.5, n)
-        parts.append(pd.DataFrame({"g": g, "x": x, "z": z, "y": y}))
-    return pd.concat(parts, ignore_index=True)
+    return curved_groups((("A", 30, 1.0), ("B", 45, -0.5), ("C", 22, 2.0)), seed)
 
 
 def oracle(data: pd.DataFrame, group: str, new: pd.DataFrame, level: float) -> pd.DataFrame:

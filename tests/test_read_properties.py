@@ -99,19 +99,20 @@ def _check(path: Path, rows) -> None:
             assert "\n" not in reason
 
 
+def _round_trip(rows, name: str, write) -> None:
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / name
+        write(path, rows)
+        _check(path, rows)
+
+
 @SETTINGS
 @given(st.lists(ROW, min_size=1, max_size=25))
 def test_any_cells_in_an_xlsx(rows):
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "p.xlsx"
-        _write_xlsx(path, rows)
-        _check(path, rows)
+    _round_trip(rows, "p.xlsx", _write_xlsx)
 
 
 @SETTINGS
 @given(st.lists(ROW, min_size=1, max_size=25))
 def test_any_cells_in_a_csv(rows):
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "p.csv"
-        _write_csv(path, rows)
-        _check(path, rows)
+    _round_trip(rows, "p.csv", _write_csv)

@@ -127,37 +127,40 @@ def _fit_chart(ctx: WriteContext, data: str, b: GroupBlock) -> Any:
     r2 = f", R² = {b.r2:.3f}" if math.isfinite(b.r2) else ""
     both = nice_bounds(c[C_Y] + c[C_FIT])
     chart = _new_chart(ctx, f"actual against fitted{r2}", "fitted", res.y, both, both)
-    chart.add_series({**S.point_series("observations"), "categories": _rng(data, s0, b.n_points, C_FIT),
-                      "values": _rng(data, s0, b.n_points, C_Y)})
-    chart.add_series({**S.line_series("y = x", colour=S.REFERENCE, width=1.0),
-                      "categories": _rng(data, s0, 2, C_REF_FIT), "values": _rng(data, s0, 2, C_REF_FIT)})
+    return _points_and_reference(chart, data, b, ("observations", b.n_points, C_FIT, C_Y),
+                                 ("y = x", C_REF_FIT, C_REF_FIT))
+
+
+def _points_and_reference(chart: Any, data: str, b: GroupBlock, points: tuple[str, int, int, int],
+                          reference: tuple[str, int, int]) -> Any:
+    """Add a point series (name, count, x column, y column) and a two-point reference line
+    (name, x column, y column) of block `b` to `chart`."""
+    name, n, cx, cy = points
+    chart.add_series({**S.point_series(name), "categories": _rng(data, b.start, n, cx),
+                      "values": _rng(data, b.start, n, cy)})
+    ref, rx, ry = reference
+    chart.add_series({**S.line_series(ref, colour=S.REFERENCE, width=1.0),
+                      "categories": _rng(data, b.start, 2, rx), "values": _rng(data, b.start, 2, ry)})
     return chart
 
 
 def _residual_chart(ctx: WriteContext, data: str, b: GroupBlock) -> Any:
-    s0, c = b.start, b.cols
+    c = b.cols
     res_vals = c[C_RES] + [0.0]
     chart = _new_chart(ctx, "residuals against fitted", "fitted", "residual",
                        nice_bounds(c[C_FIT]), nice_bounds(res_vals, symmetric=True))
-    chart.add_series({**S.point_series("residuals"), "categories": _rng(data, s0, b.n_points, C_FIT),
-                      "values": _rng(data, s0, b.n_points, C_RES)})
-    chart.add_series({**S.line_series("zero", colour=S.REFERENCE, width=1.0),
-                      "categories": _rng(data, s0, 2, C_ZX), "values": _rng(data, s0, 2, C_ZY)})
-    return chart
+    return _points_and_reference(chart, data, b, ("residuals", b.n_points, C_FIT, C_RES), ("zero", C_ZX, C_ZY))
 
 
 def _quantile_chart(ctx: WriteContext, data: str, b: GroupBlock) -> Any:
     if b.n_quantiles == 0:
         return None
-    s0, c = b.start, b.cols
+    c = b.cols
     both = nice_bounds(c[C_Q] + c[C_SR], symmetric=True)
     chart = _new_chart(ctx, "normal quantile plot of residuals", "normal quantile", "standardized residual",
                        both, both)
-    chart.add_series({**S.point_series("residuals"), "categories": _rng(data, s0, b.n_quantiles, C_Q),
-                      "values": _rng(data, s0, b.n_quantiles, C_SR)})
-    chart.add_series({**S.line_series("y = x", colour=S.REFERENCE, width=1.0),
-                      "categories": _rng(data, s0, 2, C_REF_Q), "values": _rng(data, s0, 2, C_REF_Q)})
-    return chart
+    return _points_and_reference(chart, data, b, ("residuals", b.n_quantiles, C_Q, C_SR),
+                                 ("y = x", C_REF_Q, C_REF_Q))
 
 
 def _overview(ctx: WriteContext, ws: Any, data: str, plan: ChartPlan) -> None:

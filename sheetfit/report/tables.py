@@ -145,28 +145,27 @@ def _freeze(keys: Sequence[str]) -> int:
 
 # --- the four table sheets ---------------------------------------------------------------------
 
+def _contract_sheet(ctx: WriteContext, label: str, df: pd.DataFrame, required: Sequence[str],
+                    optional: Sequence[str] = (), rules: Sequence[Rule] = ()) -> None:
+    """A result table in contract column order, frozen on the group keys."""
+    keys = list(ctx.results.group_columns)
+    write_table(ctx, label, df, ordered_columns(df, keys, required, optional),
+                freeze_columns=_freeze(keys), rules=rules)
+
+
 def groups_sheet(ctx: WriteContext) -> None:
-    res = ctx.results
-    keys = list(res.group_columns)
-    order = ordered_columns(res.groups, keys, GROUPS)
-    write_table(ctx, "groups", res.groups, order, freeze_columns=_freeze(keys), rules=(
+    _contract_sheet(ctx, "groups", ctx.results.groups, GROUPS, rules=(
         Rule("status", '{c}="not fitted"', "left_out"),
         Rule("flags", "{c}>0", "check_failed"),
     ))
 
 
 def coefficients_sheet(ctx: WriteContext) -> None:
-    res = ctx.results
-    keys = list(res.group_columns)
-    order = ordered_columns(res.coefficients, keys, COEFFICIENTS, COEFFICIENTS_OPTIONAL)
-    write_table(ctx, "coefficients", res.coefficients, order, freeze_columns=_freeze(keys))
+    _contract_sheet(ctx, "coefficients", ctx.results.coefficients, COEFFICIENTS, COEFFICIENTS_OPTIONAL)
 
 
 def checks_sheet(ctx: WriteContext) -> None:
-    res = ctx.results
-    keys = list(res.group_columns)
-    order = ordered_columns(res.checks, keys, CHECKS)
-    write_table(ctx, "checks", res.checks, order, freeze_columns=_freeze(keys), rules=(
+    _contract_sheet(ctx, "checks", ctx.results.checks, CHECKS, rules=(
         Rule("verdict", '{c}="fail"', "check_failed"),
     ))
 

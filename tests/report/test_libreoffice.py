@@ -28,6 +28,7 @@ from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet
 from sheetfit.report.whatif import whatif_sheet
 from tests.lo import SKIP_REASON, SOFFICE, convert, make_profile
+from tests.oracle import curved_groups
 
 pytestmark = pytest.mark.skipif(SOFFICE is None, reason=SKIP_REASON)
 
@@ -46,14 +47,7 @@ TIMES: dict[str, float] = {}
 
 
 def frame(seed: int = 21) -> pd.DataFrame:
-    rng = np.random.default_rng(seed)
-    parts = []
-    for g, n, c in GROUPS:
-        x = rng.uniform(1, 10, n)
-        z = rng.uniform(0.5, 20, n)
-        y = 5 + c * x - 0.3 * x**2 + 2.5 * np.log(z) + rng.normal(0, 1.5, n)
-        parts.append(pd.DataFrame({"g": g, "x": x, "z": z, "y": y}))
-    return pd.concat(parts, ignore_index=True)
+    return curved_groups(GROUPS, seed)
 
 
 def probe(ctx) -> None:
