@@ -23,12 +23,12 @@ def __getattr__(name: str):
         from .report import write_results
         return write_results
     if name == "predict":
-        from .prediction import predict
+        from .prediction.compute import predict
         return predict
     if name == "FitJob":
         from .job import FitJob
         return FitJob
     if name == "FitResults":
-        from .results import FitResults
+        from .results.types import FitResults
         return FitResults
     raise AttributeError(f"module 'sheetfit' has no attribute {name!r}")

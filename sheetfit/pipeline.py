@@ -15,12 +15,17 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import assemble, checks, collinearity, flags, influence, robust
+from .results import tables as assemble
+from .checks import assumptions as checks
+from .checks import collinearity
+from .checks import verdicts as flags
+from .checks import influence
+from .checks import robust
 from .errors import NoUsableDataError, UnusableRowsError
 from .job import FitJob, load_job_file, make_job
 from .memory import ordinary_pages
-from .model import fit_groups, inference
-from .results import REASON, SOURCE_ROW, SOURCE_SHEET, FitResults, Observations, ReadInfo
+from .model.engine import fit_groups, inference
+from .results.types import REASON, SOURCE_ROW, SOURCE_SHEET, FitResults, Observations, ReadInfo
 from .terms import parse_terms, source_columns
 
 
@@ -355,7 +360,7 @@ def job_from(workbook: str | Path | None = None, job_file: str | Path | None = N
 
 def fit_job(job: FitJob, progress: Progress | None = None) -> FitResults:
     """Read and fit (no writing)."""
-    from .read import read_observations
+    from .read.observations import read_observations
 
     progress = progress or Progress(False)
     progress.stage("reading")
@@ -381,7 +386,7 @@ def run_job(job: FitJob, progress: bool = False) -> tuple[FitResults, Path]:
     from .report import write_results
     from .report.safe import check_output_path
 
-    from .sources import check_path
+    from .read.sources import check_path
 
     check_path(Path(job.workbook))          # a missing input is the first thing to say
     out = job.output_path

@@ -14,9 +14,9 @@ from statsmodels.stats.outliers_influence import variance_inflation_factor
 from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
 import sheetfit
-from sheetfit import robust
-from sheetfit.flags import adjust_pvalues
-from sheetfit.model import fit_groups
+from sheetfit.checks import robust
+from sheetfit.checks.verdicts import adjust_pvalues
+from sheetfit.model.engine import fit_groups
 from sheetfit.terms import parse_terms
 from tests.oracle import assert_close, seeded_groups, statsmodels_fit
 

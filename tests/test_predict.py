@@ -15,8 +15,8 @@ import statsmodels.api as sm
 import sheetfit
 from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
 from sheetfit.pipeline import fit_frame
-from sheetfit.prediction import predict_workbook
-from sheetfit.store import RESULT_COLUMNS, read_store, store_from_results
+from sheetfit.prediction.compute import predict_workbook
+from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results
 from sheetfit.report import fastrows, write_results
 from tests.oracle import curved_groups
 

@@ -24,7 +24,7 @@ from .book import WORKBOOK_OPTIONS, SheetBuilder, WriteContext
 from .safe import atomic_output, check_output_path
 
 if TYPE_CHECKING:
-    from ..results import FitResults
+    from ..results.types import FitResults
 
 __all__ = ["write_results", "WriteContext", "SheetBuilder", "core_sheets"]
 

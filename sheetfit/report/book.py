@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 from .styles import Styles
 
 if TYPE_CHECKING:
-    from ..results import FitResults
+    from ..results.types import FitResults
 
 MAX_SHEET_NAME = 31
 _BAD_SHEET_CHARS = re.compile(r"[\[\]:*?/\\\x00-\x1f]")

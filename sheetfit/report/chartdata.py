@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..results import FitResults
+from ..results.types import FitResults
 from ..terms import source_columns
 
 MAX_POINTS = 5_000      # points per group plotted; beyond that, flagged rows plus an even sample

@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..store import group_codes, unique_labels
+from ..results.store import group_codes, unique_labels
 from ..terms import source_columns
 from . import fastrows
 from . import styles as S

@@ -2,7 +2,7 @@
 
 The store holds one row per fitted group: keys, n, residual df and variance, coefficients,
 (X'X)⁻¹ and the observed range of each input. `sheetfit predict` reads it back
-(sheetfit.store.read_store); the predict sheet finds the chosen group's row once with MATCH and
+(sheetfit.results.store.read_store); the predict sheet finds the chosen group's row once with MATCH and
 takes every number from that row with INDEX, so it works in any common spreadsheet application.
 """
 
@@ -18,8 +18,8 @@ import pandas as pd
 from scipy import stats
 from xlsxwriter.utility import quote_sheetname, xl_rowcol_to_cell
 
-from ..prediction import predict_cells
-from ..store import (GROUP_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER, ModelStore,
+from ..prediction.compute import predict_cells
+from ..results.store import (GROUP_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER, ModelStore,
                      store_from_results)
 from . import fastrows
 from .book import WriteContext

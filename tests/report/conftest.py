@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from sample_results import build_results
-from sheetfit.results import FitResults
+from sheetfit.results.types import FitResults
 
 
 @pytest.fixture

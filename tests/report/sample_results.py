@@ -15,7 +15,7 @@ import statsmodels.api as sm
 from scipy import stats
 
 from sheetfit.job import FitJob
-from sheetfit.results import INTERCEPT, FitResults, ReadInfo
+from sheetfit.results.types import INTERCEPT, FitResults, ReadInfo
 from sheetfit.terms import parse_terms
 
 HOSTILE = ["=1+2", "+A1", "-A1", "@SUM(A1)", '=HYPERLINK("http://x")', "http://example.com"]

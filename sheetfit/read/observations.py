@@ -1,8 +1,8 @@
 """Workbook → tidy observations: one row per non-blank input row, with its source sheet and row
 number, group labels, the numbers the model needs, and the reason whenever a row cannot be used.
 
-Rules (see also `sheetfit.cells` for how one cell becomes a number):
-* The header is found by `sheetfit.headers` (first non-empty row unless told; merged cells filled).
+Rules (see also `sheetfit.read.cells` for how one cell becomes a number):
+* The header is found by `sheetfit.read.headers` (first non-empty row unless told; merged cells filled).
 * A row whose cells are all blank is not data and is not counted; every other row appears once.
 * Group labels are text: numbers and text that look alike are one label (101, 101.0, "101" →
   "101"); blank → "(blank)", an error under --strict. Group cells inside merged cells take the
@@ -20,13 +20,13 @@ from operator import itemgetter
 from pathlib import Path
 
 from .cells import BLANK_LABEL, group_labels, is_blank, parse_column
-from .errors import (ColumnNotFoundError, JobError, NoUsableDataError,
+from ..errors import (ColumnNotFoundError, JobError, NoUsableDataError,
                      SheetNotFoundError, UnusableRowsError, not_found_message)
-from .job import FitJob
-from .results import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
+from ..job import FitJob
+from ..results.types import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
 from .headers import Header, find_header, no_duplicates
 from .sources import Book, Grid, Region, cell_ref, file_sha256, open_book, sniff
-from .terms import parse_terms, source_columns
+from ..terms import parse_terms, source_columns
 
 SHEET_KEY = "sheet"
 _SHOW = 5
@@ -136,7 +136,7 @@ def _plan(book: Book, job: FitJob) -> list[tuple[str, Region | None]]:
         region = book.region(job.table)
         return [(region.sheet, region)]
     if not names:
-        from .errors import NotAWorkbookError
+        from ..errors import NotAWorkbookError
         raise NotAWorkbookError(f'"{Path(job.workbook).name}" has no worksheets')
     if job.all_sheets:
         return [(n, None) for n in names]

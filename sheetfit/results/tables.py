@@ -8,9 +8,9 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .model import EngineFit, design_row
-from .results import INTERCEPT
-from .terms import Term, source_columns
+from ..model.engine import EngineFit, design_row
+from .types import INTERCEPT
+from ..terms import Term, source_columns
 
 CURVE_POINTS = 25
 

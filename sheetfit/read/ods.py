@@ -8,7 +8,7 @@ from __future__ import annotations
 import zipfile
 from pathlib import Path
 
-from .errors import NotAWorkbookError
+from ..errors import NotAWorkbookError
 from .sources import Grid
 from .xlsx import CalamineZipBook, SheetMarks, _calamine_call, _version, marked_grid
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .model import LEVERAGE_ONE_TOL, Batch, EngineFit
+from ..model.engine import LEVERAGE_ONE_TOL, Batch, EngineFit
 
 
 def _selected(b: Batch, only: np.ndarray | None) -> tuple[np.ndarray | slice, np.ndarray] | None:

@@ -11,8 +11,8 @@ from typing import Any
 
 import pandas as pd
 
-from .job import FitJob
-from .terms import Term
+from ..job import FitJob
+from ..terms import Term
 
 SOURCE_SHEET = "source sheet"
 SOURCE_ROW = "source row"

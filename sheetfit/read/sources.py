@@ -15,7 +15,7 @@ import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .errors import InputFileError, NotAWorkbookError
+from ..errors import InputFileError, NotAWorkbookError
 
 WORKBOOK_SUFFIXES = (".xlsx", ".xlsm", ".xls", ".ods")
 TEXT_SUFFIXES = (".csv", ".tsv", ".txt")
@@ -328,7 +328,7 @@ class Book:
         raise NotImplementedError
 
     def region(self, name: str) -> Region:
-        from .errors import TableNotFoundError
+        from ..errors import TableNotFoundError
 
         raise TableNotFoundError(f'table or defined name "{name}" not found: {self.file_format} files are read '
                                  f'sheet by sheet; use --sheet (and --header-row), or save as .xlsx')

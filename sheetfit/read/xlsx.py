@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
 
 from .cells import NO_RESULT, ErrorCell
-from .errors import NotAWorkbookError, TableNotFoundError, not_found_message
+from ..errors import NotAWorkbookError, TableNotFoundError, not_found_message
 from .sources import Book, Grid, Region, parse_range
 
 _CHUNK = 1 << 23

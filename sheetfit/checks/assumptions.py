@@ -13,8 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .model import Batch, EngineFit
-from .terms import Term, polynomial_family
+from ..model.engine import Batch, EngineFit
+from ..terms import Term, polynomial_family
 
 AUX_TOL = 1e-9   # relative |R_jj| below this in an auxiliary regression: column redundant
 

@@ -16,7 +16,7 @@ from math import comb
 import numpy as np
 from scipy import stats
 
-from .terms import Term, polynomial_family
+from ..terms import Term, polynomial_family
 
 COLLINEAR_TOL = 1e-10       # |R_jj| / ‖W_j‖ below this: column j is a combination of the others
 LEVERAGE_ONE_TOL = 1e-10    # leverage within this of 1: the row alone fixes a coefficient

@@ -16,11 +16,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from .errors import ResultsWorkbookError
-from .terms import Term, source_columns
+from ..errors import ResultsWorkbookError
+from ..terms import Term, source_columns
 
 if TYPE_CHECKING:
-    from .results import FitResults
+    from .types import FitResults
 
 STORE_SHEET = "model store"
 STORE_TITLE = "sheetfit model store"
@@ -157,7 +157,7 @@ def _number(v: Any) -> float:
 
 def read_store(path: Path | str) -> ModelStore:
     """The stored models of a results workbook written by `sheetfit fit`."""
-    from .sources import open_book, sniff
+    from ..read.sources import open_book, sniff
 
     path = Path(path)
     fmt = sniff(path, MAX_UNPACKED)

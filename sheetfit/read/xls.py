@@ -8,7 +8,7 @@ import datetime as dt
 from pathlib import Path
 
 from .cells import ErrorCell
-from .errors import NotAWorkbookError
+from ..errors import NotAWorkbookError
 from .sources import Book, Grid
 from .xlsx import _version
 

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .checks import CheckResult
-from .model import EngineFit
+from .assumptions import CheckResult
+from ..model.engine import EngineFit
 
 
 def vif(fit: EngineFit) -> np.ndarray:

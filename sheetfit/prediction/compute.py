@@ -14,11 +14,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from .errors import NoUsableDataError, OutputError, SheetNotFoundError, not_found_message
-from .store import MAX_UNPACKED, RESULT_COLUMNS, ModelStore, group_label, read_store, store_from_results
+from ..errors import NoUsableDataError, OutputError, SheetNotFoundError, not_found_message
+from ..results.store import MAX_UNPACKED, RESULT_COLUMNS, ModelStore, group_label, read_store, store_from_results
 
 if TYPE_CHECKING:
-    from .results import FitResults
+    from ..results.types import FitResults
 
 
 def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: pd.DataFrame) -> pd.DataFrame:
@@ -53,7 +53,7 @@ def predict_cells(store: ModelStore, raw: dict[str, list], n_rows: int) -> pd.Da
     """Predictions from raw cell values per column (any reader type); the RESULT_COLUMNS only."""
     from scipy import stats
 
-    from .cells import cell_number, label
+    from ..read.cells import cell_number, label
 
     reasons: list[list[str]] = [[] for _ in range(n_rows)]
     lookup: dict[tuple[str, ...], int] = {k: i for i, k in enumerate(store.keys)}
@@ -139,7 +139,7 @@ def _close_label(name: str, labels: Sequence[str]) -> str | None:
 
 
 def _as_number(v: Any) -> Any:
-    from .cells import cell_number
+    from ..read.cells import cell_number
 
     if isinstance(v, (dt.date, dt.time)) or v is None:
         return v
@@ -164,8 +164,8 @@ def _extrapolation(store: ModelStore, g: int, x: np.ndarray) -> str:
 
 def read_new_rows(path: Path, sheet: str | None) -> tuple[pd.DataFrame, np.ndarray, str]:
     """Cells of one sheet under its first non-empty row (the header): (raw values, source rows, sheet)."""
-    from .cells import NO_RESULT, ErrorCell, header_name, is_blank
-    from .sources import open_book, sniff
+    from ..read.cells import NO_RESULT, ErrorCell, header_name, is_blank
+    from ..read.sources import open_book, sniff
 
     fmt = sniff(path, MAX_UNPACKED)
     book = open_book(path, fmt)
@@ -222,9 +222,9 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
 
     Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went.
     """
-    from .report.safe import check_output_path
+    from ..report.safe import check_output_path
 
-    from .sources import check_path
+    from ..read.sources import check_path
 
     results_path, new_rows_path = Path(results_path), Path(new_rows_path)
     check_path(new_rows_path)
@@ -250,10 +250,10 @@ def _write_predictions(target: Path, overwrite: bool, store: ModelStore, frame: 
     """The predictions workbook: the new rows as given, their predictions, and an about sheet."""
     import xlsxwriter
 
-    from .report.book import WORKBOOK_OPTIONS
-    from .report.columns import Column, column_letter
-    from .report.safe import atomic_output
-    from .report.styles import Styles
+    from ..report.book import WORKBOOK_OPTIONS
+    from ..report.columns import Column, column_letter
+    from ..report.safe import atomic_output
+    from ..report.styles import Styles
 
     table = pd.concat([pd.DataFrame({"source row": src_rows}), frame.reset_index(drop=True),
                        preds.reset_index(drop=True)], axis=1)

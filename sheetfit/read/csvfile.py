@@ -5,7 +5,7 @@ Delimiter: among tab ; | and , the one that splits the sampled records into the 
 (at least 2) of fields most often; ties go to tab, then ; then | then ,.
 Decimal mark: "," when sampled fields such as "12,5" can only be read with a decimal comma and
 none such as "12.5" can only be read with a decimal point; "." in the opposite case; otherwise
-not fixed, so each text follows the two-rule order of `sheetfit.cells`.
+not fixed, so each text follows the two-rule order of `sheetfit.read.cells`.
 The source row of a record is its position in the file counting from 1, as a spreadsheet shows it.
 """
 
@@ -17,7 +17,7 @@ import re
 from collections import Counter
 from pathlib import Path
 
-from .errors import JobError, NotAWorkbookError
+from ..errors import JobError, NotAWorkbookError
 from .sources import Book, Grid
 
 _CANDIDATES = ("\t", ";", "|", ",")

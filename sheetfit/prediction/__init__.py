@@ -1,0 +1,1 @@
+"""Predict: stored models plus new rows → predictions with confidence and prediction intervals."""
