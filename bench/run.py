@@ -203,7 +203,8 @@ def worker_handwritten(a: dict) -> None:
 def _sheetfit_in_process(df, xs: list[str]) -> dict:
     """sheetfit's fit+checks alone on an in-memory frame (frame → observations → fit_observations)."""
     from sheetfit.job import make_job
-    from sheetfit.pipeline import fit_observations, observations_from_frame
+    from sheetfit.pipeline import fit_observations
+    from sheetfit.read.frame import observations_from_frame
 
     job = make_job({"workbook": "(in memory)", "y": "y", "x": tuple(xs), "group": ("g",)})
     t0 = time.perf_counter()

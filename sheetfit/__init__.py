@@ -8,7 +8,7 @@ predict(results_or_path, new_rows_df) → DataFrame
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from .provenance import __version__
 __all__ = ["fit_workbook", "fit_frame", "write_results", "predict", "FitJob", "FitResults", "__version__"]
 
 

@@ -16,8 +16,16 @@ from typing import Any, NoReturn
 import typer
 
 from .errors import SheetfitError
-from .job import (ADJUST_METHODS, INFERENCE_KINDS, OBSERVATION_MODES, ROBUST_KINDS, FitJob, Thresholds,
-                  load_job_file, make_job)
+from .job import (
+    ADJUST_METHODS,
+    INFERENCE_KINDS,
+    OBSERVATION_MODES,
+    ROBUST_KINDS,
+    FitJob,
+    Thresholds,
+    load_job_file,
+    make_job,
+)
 
 PROG = "sheetfit"
 MB = 1024 * 1024

@@ -15,18 +15,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .results import tables as assemble
 from .checks import assumptions as checks
-from .checks import collinearity
+from .checks import collinearity, influence, robust
 from .checks import verdicts as flags
-from .checks import influence
-from .checks import robust
 from .errors import NoUsableDataError, UnusableRowsError
 from .job import FitJob, load_job_file, make_job
 from .memory import ordinary_pages
 from .model.engine import fit_groups, inference
-from .results.types import REASON, SOURCE_ROW, SOURCE_SHEET, FitResults, Observations, ReadInfo
-from .terms import parse_terms, source_columns
+from .read.frame import observations_from_frame
+from .read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
+from .results import tables as assemble
+from .results.types import FitResults
+from .terms import coefficient_labels, source_columns
 
 
 class Progress:
@@ -132,7 +132,7 @@ def _fit_observations(obs: Observations, job: FitJob, progress: Progress) -> Fit
     if not fit.fitted_ok.any():
         raise NoUsableDataError(_nothing_fitted(fit, G))
     inf = inference(fit, job.level)
-    labels = assemble.coefficient_labels(terms, job.intercept)
+    labels = list(coefficient_labels(terms, job.intercept))
 
     progress.stage("checking")
     order_note = (f"rows in order of {obs.order}" if obs.order else "rows in input row order")
@@ -383,10 +383,9 @@ def fit_workbook(workbook: str | Path, *, y: str, x: Sequence[str] | str, group:
 
 def run_job(job: FitJob, progress: bool = False) -> tuple[FitResults, Path]:
     """Read, fit and write the results workbook; returns the results and where they went."""
+    from .read.sources import check_path
     from .report import write_results
     from .report.safe import check_output_path
-
-    from .read.sources import check_path
 
     check_path(Path(job.workbook))          # a missing input is the first thing to say
     out = job.output_path
@@ -424,28 +423,6 @@ def summary_lines(results: FitResults) -> list[str]:
     lines.append(f"{results.info.rows_read} rows read: {used} used, {results.info.rows_read - used} not used "
                  f"(reasons on the observations sheet)")
     return lines
-
-
-def observations_from_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str], group: Sequence[str] = (),
-                            order: str | None = None, name: str = "(data frame)") -> Observations:
-    """Observations from an in-memory table of numbers (no parsing of text; NaN → unusable)."""
-    header = [str(c) for c in frame.columns]
-    terms = parse_terms(list(x), header)
-    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else [])]))
-    data = pd.DataFrame({SOURCE_SHEET: name, SOURCE_ROW: np.arange(2, len(frame) + 2)})
-    for gcol in group:
-        data[gcol] = frame[gcol].astype(str).to_numpy()
-    why = np.full(len(frame), "", dtype=object)
-    for c in numeric:
-        v = pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype=np.float64)
-        data[c] = v
-        for i in np.flatnonzero(~np.isfinite(v)):
-            why[i] = f"{why[i]}; {c}: not a number" if why[i] else f"{c}: not a number"
-    data[REASON] = why
-    info = ReadInfo(file_name=name, file_sha256="", file_format="frame", reader="pandas",
-                    sheets=(name,), region="whole table", header_row=1, rows_read=len(frame))
-    return Observations(data=data, group_columns=tuple(group), y=y, terms=terms, order=order,
-                        numeric_columns=tuple(numeric), info=info)
 
 
 def fit_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str] | str, group: Sequence[str] | str = (),

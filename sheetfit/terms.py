@@ -14,6 +14,8 @@ import numpy as np
 
 from .errors import ColumnNotFoundError, TermSyntaxError, not_found_message
 
+INTERCEPT = "(intercept)"   # the label of the constant term everywhere results show it
+
 _POWER = re.compile(r"^(?P<col>.+?)\s*\^\s*(?P<k>[0-9]+)$")
 _FUNC = re.compile(r"^(?P<fn>log|sqrt)\s*\(\s*(?P<col>.+?)\s*\)$", re.IGNORECASE)
 MAX_POWER = 12
@@ -128,3 +130,8 @@ def polynomial_family(terms: Sequence[Term], column: str) -> list[int] | None:
     if len(powers) >= 2 and powers == list(range(1, len(powers) + 1)):
         return powers
     return None
+
+
+def coefficient_labels(terms: Sequence[Term], intercept: bool) -> tuple[str, ...]:
+    """Coefficient labels in design order, the intercept first when the model has one."""
+    return ((INTERCEPT,) if intercept else ()) + tuple(t.label for t in terms)

@@ -15,8 +15,17 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from sheetfit.read.cells import (BLANK_LABEL, NO_RESULT, ErrorCell, cell_number, group_labels, header_name, label,
-                            parse_column, parse_text)
+from sheetfit.read.cells import (
+    BLANK_LABEL,
+    NO_RESULT,
+    ErrorCell,
+    cell_number,
+    group_labels,
+    header_name,
+    label,
+    parse_column,
+    parse_text,
+)
 
 # (text, value with no decimal mark set) — one row per rule in the cells.py docstring
 AUTO = [

@@ -7,8 +7,12 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 from scipy import stats
-from statsmodels.stats.diagnostic import (acorr_breusch_godfrey, het_breuschpagan, het_white,
-                                          linear_reset)
+from statsmodels.stats.diagnostic import (
+    acorr_breusch_godfrey,
+    het_breuschpagan,
+    het_white,
+    linear_reset,
+)
 from statsmodels.stats.multitest import multipletests
 from statsmodels.stats.outliers_influence import variance_inflation_factor
 from statsmodels.stats.stattools import durbin_watson, jarque_bera

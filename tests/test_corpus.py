@@ -17,7 +17,7 @@ import pytest
 from sheetfit import errors
 from sheetfit.job import FitJob
 from sheetfit.read.observations import read_observations
-from sheetfit.results.types import REASON, SOURCE_ROW, SOURCE_SHEET
+from sheetfit.read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 from tests.corpus.build import CASES, Case
 
 

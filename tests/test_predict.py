@@ -16,8 +16,8 @@ import sheetfit
 from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
 from sheetfit.pipeline import fit_frame
 from sheetfit.prediction.compute import predict_workbook
-from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results
 from sheetfit.report import fastrows, write_results
+from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results
 from tests.oracle import curved_groups
 
 ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",

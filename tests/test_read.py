@@ -14,10 +14,10 @@ import numpy as np
 import pytest
 
 from sheetfit import errors
-from sheetfit.read import xlsx
 from sheetfit.job import FitJob
+from sheetfit.read import xlsx
 from sheetfit.read.observations import read_observations
-from sheetfit.results.types import REASON, SOURCE_ROW, SOURCE_SHEET
+from sheetfit.read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 
 ERRS = ["#N/A", "#DIV/0!", "#VALUE!", "#REF!"]
 

@@ -18,7 +18,7 @@ from hypothesis import strategies as st
 from sheetfit.errors import NoUsableDataError
 from sheetfit.job import FitJob
 from sheetfit.read.observations import read_observations
-from sheetfit.results.types import REASON, SOURCE_ROW
+from sheetfit.read.tidy import REASON, SOURCE_ROW
 
 COLUMNS = ("Load kWh", "CDD", "Pallets")
 SPLIT = re.compile("; (?=(?:" + "|".join(map(re.escape, COLUMNS)) + "): )")   # quoted cell text may hold "; "

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .assumptions import CheckResult
 from ..model.engine import EngineFit
+from .assumptions import CheckResult
 
 
 def vif(fit: EngineFit) -> np.ndarray:

@@ -10,9 +10,9 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from .assumptions import CheckResult
 from ..job import Thresholds
 from ..model.engine import LEVERAGE_ONE_TOL, EngineFit
+from .assumptions import CheckResult
 
 
 def row_highlights(fit: EngineFit, codes: np.ndarray, thr: Thresholds) -> dict[str, np.ndarray]:

@@ -7,8 +7,8 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from .assumptions import CheckResult
 from ..job import Thresholds
+from .assumptions import CheckResult
 
 
 def adjust_pvalues(p: np.ndarray, method: str) -> np.ndarray:

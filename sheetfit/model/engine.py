@@ -16,7 +16,7 @@ from math import comb
 import numpy as np
 from scipy import stats
 
-from ..terms import Term, polynomial_family
+from ..terms import Term, coefficient_labels, polynomial_family
 
 COLLINEAR_TOL = 1e-10       # |R_jj| / ‖W_j‖ below this: column j is a combination of the others
 LEVERAGE_ONE_TOL = 1e-10    # leverage within this of 1: the row alone fixes a coefficient
@@ -206,7 +206,7 @@ def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray,
             ratio = diag / np.where(colnorm > 0, colnorm, 1.0)
         bad = (ratio < COLLINEAR_TOL).any(axis=1)
         if bad.any():
-            labels = (["(intercept)"] if intercept else []) + [t.label for t in terms]
+            labels = coefficient_labels(terms, intercept)
             for gi in np.flatnonzero(bad):
                 j = int(np.argmax(ratio[gi] < COLLINEAR_TOL))
                 reason[ids[gi]] = (f"{labels[j]} is an exact linear combination of the other "

@@ -14,8 +14,20 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from ..errors import NoUsableDataError, OutputError, SheetNotFoundError, not_found_message
-from ..results.store import MAX_UNPACKED, RESULT_COLUMNS, ModelStore, group_label, read_store, store_from_results
+from ..errors import (
+    NoUsableDataError,
+    OutputError,
+    SheetNotFoundError,
+    not_found_message,
+)
+from ..results.store import (
+    MAX_UNPACKED,
+    RESULT_COLUMNS,
+    ModelStore,
+    group_label,
+    read_store,
+    store_from_results,
+)
 
 if TYPE_CHECKING:
     from ..results.types import FitResults
@@ -222,9 +234,8 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
 
     Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went.
     """
-    from ..report.safe import check_output_path
-
     from ..read.sources import check_path
+    from ..report.safe import check_output_path
 
     results_path, new_rows_path = Path(results_path), Path(new_rows_path)
     check_path(new_rows_path)

@@ -10,9 +10,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .cells import header_name, is_blank
 from ..errors import DuplicateHeaderError, JobError, NoUsableDataError
 from ..job import FitJob
+from .cells import header_name, is_blank
 from .sources import Grid, Region, col_letter
 
 _MAX_HEADER_ROWS = 10

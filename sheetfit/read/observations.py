@@ -19,14 +19,20 @@ from dataclasses import dataclass, field
 from operator import itemgetter
 from pathlib import Path
 
-from .cells import BLANK_LABEL, group_labels, is_blank, parse_column
-from ..errors import (ColumnNotFoundError, JobError, NoUsableDataError,
-                     SheetNotFoundError, UnusableRowsError, not_found_message)
+from ..errors import (
+    ColumnNotFoundError,
+    JobError,
+    NoUsableDataError,
+    SheetNotFoundError,
+    UnusableRowsError,
+    not_found_message,
+)
 from ..job import FitJob
-from ..results.types import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
+from ..terms import parse_terms, source_columns
+from .cells import BLANK_LABEL, group_labels, is_blank, parse_column
 from .headers import Header, find_header, no_duplicates
 from .sources import Book, Grid, Region, cell_ref, file_sha256, open_book, sniff
-from ..terms import parse_terms, source_columns
+from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
 
 SHEET_KEY = "sheet"
 _SHOW = 5

@@ -7,8 +7,8 @@ from __future__ import annotations
 import datetime as dt
 from pathlib import Path
 
-from .cells import ErrorCell
 from ..errors import NotAWorkbookError
+from .cells import ErrorCell
 from .sources import Book, Grid
 from .xlsx import _version
 

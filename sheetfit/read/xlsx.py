@@ -17,8 +17,8 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
 
-from .cells import NO_RESULT, ErrorCell
 from ..errors import NotAWorkbookError, TableNotFoundError, not_found_message
+from .cells import NO_RESULT, ErrorCell
 from .sources import Book, Grid, Region, parse_range
 
 _CHUNK = 1 << 23

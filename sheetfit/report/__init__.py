@@ -35,7 +35,12 @@ def core_sheets() -> list[SheetBuilder]:
     """The contract's sheets, in order."""
     from .about import about_sheet
     from .charts import charts_sheets
-    from .tables import checks_sheet, coefficients_sheet, groups_sheet, observations_sheet
+    from .tables import (
+        checks_sheet,
+        coefficients_sheet,
+        groups_sheet,
+        observations_sheet,
+    )
     return [groups_sheet, coefficients_sheet, checks_sheet, observations_sheet, charts_sheets, about_sheet]
 
 

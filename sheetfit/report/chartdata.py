@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..results.types import FitResults
-from ..terms import source_columns
+from ..terms import INTERCEPT, source_columns
 
 MAX_POINTS = 5_000      # points per group plotted; beyond that, flagged rows plus an even sample
 
@@ -106,7 +106,7 @@ def equation(y: str, terms: list[tuple[str, float]]) -> str:
     for term, est in terms:
         if not math.isfinite(est):
             continue
-        body = fmt_number(abs(est)) if term == "(intercept)" else f"{fmt_number(abs(est))}·{term}"
+        body = fmt_number(abs(est)) if term == INTERCEPT else f"{fmt_number(abs(est))}·{term}"
         if not parts:
             parts.append(("−" if est < 0 else "") + body)
         else:

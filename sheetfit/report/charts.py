@@ -12,8 +12,27 @@ from typing import Any
 
 from . import styles as S
 from .book import WriteContext
-from .chartdata import (C_FIT, C_GF, C_GX, C_HI, C_LO, C_Q, C_REF_FIT, C_REF_Q, C_RES, C_SR, C_X, C_Y,
-                        C_ZX, C_ZY, ChartPlan, GroupBlock, layout, plan_charts, write_data_sheet)
+from .chartdata import (
+    C_FIT,
+    C_GF,
+    C_GX,
+    C_HI,
+    C_LO,
+    C_Q,
+    C_REF_FIT,
+    C_REF_Q,
+    C_RES,
+    C_SR,
+    C_X,
+    C_Y,
+    C_ZX,
+    C_ZY,
+    ChartPlan,
+    GroupBlock,
+    layout,
+    plan_charts,
+    write_data_sheet,
+)
 
 CHART_W, CHART_H, GAP = 440, 300, 14          # pixels
 ROW_PX, COL_PX = 20, 64                       # default row height and column width

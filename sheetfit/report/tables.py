@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-from ..results.types import REASON, SOURCE_ROW, SOURCE_SHEET
+from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 from ..terms import source_columns
 from . import fastrows
 from .book import WriteContext

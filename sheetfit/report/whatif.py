@@ -19,8 +19,16 @@ from scipy import stats
 from xlsxwriter.utility import quote_sheetname, xl_rowcol_to_cell
 
 from ..prediction.compute import predict_cells
-from ..results.store import (GROUP_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER, ModelStore,
-                     store_from_results)
+from ..results.store import (
+    GROUP_HEADER,
+    STORE_FORMAT,
+    STORE_SHEET,
+    STORE_TITLE,
+    TERM_HEADER,
+    ModelStore,
+    store_from_results,
+)
+from ..terms import INTERCEPT
 from . import fastrows
 from .book import WriteContext
 from .columns import SCIENTIFIC, number_format
@@ -158,7 +166,7 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any, bulk: Any 
         for j, v in enumerate(values):
             (ws.write_string if isinstance(v, str) else ws.write_number)(4 + i, 1 + j, v)
     ws.write_row(lay.term_header, 0, [TERM_HEADER, "source column", "kind", "power"], st.header)
-    rows = [["(intercept)", "", "intercept", 0]] if store.intercept else []
+    rows = [[INTERCEPT, "", "intercept", 0]] if store.intercept else []
     rows += [[t.label, t.column, t.kind, t.power] for t in store.terms]
     for i, row in enumerate(rows):
         ws.write_string(lay.term_header + 1 + i, 0, row[0])

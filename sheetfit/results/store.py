@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ResultsWorkbookError
-from ..terms import Term, source_columns
+from ..terms import Term, coefficient_labels, source_columns
 
 if TYPE_CHECKING:
     from .types import FitResults
@@ -54,8 +54,7 @@ class ModelStore:
 
     @property
     def term_labels(self) -> tuple[str, ...]:
-        labels = tuple(t.label for t in self.terms)
-        return (("(intercept)",) + labels) if self.intercept else labels
+        return coefficient_labels(self.terms, self.intercept)
 
     @property
     def sources(self) -> tuple[str, ...]:

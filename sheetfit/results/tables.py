@@ -9,7 +9,6 @@ import pandas as pd
 from scipy import stats
 
 from ..model.engine import EngineFit, design_row
-from .types import INTERCEPT
 from ..terms import Term, source_columns
 
 CURVE_POINTS = 25
@@ -147,6 +146,3 @@ def ranges_table(keys: pd.DataFrame, fit: EngineFit,
     out = pd.concat(parts, ignore_index=True)
     return out
 
-
-def coefficient_labels(terms: Sequence[Term], intercept: bool) -> list[str]:
-    return ([INTERCEPT] if intercept else []) + [t.label for t in terms]

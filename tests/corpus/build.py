@@ -18,9 +18,33 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .writers import (H, _LAUGH_SHEET, _LAUGHS, _SHEET_OPEN, _cached_formula, _corrupt_member, _cp1252, _defined_name, _docx,
-                      _formulas, _hide, _inline, _lengthy_comment_laughs, _merge_groups, _merge_header, _table,
-                      _truncated, _big_unpacked, ods, ods_rows, ole2, raw_xlsx, text_file, via_soffice, xlsx)
+from .writers import (
+    _LAUGH_SHEET,
+    _LAUGHS,
+    _SHEET_OPEN,
+    H,
+    _big_unpacked,
+    _cached_formula,
+    _corrupt_member,
+    _cp1252,
+    _defined_name,
+    _docx,
+    _formulas,
+    _hide,
+    _inline,
+    _lengthy_comment_laughs,
+    _merge_groups,
+    _merge_header,
+    _table,
+    _truncated,
+    ods,
+    ods_rows,
+    ole2,
+    raw_xlsx,
+    text_file,
+    via_soffice,
+    xlsx,
+)
 
 NAN = math.nan
 JOB = {"y": "Load kWh", "x": ("CDD",), "group": ("Site",)}

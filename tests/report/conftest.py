@@ -6,8 +6,8 @@ from collections.abc import Callable
 from pathlib import Path
 
 import pytest
-
 from sample_results import build_results
+
 from sheetfit.results.types import FitResults
 
 

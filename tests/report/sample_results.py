@@ -15,8 +15,9 @@ import statsmodels.api as sm
 from scipy import stats
 
 from sheetfit.job import FitJob
-from sheetfit.results.types import INTERCEPT, FitResults, ReadInfo
-from sheetfit.terms import parse_terms
+from sheetfit.read.tidy import ReadInfo
+from sheetfit.results.types import FitResults
+from sheetfit.terms import INTERCEPT, parse_terms
 
 HOSTILE = ["=1+2", "+A1", "-A1", "@SUM(A1)", '=HYPERLINK("http://x")', "http://example.com"]
 Y = "Load kWh"

@@ -11,12 +11,12 @@ from pathlib import Path
 
 import openpyxl
 import pytest
+from sample_results import Y
 
 import sheetfit.report as report
 from sheetfit.report import write_results
 from sheetfit.report.chartdata import MAX_POINTS, equation
 from sheetfit.report.charts import nice_bounds
-from sample_results import Y
 
 LABELS = [f"Site {i:02d}" for i in range(8)]
 

@@ -19,12 +19,12 @@ import pandas as pd
 import pytest
 import xlsxwriter
 from python_calamine import CalamineWorkbook
+from sample_results import HOSTILE
 
 from sheetfit.report import fastrows, write_results
 from sheetfit.report import tables as T
 from sheetfit.report.book import WORKBOOK_OPTIONS, WriteContext
 from sheetfit.report.styles import Styles
-from sample_results import HOSTILE
 from tests.lo import SKIP_REASON, SOFFICE, convert, make_profile
 
 FLOATS = [0.0, -0.0, 5e-324, -2.2250738585072014e-308, 1.7976931348623157e308, 1e16, 1e15, 1e-5, 0.1,

@@ -10,12 +10,12 @@ import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
+from sample_results import HOSTILE, Y
 
-from sheetfit.report import write_results
 from sheetfit.report import tables as T
+from sheetfit.report import write_results
 from sheetfit.report.book import SheetNames
 from sheetfit.report.columns import P_VALUE_FORMAT
-from sample_results import HOSTILE, Y
 
 CORE = ["groups", "coefficients", "checks", "observations", "charts", "overview", "about", "chart data"]
 GROUPS = ["site", "status", "flags", "reasons", "n", "rows dropped", "parameters", "R²", "adjusted R²",

@@ -1,0 +1,33 @@
+"""Observations from an in-memory table (the Python API's fit_frame), with the same row reasons as a file."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+
+from ..terms import parse_terms, source_columns
+from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
+
+
+def observations_from_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str], group: Sequence[str] = (),
+                            order: str | None = None, name: str = "(data frame)") -> Observations:
+    """Observations from an in-memory table of numbers (no parsing of text; NaN → unusable)."""
+    header = [str(c) for c in frame.columns]
+    terms = parse_terms(list(x), header)
+    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else [])]))
+    data = pd.DataFrame({SOURCE_SHEET: name, SOURCE_ROW: np.arange(2, len(frame) + 2)})
+    for gcol in group:
+        data[gcol] = frame[gcol].astype(str).to_numpy()
+    why = np.full(len(frame), "", dtype=object)
+    for c in numeric:
+        v = pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype=np.float64)
+        data[c] = v
+        for i in np.flatnonzero(~np.isfinite(v)):
+            why[i] = f"{why[i]}; {c}: not a number" if why[i] else f"{c}: not a number"
+    data[REASON] = why
+    info = ReadInfo(file_name=name, file_sha256="", file_format="frame", reader="pandas",
+                    sheets=(name,), region="whole table", header_row=1, rows_read=len(frame))
+    return Observations(data=data, group_columns=tuple(group), y=y, terms=terms, order=order,
+                        numeric_columns=tuple(numeric), info=info)
