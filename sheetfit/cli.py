@@ -210,7 +210,9 @@ def fit(
         job = make_job(settings)
         from .pipeline import run_job, summary_lines
 
-        results, path = run_job(job, progress=not quiet and _stderr_is_tty())
+        with stage_bar(not quiet) as bar:
+            results, path = run_job(job, progress=bar.stage)
+        _print_timings(results, bar)
         typer.echo(f"results: {path}")
         if not quiet:
             for line in summary_lines(results):
@@ -276,6 +278,84 @@ def _stderr_is_tty() -> bool:
         return False
 
 
+class StageBar:
+    """A one-line progress display on stderr: stage, elapsed time and a moving bar.
+
+    Shown only on a terminal and only once the run has taken more than `delay` seconds, so quick
+    runs print nothing. The run reports its stages through `stage`; every stage's start is kept.
+    """
+
+    STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
+
+    def __init__(self, enabled: bool, delay: float = 2.0):
+        import threading
+        import time
+
+        self._clock = time.perf_counter
+        self.enabled = enabled and _stderr_is_tty()
+        self.t0 = self._clock()
+        self.delay = delay
+        self.current = ""
+        self.started: dict[str, float] = {}
+        self.shown = False
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+        if self.enabled:
+            self._thread = threading.Thread(target=self._tick, daemon=True)
+            self._thread.start()
+
+    def _line(self) -> str:
+        step = (len(self.STAGES) if self.current == "done" else
+                self.STAGES.index(self.current) + 1 if self.current in self.STAGES else 0)
+        width = 20
+        done = round(width * step / len(self.STAGES))
+        bar = "#" * done + "-" * (width - done)
+        return f"\r[{bar}] {self.current:<18} {self._clock() - self.t0:6.1f} s"
+
+    def _tick(self) -> None:
+        while not self._stop.wait(0.5):
+            if self._clock() - self.t0 >= self.delay and self.current:
+                sys.stderr.write(self._line())
+                sys.stderr.flush()
+                self.shown = True
+
+    def stage(self, name: str) -> None:
+        self.started[name] = self._clock()
+        self.current = name
+
+    def done(self) -> None:
+        self.started["done"] = self._clock()
+        if self._thread is not None:
+            self._stop.set()
+            self._thread.join()
+            if self.shown:
+                self.current = "done"
+                sys.stderr.write(self._line() + "\n")
+                sys.stderr.flush()
+
+
+@contextlib.contextmanager
+def stage_bar(enabled: bool) -> Iterator[StageBar]:
+    """A StageBar that always ends its line, whatever happens to the run."""
+    bar = StageBar(enabled)
+    try:
+        yield bar
+    finally:
+        bar.done()
+
+
+def _print_timings(results: Any, bar: StageBar) -> None:
+    """With SHEETFIT_TIMINGS set: read, fit+checks and write times on stderr (for bench/run.py)."""
+    import os
+
+    if not os.environ.get("SHEETFIT_TIMINGS"):
+        return
+    about = dict(results.about)
+    write = bar.started.get("done", 0.0) - bar.started.get("writing", 0.0)
+    sys.stderr.write(f"timings: read {about['time to read (s)']:.2f} s, fit+checks "
+                     f"{about['time to fit and check (s)']:.2f} s, write {write:.2f} s\n")
+
+
 # ── demo ──
 
 @app.command("demo")
@@ -290,7 +370,8 @@ def demo(
         from .demo import run_demo
         from .pipeline import summary_lines
 
-        workbook, results, path = run_demo(Path(folder), progress=not quiet and _stderr_is_tty())
+        with stage_bar(not quiet) as bar:
+            workbook, results, path = run_demo(Path(folder), progress=bar.stage)
         typer.echo(f"demo workbook: {workbook}")
         typer.echo(f"results: {path}")
         if not quiet:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import datetime as dt
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -224,7 +225,7 @@ def write_demo_workbook(path: Path | str, seed: int = SEED) -> Path:
     return path
 
 
-def run_demo(folder: Path, progress: bool = False) -> tuple[Path, Any, Path]:
+def run_demo(folder: Path, progress: Callable[[str], None] | None = None) -> tuple[Path, Any, Path]:
     """Write the demo workbook into `folder`, fit it, return (workbook, results, results path)."""
     from .job import make_job
     from .pipeline import run_job

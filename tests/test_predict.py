@@ -13,8 +13,8 @@ import pytest
 import statsmodels.api as sm
 
 import sheetfit
+from sheetfit.api import fit_frame
 from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
-from sheetfit.pipeline import fit_frame
 from sheetfit.prediction.compute import predict_workbook
 from sheetfit.report import fastrows, write_results
 from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results

@@ -1,1 +1,63 @@
-"""Check and flag: assumption tests, influence, collinearity and robust errors; verdicts adjusted across groups."""
+"""Check and flag: assumption tests, influence, collinearity and robust errors; verdicts adjusted across groups.
+
+`run_checks` is the one list of checks every run applies, in the order the checks sheet shows them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..job import Thresholds
+from ..model.engine import EngineFit
+from ..model.inference import Inference
+from ..terms import Term
+from . import assumptions, collinearity, influence
+from .assumptions import CheckResult
+
+VARIANCE_CHECKS = ("breusch_pagan", "white")              # keys of the constant-variance tests
+INDEPENDENCE_CHECKS = ("durbin_watson", "breusch_godfrey")  # keys of the independent-residuals tests
+
+
+@dataclass(frozen=True)
+class RowsInOrder:
+    """Where each engine row came from and in what order the rows of a group were fitted."""
+
+    codes: np.ndarray          # (N,) group code per engine row
+    source_rows: np.ndarray    # (N,) spreadsheet row per engine row
+    order_note: str            # 'rows in order of Month' or 'rows in input row order'
+
+
+def run_checks(fit: EngineFit, inf: Inference, rows: RowsInOrder, terms: Sequence[Term],
+               labels: Sequence[str], thr: Thresholds) -> tuple[list[CheckResult], np.ndarray]:
+    """Every check of a run, and the VIF of each coefficient (G, p) that the collinearity check used."""
+    vifs = collinearity.vif(fit)
+    results = [
+        assumptions.model_f_test(fit, inf.f, inf.f_p_value),
+        assumptions.r_squared(fit, inf.r2, thr.min_r2),
+        assumptions.enough_rows(fit, thr.rows_per_coefficient),
+        assumptions.jarque_bera(fit),
+        assumptions.shapiro_wilk(fit),
+        assumptions.breusch_pagan(fit),
+        assumptions.white(fit, terms),
+        assumptions.durbin_watson(fit, rows.order_note),
+        assumptions.breusch_godfrey(fit, thr.bg_lags, rows.order_note),
+        assumptions.reset(fit),
+        influence.outlier_test(fit, rows.codes, rows.source_rows),
+        influence.cooks_check(fit, rows.codes, rows.source_rows),
+        influence.leverage_one(fit, rows.codes, rows.source_rows),
+        *collinearity.collinearity_checks(fit, vifs, thr.vif_max, thr.condition_max, labels),
+    ]
+    return results, vifs
+
+
+def replace_check(results: Sequence[CheckResult], new: CheckResult) -> list[CheckResult]:
+    """The same checks with the one of `new`'s key replaced by `new`."""
+    return [new if r.key == new.key else r for r in results]
+
+
+def statistic_of(results: Sequence[CheckResult], key: str) -> np.ndarray:
+    """The per-group statistic of the check with this key."""
+    return next(r.statistic for r in results if r.key == key)

@@ -2,9 +2,14 @@
 
 from __future__ import annotations
 
-import numpy as np
+from dataclasses import dataclass
 
+import numpy as np
+from scipy import stats
+
+from ..job import Thresholds
 from ..model.engine import LEVERAGE_ONE_TOL, Batch, EngineFit
+from ..model.inference import Inference
 
 
 def _selected(b: Batch, only: np.ndarray | None) -> tuple[np.ndarray | slice, np.ndarray] | None:
@@ -90,3 +95,56 @@ def wald_f(fit: EngineFit, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         F[ok] = (b[ok] * sol).sum(axis=1) / q
     with np.errstate(invalid="ignore"):
         return F, stats.f.sf(F, q, fit.df_resid)
+
+
+@dataclass(frozen=True)
+class RobustCovariances:
+    """Robust covariances of the groups that need them; NaN for the others, which never show them."""
+
+    hc: np.ndarray        # (G, p, p) heteroscedasticity-consistent, where variance is not constant
+    hac: np.ndarray       # (G, p, p) Newey–West, where residuals are not independent
+    hac_lag: np.ndarray   # (G,) lag used by Newey–West
+
+
+def robust_covariances(fit: EngineFit, thr: Thresholds, het: np.ndarray, dep: np.ndarray) -> RobustCovariances:
+    """HC covariances where variance is not constant (`het`), Newey–West where residuals are
+    not independent (`dep`)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        hac, lag = hac_cov(fit, thr.hac_lags, only=dep)
+        return RobustCovariances(hc=hc_cov(fit, thr.robust, only=het), hac=hac, hac_lag=lag)
+
+
+def robust_model_test(fit: EngineFit, covs: RobustCovariances, het: np.ndarray, dep: np.ndarray,
+                      f: np.ndarray, f_p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The model F-test as a Wald test with the robust covariance where one applies (--inference robust)."""
+    cov = np.where(dep[:, None, None], covs.hac, covs.hc)
+    f_rob, p_rob = wald_f(fit, cov)
+    use = het | dep
+    return np.where(use, f_rob, f), np.where(use, p_rob, f_p)
+
+
+def coefficient_extras(fit: EngineFit, inf: Inference, het: np.ndarray, dep: np.ndarray, thr: Thresholds,
+                       intercept: bool, vifs: np.ndarray, covs: RobustCovariances
+                       ) -> tuple[dict[str, np.ndarray], Inference]:
+    """Extra coefficient columns: VIF, robust (HC) std errors where variance is not constant,
+    Newey–West std errors where residuals are not independent; --inference robust swaps them in."""
+    extra: dict[str, np.ndarray] = {}
+    if fit.p - (1 if intercept else 0) >= 2:
+        extra["VIF"] = vifs
+    df = fit.df_resid[:, None]
+    kind = thr.robust.upper()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        hc_se = np.sqrt(np.diagonal(covs.hc, axis1=1, axis2=2))
+        hac_se = np.sqrt(np.diagonal(covs.hac, axis1=1, axis2=2))
+        extra[f"robust std error ({kind})"] = np.where(het[:, None], hc_se, np.nan)
+        extra[f"robust p-value ({kind})"] = np.where(het[:, None], 2 * stats.t.sf(np.abs(fit.beta / hc_se), df), np.nan)
+        extra["HAC std error"] = np.where(dep[:, None], hac_se, np.nan)
+        extra["HAC p-value"] = np.where(dep[:, None], 2 * stats.t.sf(np.abs(fit.beta / hac_se), df), np.nan)
+        extra["HAC lag"] = np.where(dep[:, None], np.repeat(covs.hac_lag[:, None], fit.p, axis=1), np.nan)
+    if thr.inference == "robust":
+        use_hc = het & ~dep
+        se = np.where(dep[:, None], hac_se, np.where(use_hc[:, None], hc_se, fit.se))
+        inf = inf.with_std_errors(fit.beta, se, fit.df_resid)
+        used = np.where(dep, "Newey–West (HAC)", np.where(use_hc, kind, "classic"))
+        extra["std error used"] = np.repeat(used[:, None], fit.p, axis=1)
+    return extra, inf

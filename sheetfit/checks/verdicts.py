@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -54,11 +55,28 @@ def _p_words(p: float, method: str) -> str:
     return f"{label} = {p:.3f}"
 
 
-def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
-             ) -> tuple[pd.DataFrame, np.ndarray, np.ndarray]:
-    """Long checks table (group code, check, statistic, p, adjusted p, threshold, verdict, note),
-    failure count per group and the reasons text per group."""
+@dataclass(frozen=True)
+class Verdicts:
+    """What the flag stage decided for every group."""
+
+    table: pd.DataFrame                   # group code (_code), check, statistic, p, adjusted p, threshold, verdict, note
+    flags: np.ndarray                     # (G,) number of failed checks
+    reasons: np.ndarray                   # (G,) object: the failures in plain words, '; '-joined
+    failed: Mapping[str, np.ndarray]      # check key → (G,) bool: the check failed for the group
+
+    def any_failed(self, keys: Sequence[str]) -> np.ndarray:
+        """(G,) bool: any of the checks with these keys failed for the group."""
+        out = np.zeros(len(self.flags), dtype=bool)
+        for key in keys:
+            if key in self.failed:
+                out |= self.failed[key]
+        return out
+
+
+def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds) -> Verdicts:
+    """Each check's verdict per group, p-values adjusted across groups, reasons in plain words."""
     G = len(fitted)
+    failed: dict[str, np.ndarray] = {}
     reasons: dict[int, list[str]] = {}     # failing groups only: G empty lists would cost a GC pass
     frames = []
     idx = np.flatnonzero(fitted)
@@ -78,6 +96,7 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
                 fail = stat > threshold if res.rule == "above" else stat < threshold
             known = np.isfinite(stat) & np.isfinite(threshold)
         verdict = np.array(["n/a", "pass", "fail"], dtype=object)[known * (1 + fail.astype(np.intp))]
+        failed[res.key] = fitted & (verdict == "fail")
         note = res.note.copy()
         unexplained = fitted & (verdict == "n/a") & (note == "")
         note[unexplained] = "cannot be computed for this group"
@@ -99,4 +118,4 @@ def verdicts(results: Sequence[CheckResult], fitted: np.ndarray, thr: Thresholds
     for g, words in reasons.items():
         counts[g] = len(words)
         text[g] = "; ".join(words)
-    return table, counts, text
+    return Verdicts(table=table, flags=counts, reasons=text, failed=failed)

@@ -14,7 +14,6 @@ from dataclasses import dataclass
 from math import comb
 
 import numpy as np
-from scipy import stats
 
 from ..terms import Term, coefficient_labels, polynomial_family
 
@@ -357,32 +356,6 @@ def _influence(resid: np.ndarray, h: np.ndarray, codes: np.ndarray, rss: np.ndar
         external = resid / np.sqrt(s2_without * one_minus_h)
         cooks = internal**2 * h / one_minus_h / p
     return internal, external, cooks
-
-
-def inference(fit: EngineFit, level: float) -> dict[str, np.ndarray]:
-    """t, p-values and confidence limits of every coefficient, plus whole-model metrics."""
-    df = fit.df_resid
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t = fit.beta / fit.se
-        pval = 2.0 * stats.t.sf(np.abs(t), df[:, None])
-        q = stats.t.ppf(0.5 + level / 2.0, df)
-        half = q[:, None] * fit.se
-        n = fit.n.astype(np.float64)
-        k_const = 1 if fit.intercept else 0
-        df_model = fit.p - k_const
-        r2 = 1.0 - fit.rss / fit.tss
-        adj = 1.0 - (n - k_const) / df * (1.0 - r2)
-        rse = np.sqrt(fit.rss / df)
-        rmse = np.sqrt(fit.rss / n)
-        cv = 100.0 * rse / fit.ymean
-        f = ((fit.tss - fit.rss) / df_model) / (fit.rss / df)
-        f_p = stats.f.sf(f, df_model, df)
-        llf = -n / 2.0 * (np.log(2 * np.pi) + np.log(fit.rss / n) + 1.0)
-        aic = -2.0 * llf + 2.0 * fit.p
-        bic = -2.0 * llf + np.log(n) * fit.p
-    return {"t": t, "p": pval, "ci_low": fit.beta - half, "ci_high": fit.beta + half,
-            "t_quantile": q, "r2": r2, "adj_r2": adj, "rse": rse, "rmse": rmse, "cv": cv,
-            "f": f, "f_p": f_p, "aic": aic, "bic": bic, "df_model": np.full(fit.n_groups, df_model)}
 
 
 def design_row(terms: Sequence[Term], intercept: bool, source: Mapping[str, np.ndarray]) -> np.ndarray:

@@ -9,6 +9,7 @@ import pandas as pd
 from scipy import stats
 
 from ..model.engine import EngineFit, design_row
+from ..model.inference import Inference
 from ..terms import Term, source_columns
 
 CURVE_POINTS = 25
@@ -22,7 +23,7 @@ def with_keys(keys: pd.DataFrame, codes: np.ndarray, body: dict) -> pd.DataFrame
     return out
 
 
-def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, flags: np.ndarray, reasons: np.ndarray,
+def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, flags: np.ndarray, reasons: np.ndarray,
                  dropped: np.ndarray, extra: dict[str, np.ndarray]) -> pd.DataFrame:
     ok = fit.fitted_ok
     G = fit.n_groups
@@ -38,21 +39,21 @@ def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, flags: np.ndarra
         "n": fit.n,
         "rows dropped": dropped,
         "parameters": np.full(G, fit.p),
-        "R²": only(inf["r2"]),
-        "adjusted R²": only(inf["adj_r2"]),
-        "residual std error": only(inf["rse"]),
-        "RMSE": only(inf["rmse"]),
-        "CV(RMSE) %": only(inf["cv"]),
-        "F": only(inf["f"]),
-        "F p-value": only(inf["f_p"]),
-        "AIC": only(inf["aic"]),
-        "BIC": only(inf["bic"]),
+        "R²": only(inf.r2),
+        "adjusted R²": only(inf.adj_r2),
+        "residual std error": only(inf.residual_std_error),
+        "RMSE": only(inf.rmse),
+        "CV(RMSE) %": only(inf.cv_rmse),
+        "F": only(inf.f),
+        "F p-value": only(inf.f_p_value),
+        "AIC": only(inf.aic),
+        "BIC": only(inf.bic),
     }
     body.update({k: only(v) for k, v in extra.items()})
     return with_keys(keys, np.arange(G), body)
 
 
-def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, labels: Sequence[str],
+def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, labels: Sequence[str],
                        extra: dict[str, np.ndarray]) -> pd.DataFrame:
     """group × term rows for fitted groups; `extra` maps column name → (G, p) arrays."""
     g_idx = np.flatnonzero(fit.fitted_ok)
@@ -63,17 +64,17 @@ def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, labels: Se
         "term": np.tile(np.asarray(labels, dtype=object), len(g_idx)),
         "estimate": fit.beta[sel],
         "std error": fit.se[sel],
-        "t": inf["t"][sel],
-        "p-value": inf["p"][sel],
-        "CI low": inf["ci_low"][sel],
-        "CI high": inf["ci_high"][sel],
+        "t": inf.t[sel],
+        "p-value": inf.p_value[sel],
+        "CI low": inf.ci_low[sel],
+        "CI high": inf.ci_high[sel],
     }
     for name, arr in extra.items():
         body[name] = np.asarray(arr)[sel]
     return with_keys(keys, codes, body)
 
 
-def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, terms: Sequence[Term],
+def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequence[Term],
                  ranges: dict[str, tuple[np.ndarray, np.ndarray]]) -> pd.DataFrame:
     """Fitted line and confidence band of the mean over each group's observed input range."""
     cols = source_columns(terms)
@@ -87,7 +88,7 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: dict, terms: Sequence[
     D = design_row(terms, fit.intercept, {col: xs.ravel()}).reshape(len(g_idx), CURVE_POINTS, fit.p)
     yhat = np.einsum("gkp,gp->gk", D, fit.beta[g_idx])
     var = np.einsum("gkp,gpq,gkq->gk", D, fit.xtx_inv[g_idx], D) * fit.sigma2[g_idx, None]
-    half = inf["t_quantile"][g_idx, None] * np.sqrt(np.maximum(var, 0.0))
+    half = inf.t_quantile[g_idx, None] * np.sqrt(np.maximum(var, 0.0))
     codes = np.repeat(g_idx, CURVE_POINTS)
     return with_keys(keys, codes, {"x": xs.ravel(), "fitted": yhat.ravel(),
                                    "mean CI low": (yhat - half).ravel(),
@@ -146,3 +147,19 @@ def ranges_table(keys: pd.DataFrame, fit: EngineFit,
     out = pd.concat(parts, ignore_index=True)
     return out
 
+
+
+def observed_ranges(columns: dict[str, np.ndarray], codes: np.ndarray, G: int
+                    ) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Observed min and max of each source column per group (rows sorted by group)."""
+    out = {}
+    starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]]) if len(codes) else np.array([], int)
+    present = codes[starts]
+    for c, v in columns.items():
+        lo = np.full(G, np.nan)
+        hi = np.full(G, np.nan)
+        if len(starts):
+            lo[present] = np.minimum.reduceat(v, starts)
+            hi[present] = np.maximum.reduceat(v, starts)
+        out[c] = (lo, hi)
+    return out

@@ -167,7 +167,7 @@ def recorder(monkeypatch):
     calls: list[dict] = []
     fake = types.ModuleType("sheetfit.pipeline")
 
-    def run_job(job, progress=False):
+    def run_job(job, progress=None):
         calls.append({"job": job, "progress": progress})
         if fake.error is not None:
             raise fake.error
@@ -210,7 +210,7 @@ def test_defaults_equal_the_library_defaults(recorder, tmp_path):
     result = runner.invoke(app, ["fit", str(tmp_path / "in.xlsx"), "--y", "Y", "--x", "X"])
     assert result.exit_code == 0, result.output
     assert recorder.calls[0]["job"] == FitJob(workbook=tmp_path / "in.xlsx", y="Y", x=("X",))
-    assert recorder.calls[0]["progress"] is False          # output is not a terminal
+    assert recorder.calls[0]["progress"].__self__.enabled is False   # no bar: output is not a terminal
 
 
 def test_command_line_overrides_job_file_only_where_given(recorder, tmp_path):

@@ -15,7 +15,7 @@ import pytest
 
 import sheetfit.report as report
 import sheetfit.report.explorer as explorer
-from sheetfit.pipeline import fit_frame
+from sheetfit.api import fit_frame
 from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet
 

@@ -22,7 +22,7 @@ import statsmodels.api as sm
 
 import sheetfit
 import sheetfit.report as report
-from sheetfit.pipeline import fit_frame
+from sheetfit.api import fit_frame
 from sheetfit.prediction.compute import predict_workbook
 from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet

@@ -16,7 +16,7 @@ import pytest
 import statsmodels.api as sm
 
 import sheetfit.report as report
-from sheetfit.pipeline import fit_frame
+from sheetfit.api import fit_frame
 from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet
 from sheetfit.report.whatif import whatif_sheet

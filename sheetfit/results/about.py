@@ -1,0 +1,44 @@
+"""The `about` rows of a run: provenance, settings, counts and versions."""
+
+from __future__ import annotations
+
+import platform
+import time
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..job import FitJob
+from ..model.engine import EngineFit
+from ..provenance import __version__, installed_version
+from ..read.tidy import ReadInfo
+
+
+def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit) -> list[tuple[str, Any]]:
+    """The `about` sheet's rows: what was read, how it was fitted, with which versions, when."""
+    used = int(fit.n[fit.fitted_ok].sum())
+    rows = [
+        ("input file", info.file_name), ("input format", info.file_format), ("read with", info.reader),
+        ("input SHA-256 before", info.file_sha256), ("sheet(s)", ", ".join(info.sheets)),
+        ("region", info.region), ("header row", info.header_row),
+        ("rows read", info.rows_read), ("rows used", used), ("rows not used", info.rows_read - used),
+        ("hidden rows (used)", info.hidden_rows), ("hidden columns (used)", info.hidden_columns),
+        ("date/time columns", ", ".join(info.date_columns) + " (as days since the group's earliest date)"
+         if info.date_columns else "(none)"),
+        ("groups", len(groups)), ("groups fitted", int(fit.fitted_ok.sum())),
+        ("groups not fitted", int((~fit.fitted_ok).sum())),
+        ("groups flagged", int((groups["flags"] > 0).sum())),
+        ("response", job.y), ("terms", ", ".join(job.x)),
+        ("intercept", "yes" if job.intercept else "no"),
+    ]
+    rows += [(f"warning {i + 1}", w) for i, w in enumerate(info.warnings)]
+    rows += [(f"setting: {k}", v) for k, v in job.settings_rows()]
+    rows += [
+        ("sheetfit", __version__), ("python", platform.python_version()),
+        ("numpy", np.__version__), ("pandas", pd.__version__), ("scipy", installed_version("scipy")),
+        ("statsmodels", installed_version("statsmodels")), ("openpyxl", installed_version("openpyxl")),
+        ("xlsxwriter", installed_version("xlsxwriter")),
+        ("run at", time.strftime("%Y-%m-%d %H:%M:%S %Z")),
+    ]
+    return rows
