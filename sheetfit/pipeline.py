@@ -117,7 +117,7 @@ def _check_and_tabulate(obs: Observations, job: FitJob, rows: GroupedRows, fit: 
     covs = robust.robust_covariances(fit, thr, het, dep)
     if thr.inference == "robust" and (het | dep).any():
         f, f_p = robust.robust_model_test(fit, covs, het, dep, inf.f, inf.f_p_value)
-        results = checks.replace_check(results, checks.assumptions.model_f_test(fit, f, f_p))
+        results = checks.replace_check(results, checks.model_f_test(fit, f, f_p))
         judged = verdicts(results, fit.fitted_ok, thr)
     coef_extra, inf = robust.coefficient_extras(fit, inf, het, dep, thr, job.intercept, vifs, covs)
     highlights = checks.influence.row_highlights(fit, rows.codes, thr)
@@ -190,7 +190,7 @@ def fit_job(job: FitJob, progress: ProgressCallback | None = None) -> FitResults
 
 def run_job(job: FitJob, progress: ProgressCallback | None = None) -> tuple[FitResults, Path]:
     """Read, fit and write the results workbook; returns the results and where they went."""
-    from .read.sources import check_path
+    from .read import check_path
     from .report import write_results
     from .report.safe import check_output_path
 

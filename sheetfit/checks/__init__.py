@@ -15,7 +15,7 @@ from ..model.engine import EngineFit
 from ..model.inference import Inference
 from ..terms import Term
 from . import assumptions, collinearity, influence
-from .assumptions import CheckResult
+from .assumptions import CheckResult, model_f_test
 
 VARIANCE_CHECKS = ("breusch_pagan", "white")              # keys of the constant-variance tests
 INDEPENDENCE_CHECKS = ("durbin_watson", "breusch_godfrey")  # keys of the independent-residuals tests

@@ -177,7 +177,7 @@ def _extrapolation(store: ModelStore, g: int, x: np.ndarray) -> str:
 def read_new_rows(path: Path, sheet: str | None) -> tuple[pd.DataFrame, np.ndarray, str]:
     """Cells of one sheet under its first non-empty row (the header): (raw values, source rows, sheet)."""
     from ..read.cells import NO_RESULT, ErrorCell, header_name, is_blank
-    from ..read.sources import open_book, sniff
+    from ..read import open_book, sniff
 
     fmt = sniff(path, MAX_UNPACKED)
     book = open_book(path, fmt)
@@ -234,7 +234,7 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
 
     Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went.
     """
-    from ..read.sources import check_path
+    from ..read import check_path
     from ..report.safe import check_output_path
 
     results_path, new_rows_path = Path(results_path), Path(new_rows_path)

@@ -156,7 +156,7 @@ def _number(v: Any) -> float:
 
 def read_store(path: Path | str) -> ModelStore:
     """The stored models of a results workbook written by `sheetfit fit`."""
-    from ..read.sources import open_book, sniff
+    from ..read import open_book, sniff
 
     path = Path(path)
     fmt = sniff(path, MAX_UNPACKED)
