@@ -2,24 +2,19 @@
 same checks (bench/run.py's loop with all_checks=True). 10,000 groups × 100 rows × 3 inputs, seeded.
 
 The loop is timed on a seeded sample of groups and scaled linearly (stated in the output);
-sheetfit runs on all groups. Run: python bench/fit_ratio.py [--sample 1000] [--repeat 3]
+sheetfit runs on all groups. Run from the project root: python -m bench.fit_ratio [--sample 1000] [--repeat 3]
 """
 
 from __future__ import annotations
 
 import argparse
-import importlib.util
 import statistics
 import time
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-HERE = Path(__file__).resolve().parent
-spec = importlib.util.spec_from_file_location("bench_run", HERE / "run.py")
-bench_run = importlib.util.module_from_spec(spec)
-spec.loader.exec_module(bench_run)
+from bench import run as bench_run
 
 
 def frame(groups: int = 10_000, rows: int = 100, seed: int = 20240501) -> pd.DataFrame:

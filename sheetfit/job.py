@@ -5,7 +5,6 @@ Built from CLI options or a TOML job file (`--job`); CLI options win over the fi
 
 from __future__ import annotations
 
-import dataclasses
 import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -189,8 +188,3 @@ def make_job(settings: dict[str, Any]) -> FitJob:
     except TypeError as exc:
         raise JobError(f"bad setting: {exc}") from None
     return job.validate()
-
-
-def replace(job: FitJob, **changes: Any) -> FitJob:
-    """A copy of the job with some settings changed (validated)."""
-    return dataclasses.replace(job, **changes).validate()
