@@ -85,3 +85,24 @@ def test_integer_inputs_do_not_overflow_in_powers():
                           "y", ["a", "b", "c", "d"], True)
     assert res.groups["status"].iloc[0] == "fitted"
     assert_close(res.groups["R²"].iloc[0], ref.rsquared, rtol=1e-7)
+
+
+def test_a_collinear_group_in_a_batch_with_fittable_groups():
+    # Groups of similar size share a batch; dropping the collinear one must leave the others
+    # exactly as they are fitted without it (and fitted as statsmodels fits them).
+    rng = np.random.default_rng(5)
+    a = rng.normal(size=8)
+    coll = pd.DataFrame({"grp": "coll", "a": a, "b": 2 * a + 1})
+    good = [pd.DataFrame({"grp": f"ok{i}", "a": rng.normal(size=n), "b": rng.normal(size=n)})
+            for i, n in enumerate((8, 9))]
+    frame = pd.concat([coll, *good], ignore_index=True)
+    frame["y"] = rng.normal(size=len(frame))
+    res = sheetfit.fit_frame(frame, y="y", x=["a", "b"], group="grp")
+    alone = sheetfit.fit_frame(frame[frame["grp"] != "coll"], y="y", x=["a", "b"], group="grp")
+    status = dict(zip(res.groups["grp"], res.groups["status"]))
+    assert status == {"coll": "not fitted", "ok0": "fitted", "ok1": "fitted"}
+    ours = res.coefficients[res.coefficients["grp"] != "coll"]["estimate"].to_numpy()
+    np.testing.assert_array_equal(ours, alone.coefficients["estimate"].to_numpy())
+    for g, sub in frame[frame["grp"] != "coll"].groupby("grp"):
+        ref = statsmodels_fit(sub, "y", ["a", "b"], True)                  # statsmodels OLS
+        assert_close(res.coefficients[res.coefficients["grp"] == g]["estimate"], ref.params, what="params")

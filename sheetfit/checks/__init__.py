@@ -1,5 +1,8 @@
 """Check and flag: assumption tests, influence, collinearity and robust errors; verdicts adjusted across groups.
 
+One module per family of checks (fit_quality, normality, variance, independence, linear_form,
+influence, collinearity), each returning `CheckResult`s (result.py); robust.py has the std errors
+shown where variance or independence fails; verdicts.py turns results into pass/fail.
 `run_checks` is the one list of checks every run applies, in the order the checks sheet shows them.
 """
 
@@ -14,11 +17,37 @@ from ..job import Thresholds
 from ..model.engine import EngineFit
 from ..model.inference import Inference
 from ..terms import Term
-from . import assumptions, collinearity, influence
-from .assumptions import CheckResult, model_f_test
+from . import (
+    collinearity,
+    fit_quality,
+    independence,
+    influence,
+    linear_form,
+    normality,
+    robust,
+    variance,
+    verdicts,
+)
+from .fit_quality import model_f_test
+from .result import CheckResult
 
-VARIANCE_CHECKS = ("breusch_pagan", "white")              # keys of the constant-variance tests
-INDEPENDENCE_CHECKS = ("durbin_watson", "breusch_godfrey")  # keys of the independent-residuals tests
+__all__ = [
+    "INDEPENDENCE_CHECKS",
+    "VARIANCE_CHECKS",
+    "CheckResult",
+    "RowsInOrder",
+    "collinearity",
+    "influence",
+    "model_f_test",
+    "replace_check",
+    "robust",
+    "run_checks",
+    "statistic_of",
+    "verdicts",
+]
+
+VARIANCE_CHECKS = (variance.BREUSCH_PAGAN, variance.WHITE)                      # constant-variance tests
+INDEPENDENCE_CHECKS = (independence.DURBIN_WATSON, independence.BREUSCH_GODFREY)  # independent-residuals tests
 
 
 @dataclass(frozen=True)
@@ -35,16 +64,16 @@ def run_checks(fit: EngineFit, inf: Inference, rows: RowsInOrder, terms: Sequenc
     """Every check of a run, and the VIF of each coefficient (G, p) that the collinearity check used."""
     vifs = collinearity.vif(fit)
     results = [
-        assumptions.model_f_test(fit, inf.f, inf.f_p_value),
-        assumptions.r_squared(fit, inf.r2, thr.min_r2),
-        assumptions.enough_rows(fit, thr.rows_per_coefficient),
-        assumptions.jarque_bera(fit),
-        assumptions.shapiro_wilk(fit),
-        assumptions.breusch_pagan(fit),
-        assumptions.white(fit, terms),
-        assumptions.durbin_watson(fit, rows.order_note),
-        assumptions.breusch_godfrey(fit, thr.bg_lags, rows.order_note),
-        assumptions.reset(fit),
+        fit_quality.model_f_test(fit, inf.f, inf.f_p_value),
+        fit_quality.r_squared(fit, inf.r2, thr.min_r2),
+        fit_quality.enough_rows(fit, thr.rows_per_coefficient),
+        normality.jarque_bera(fit),
+        normality.shapiro_wilk(fit),
+        variance.breusch_pagan(fit),
+        variance.white(fit, terms),
+        independence.durbin_watson(fit, rows.order_note),
+        independence.breusch_godfrey(fit, thr.bg_lags, rows.order_note),
+        linear_form.reset(fit),
         influence.outlier_test(fit, rows.codes, rows.source_rows),
         influence.cooks_check(fit, rows.codes, rows.source_rows),
         influence.leverage_one(fit, rows.codes, rows.source_rows),

@@ -5,7 +5,10 @@ from __future__ import annotations
 import numpy as np
 
 from ..model.engine import EngineFit
-from .assumptions import CheckResult
+from .result import CheckResult
+
+VIF = "vif"
+CONDITION = "condition"
 
 
 def vif(fit: EngineFit) -> np.ndarray:
@@ -44,6 +47,7 @@ def condition_number(fit: EngineFit) -> np.ndarray:
 
 def collinearity_checks(fit: EngineFit, vifs: np.ndarray, vif_max: float,
                         condition_max: float, labels: list[str]) -> list[CheckResult]:
+    """The largest VIF per group (and which input has it) and the condition number, against their limits."""
     G = fit.n_groups
     off = 1 if fit.intercept else 0
     many = fit.p - off >= 2
@@ -68,10 +72,10 @@ def collinearity_checks(fit: EngineFit, vifs: np.ndarray, vif_max: float,
     else:
         note_c[fit.fitted_ok] = "columns scaled to unit length, intercept included"
     return [
-        CheckResult("vif", "collinearity (VIF)", "above", vmax, None, np.full(G, vif_max), note_v,
+        CheckResult(VIF, "collinearity (VIF)", "above", vmax, None, np.full(G, vif_max), note_v,
                     "inputs move together, so their separate effects are uncertain ({extra} VIF {stat} > {thr})",
                     extra),
-        CheckResult("condition", "collinearity (condition number)", "above", cond, None,
+        CheckResult(CONDITION, "collinearity (condition number)", "above", cond, None,
                     np.full(G, condition_max), note_c,
                     "the inputs are nearly redundant as a set (condition number {stat} > {thr})"),
     ]

@@ -12,7 +12,11 @@ from scipy import stats
 
 from ..job import Thresholds
 from ..model.engine import LEVERAGE_ONE_TOL, EngineFit
-from .assumptions import CheckResult
+from .result import CheckResult
+
+OUTLIER = "outlier"
+COOKS = "cooks"
+LEVERAGE_ONE = "leverage_one"
 
 
 def row_highlights(fit: EngineFit, codes: np.ndarray, thr: Thresholds) -> dict[str, np.ndarray]:
@@ -68,7 +72,7 @@ def outlier_test(fit: EngineFit, codes: np.ndarray, source_rows: np.ndarray) -> 
             note[g] = f"most extreme row: {extra[g]}; p-value is Bonferroni-adjusted within the group (× n)"
         else:
             note[g] = "studentized residuals undefined (too few rows or perfect fit)"
-    return CheckResult("outlier", "outlier (Bonferroni)", "p_small", tmax, p_bonf,
+    return CheckResult(OUTLIER, "outlier (Bonferroni)", "p_small", tmax, p_bonf,
                        np.full(G, np.nan), note,
                        "one row lies far from the fitted line ({extra}, studentized residual {stat}, "
                        "Bonferroni {p})", extra)
@@ -88,7 +92,7 @@ def cooks_check(fit: EngineFit, codes: np.ndarray, source_rows: np.ndarray) -> C
             note[g] = f"largest at {extra[g]}; threshold is the median of F(p, n−p)"
         else:
             note[g] = "Cook's distance undefined (perfect fit or leverage 1)"
-    return CheckResult("cooks", "influence (Cook's distance)", "above", dmax, None, cut, note,
+    return CheckResult(COOKS, "influence (Cook's distance)", "above", dmax, None, cut, note,
                        "one row moves the whole fit ({extra}, Cook's distance {stat} > {thr})", extra)
 
 
@@ -101,7 +105,7 @@ def leverage_one(fit: EngineFit, codes: np.ndarray, source_rows: np.ndarray) -> 
     for g in np.flatnonzero(fit.fitted_ok):
         extra[g] = f"source row {int(source_rows[where[g]])}"
         note[g] = f"largest leverage at {extra[g]}"
-    return CheckResult("leverage_one", "single-row leverage", "above", hmax, None,
+    return CheckResult(LEVERAGE_ONE, "single-row leverage", "above", hmax, None,
                        np.full(G, 1.0 - LEVERAGE_ONE_TOL), note,
                        "a single row alone fixes a coefficient ({extra} has leverage 1: its residual "
                        "is zero and its Cook's distance undefined)", extra)

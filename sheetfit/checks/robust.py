@@ -82,8 +82,6 @@ def hac_cov(fit: EngineFit, lags: int | None, only: np.ndarray | None = None) ->
 def wald_f(fit: EngineFit, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """F = b'V⁻¹b / q of all slopes (the intercept excluded) with covariance `cov`, and its p-value
     from F(q, n − p)."""
-    from scipy import stats
-
     off = 1 if fit.intercept else 0
     q = fit.p - off
     b = fit.beta[:, off:]

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from ..job import Thresholds
-from .assumptions import CheckResult
+from .result import CheckResult
 
 
 def adjust_pvalues(p: np.ndarray, method: str) -> np.ndarray:

@@ -2,20 +2,19 @@
 
 Groups are padded into 3-D arrays (zero rows change no least-squares solution) and solved
 together by QR. Each group's design is first expressed in a well-conditioned working basis
-W (inputs centred and scaled; a polynomial family 1, x, …, x^K is built from x scaled to
-[−1, 1]) with X = W·T, so coefficients and covariance convert back exactly:
+W with X = W·T (see basis.py), so coefficients and covariance convert back exactly:
 β = T⁻¹γ and (X'X)⁻¹ = (RT)⁻¹(RT)⁻ᵀ. X'X is never formed or inverted.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
-from math import comb
+from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..terms import Term, coefficient_labels, polynomial_family
+from ..terms import Term, coefficient_labels
+from .basis import from_working, raw_residual, triangular_order, working_design
 
 COLLINEAR_TOL = 1e-10       # |R_jj| / ‖W_j‖ below this: column j is a combination of the others
 LEVERAGE_ONE_TOL = 1e-10    # leverage within this of 1: the row alone fixes a coefficient
@@ -109,55 +108,6 @@ def _pad(values: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarray:
     return out
 
 
-def _working_design(cols: Mapping[str, np.ndarray], mask: np.ndarray, n: np.ndarray,
-                    terms: Sequence[Term], intercept: bool) -> tuple[np.ndarray, np.ndarray]:
-    """Working basis W (G, m, p) and T (G, p, p) with X = W·T for a batch."""
-    G, m = mask.shape
-    off = 1 if intercept else 0
-    p = len(terms) + off
-    W = np.zeros((G, m, p))
-    T = np.zeros((G, p, p))
-    maskf = mask.astype(np.float64)
-    if intercept:
-        W[:, :, 0] = maskf
-        T[:, 0, 0] = 1.0
-    nn = n.astype(np.float64)[:, None]
-    family_z: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
-    for term in terms:
-        col = term.column
-        if intercept and col not in family_z and polynomial_family(terms, col):
-            x = cols[col]
-            hi = np.where(mask, x, -np.inf).max(axis=1)
-            lo = np.where(mask, x, np.inf).min(axis=1)
-            c, s = (hi + lo) / 2.0, (hi - lo) / 2.0
-            z = (x - c[:, None]) / s[:, None] * maskf
-            family_z[col] = (z, c, s)
-    for j, term in enumerate(terms):
-        k = off + j
-        if term.column in family_z and term.kind in ("column", "power"):
-            z, c, s = family_z[term.column]
-            W[:, :, k] = z**term.power
-            index_of_power = {t.power: off + i for i, t in enumerate(terms)
-                              if t.column == term.column and t.kind in ("column", "power")}
-            index_of_power[0] = 0
-            for i in range(term.power + 1):
-                T[:, index_of_power[i], k] = comb(term.power, i) * c ** (term.power - i) * s**i
-            continue
-        r = term.values(cols[term.column]) * maskf
-        if intercept:
-            mu = r.sum(axis=1, keepdims=True) / nn
-            sd = np.sqrt((((r - mu) * maskf) ** 2).sum(axis=1, keepdims=True) / nn)
-        else:
-            mu = np.zeros((G, 1))
-            sd = np.sqrt((r**2).sum(axis=1, keepdims=True) / nn)
-        sd = np.where(sd > 0, sd, 1.0)
-        W[:, :, k] = (r - mu) / sd * maskf
-        T[:, k, k] = sd[:, 0]
-        if intercept:
-            T[:, 0, k] = mu[:, 0]
-    return W, T
-
-
 def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray, n_groups: int,
                terms: Sequence[Term], intercept: bool) -> EngineFit:
     """Fit y on the terms for every group at once.
@@ -166,153 +116,158 @@ def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray,
     source columns (float64, finite) the terms need, aligned with y.
     """
     y = np.asarray(y, dtype=np.float64)
-    N = len(y)
     p = len(terms) + (1 if intercept else 0)
     starts, counts = group_bounds(codes, n_groups)
+    reason = _reasons_before_solving(cols, terms, starts, counts, n_groups, p, intercept)
+    out = _Collected.empty(n_groups, p, len(y))
+    for ids in _batches(counts, reason == ""):
+        solved = _fit_batch(y, cols, starts, counts, ids, terms, intercept, reason)
+        if solved is not None:
+            out.add(*solved, p=p, intercept=intercept)
+    return _engine_fit(out, reason, codes, counts, n_groups, p, intercept)
+
+
+def _reasons_before_solving(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,
+                            counts: np.ndarray, n_groups: int, p: int, intercept: bool) -> np.ndarray:
+    """Why each group cannot be fitted, as far as is known before solving ('' where it may be)."""
     reason = np.full(n_groups, "", dtype=object)
     too_few = counts <= p
     for g in np.flatnonzero(too_few):
         reason[g] = (f"only {counts[g]} usable row{'s' if counts[g] != 1 else ''} for {p} "
                      f"coefficient{'s' if p != 1 else ''}; at least {p + 1} are needed")
     _constant_inputs(cols, terms, starts, counts, intercept, reason, ~too_few)
-    eligible = reason == ""
+    return reason
 
-    beta = np.full((n_groups, p), np.nan)
-    se = np.full((n_groups, p), np.nan)
-    xtx_inv = np.full((n_groups, p, p), np.nan)
-    rss = np.full(n_groups, np.nan)
-    tss = np.full(n_groups, np.nan)
-    ymean = np.full(n_groups, np.nan)
-    fitted = np.full(N, np.nan)
-    resid = np.full(N, np.nan)
-    leverage = np.full(N, np.nan)
-    batches: list[Batch] = []
 
-    for ids in _batches(counts, eligible):
-        m = int(counts[ids].max())
-        offs = np.arange(m)[None, :]
-        mask = offs < counts[ids][:, None]
-        rows = np.where(mask, starts[ids][:, None] + offs, -1)
-        yp = _pad(y, rows, mask)
-        colp = {c: _pad(np.asarray(v, dtype=np.float64), rows, mask) for c, v in cols.items()}
-        n = counts[ids]
-        W, T = _working_design(colp, mask, n, terms, intercept)
-        order = _triangular_order(terms, intercept)
-        Q, R = np.linalg.qr(W)
-        colnorm = np.sqrt((W**2).sum(axis=1))
-        diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            ratio = diag / np.where(colnorm > 0, colnorm, 1.0)
-        bad = (ratio < COLLINEAR_TOL).any(axis=1)
-        if bad.any():
-            labels = coefficient_labels(terms, intercept)
-            for gi in np.flatnonzero(bad):
-                j = int(np.argmax(ratio[gi] < COLLINEAR_TOL))
-                reason[ids[gi]] = (f"{labels[j]} is an exact linear combination of the other "
-                                   f"terms in this group (exact collinearity)")
-            keep = ~bad
-            if not keep.any():
-                continue
-            ids, mask, rows, yp, n, W, T, Q, R = (a[keep] for a in (ids, mask, rows, yp, n, W, T, Q, R))
-        qty = np.einsum("gmk,gm->gk", Q, yp)
-        gamma = np.linalg.solve(R, qty[..., None])[..., 0]
-        fit = np.einsum("gmk,gk->gm", Q, qty)
-        e = (yp - fit) * mask
-        eye = np.broadcast_to(np.eye(p), R.shape)
-        rinv = np.linalg.solve(R, eye)
-        b = _from_working(T, gamma[..., None], order)[..., 0]
-        # One step of iterative refinement with the residual taken in the raw basis in
-        # extended precision recovers digits lost between the working and the raw basis.
-        # The refined fit's residual is r minus the projection of r, so it needs no second pass.
-        r = _raw_residual(colp, yp, mask, terms, intercept, b)
-        qtr = np.einsum("gmk,gm->gk", Q, r)
-        b = b + _from_working(T, np.linalg.solve(R, qtr[..., None]), order)[..., 0]
-        e = r - np.einsum("gmk,gk->gm", Q, qtr)
-        fit = (yp - e) * mask
-        A = _from_working(T, rinv, order)
-        h = (Q**2).sum(axis=2)
-        r_ss = (e**2).sum(axis=1)
-        xi = A @ np.swapaxes(A, 1, 2)
+def _pad_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray, counts: np.ndarray,
+               ids: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+    """A batch's rows padded to its largest group: mask, row indices, y and source columns."""
+    m = int(counts[ids].max())
+    offs = np.arange(m)[None, :]
+    mask = offs < counts[ids][:, None]
+    rows = np.where(mask, starts[ids][:, None] + offs, -1)
+    yp = _pad(y, rows, mask)
+    colp = {c: _pad(np.asarray(v, dtype=np.float64), rows, mask) for c, v in cols.items()}
+    return mask, rows, yp, colp
+
+
+def _fit_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray, counts: np.ndarray,
+               ids: np.ndarray, terms: Sequence[Term], intercept: bool, reason: np.ndarray
+               ) -> tuple[Batch, np.ndarray, np.ndarray, np.ndarray] | None:
+    """Pad and factor one batch, drop its exactly collinear groups (reasons set), solve the rest."""
+    mask, rows, yp, colp = _pad_batch(y, cols, starts, counts, ids)
+    n = counts[ids]
+    W, T = working_design(colp, mask, n, terms, intercept)
+    Q, R = np.linalg.qr(W)
+    bad = _exactly_collinear(W, R, ids, terms, intercept, reason)
+    if bad.any():
+        keep = ~bad
+        if not keep.any():
+            return None
+        ids, mask, rows, yp, n, W, T, Q, R = (a[keep] for a in (ids, mask, rows, yp, n, W, T, Q, R))
+        colp = {c: v[keep] for c, v in colp.items()}
+    return _solve_batch(ids, rows, mask, n, W, T, Q, R, yp, colp, terms, intercept)
+
+
+def _exactly_collinear(W: np.ndarray, R: np.ndarray, ids: np.ndarray, terms: Sequence[Term],
+                       intercept: bool, reason: np.ndarray) -> np.ndarray:
+    """(G,) bool: the batch's groups with a column that combines the others exactly; their reasons are set."""
+    colnorm = np.sqrt((W**2).sum(axis=1))
+    diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = diag / np.where(colnorm > 0, colnorm, 1.0)
+    bad = (ratio < COLLINEAR_TOL).any(axis=1)
+    if bad.any():
+        labels = coefficient_labels(terms, intercept)
+        for gi in np.flatnonzero(bad):
+            j = int(np.argmax(ratio[gi] < COLLINEAR_TOL))
+            reason[ids[gi]] = (f"{labels[j]} is an exact linear combination of the other "
+                               f"terms in this group (exact collinearity)")
+    return bad
+
+
+def _solve_batch(ids: np.ndarray, rows: np.ndarray, mask: np.ndarray, n: np.ndarray, W: np.ndarray,
+                 T: np.ndarray, Q: np.ndarray, R: np.ndarray, yp: np.ndarray, colp: Mapping[str, np.ndarray],
+                 terms: Sequence[Term], intercept: bool) -> tuple[Batch, np.ndarray, np.ndarray, np.ndarray]:
+    """Least squares of a factored batch, refined once: the batch, β (G, p), (X'X)⁻¹ and fitted values."""
+    p = R.shape[-1]
+    order = triangular_order(terms, intercept)
+    qty = np.einsum("gmk,gm->gk", Q, yp)
+    gamma = np.linalg.solve(R, qty[..., None])[..., 0]
+    eye = np.broadcast_to(np.eye(p), R.shape)
+    rinv = np.linalg.solve(R, eye)
+    b = from_working(T, gamma[..., None], order)[..., 0]
+    # One step of iterative refinement with the residual taken in the raw basis in
+    # extended precision recovers digits lost between the working and the raw basis.
+    # The refined fit's residual is r minus the projection of r, so it needs no second pass.
+    r = raw_residual(colp, yp, mask, terms, intercept, b)
+    qtr = np.einsum("gmk,gm->gk", Q, r)
+    b = b + from_working(T, np.linalg.solve(R, qtr[..., None]), order)[..., 0]
+    e = r - np.einsum("gmk,gk->gm", Q, qtr)
+    fit = (yp - e) * mask
+    A = from_working(T, rinv, order)
+    h = (Q**2).sum(axis=2)
+    r_ss = (e**2).sum(axis=1)
+    xi = A @ np.swapaxes(A, 1, 2)
+    batch = Batch(groups=ids, rows=rows, mask=mask, n=n, W=W, T=T, Q=Q, R=R, A=A,
+                  y=yp, resid=e, leverage=h, rss=r_ss)
+    return batch, b, xi, fit
+
+
+@dataclass
+class _Collected:
+    """The engine's output arrays, NaN until a solved batch fills its groups and rows."""
+
+    beta: np.ndarray
+    se: np.ndarray
+    xtx_inv: np.ndarray
+    rss: np.ndarray
+    tss: np.ndarray
+    ymean: np.ndarray
+    fitted: np.ndarray
+    resid: np.ndarray
+    leverage: np.ndarray
+    batches: list[Batch] = field(default_factory=list)
+
+    @classmethod
+    def empty(cls, n_groups: int, p: int, N: int) -> _Collected:
+        """All-NaN arrays for G groups, p coefficients and N engine rows."""
+        return cls(beta=np.full((n_groups, p), np.nan), se=np.full((n_groups, p), np.nan),
+                   xtx_inv=np.full((n_groups, p, p), np.nan), rss=np.full(n_groups, np.nan),
+                   tss=np.full(n_groups, np.nan), ymean=np.full(n_groups, np.nan),
+                   fitted=np.full(N, np.nan), resid=np.full(N, np.nan), leverage=np.full(N, np.nan))
+
+    def add(self, batch: Batch, b: np.ndarray, xi: np.ndarray, fit: np.ndarray, *, p: int,
+            intercept: bool) -> None:
+        """Store a solved batch's per-group and per-row results."""
+        ids, mask, rows, yp, n, r_ss = batch.groups, batch.mask, batch.rows, batch.y, batch.n, batch.rss
         df = n - p
         s2 = r_ss / df
-        beta[ids] = b
-        se[ids] = np.sqrt(s2[:, None] * np.diagonal(xi, axis1=1, axis2=2))
-        xtx_inv[ids] = xi
-        rss[ids] = r_ss
+        self.beta[ids] = b
+        self.se[ids] = np.sqrt(s2[:, None] * np.diagonal(xi, axis1=1, axis2=2))
+        self.xtx_inv[ids] = xi
+        self.rss[ids] = r_ss
         ym = (yp.sum(axis=1)) / n
-        ymean[ids] = ym
-        tss[ids] = (((yp - ym[:, None]) * mask) ** 2).sum(axis=1) if intercept else (yp**2).sum(axis=1)
+        self.ymean[ids] = ym
+        self.tss[ids] = (((yp - ym[:, None]) * mask) ** 2).sum(axis=1) if intercept else (yp**2).sum(axis=1)
         flat = rows[mask]
-        fitted[flat] = fit[mask]
-        resid[flat] = e[mask]
-        leverage[flat] = h[mask]
-        batches.append(Batch(groups=ids, rows=rows, mask=mask, n=n, W=W, T=T, Q=Q, R=R, A=A,
-                             y=yp, resid=e, leverage=h, rss=r_ss))
+        self.fitted[flat] = fit[mask]
+        self.resid[flat] = batch.resid[mask]
+        self.leverage[flat] = batch.leverage[mask]
+        self.batches.append(batch)
 
+
+def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: np.ndarray,
+                n_groups: int, p: int, intercept: bool) -> EngineFit:
+    """The EngineFit from the collected arrays, with the row influence measures they imply."""
     ok = reason == ""
     df_resid = (counts - p).astype(np.float64)
-    internal, external, cooks = _influence(resid, leverage, codes, rss, df_resid, p)
+    internal, external, cooks = _influence(out.resid, out.leverage, codes, out.rss, df_resid, p)
     return EngineFit(n_groups=n_groups, p=p, intercept=intercept, fitted_ok=ok,
-                     not_fitted_reason=reason, n=counts, beta=beta, se=se, xtx_inv=xtx_inv,
-                     rss=rss, tss=tss, df_resid=df_resid, ymean=ymean, fitted=fitted, resid=resid,
-                     leverage=leverage, studentized=external, internal=internal, cooks=cooks,
-                     batches=tuple(batches))
-
-
-def _solve_back(R: np.ndarray, T: np.ndarray, qty: np.ndarray) -> np.ndarray:
-    """β = T⁻¹ R⁻¹ Qᵀy for a batch."""
-    gamma = np.linalg.solve(R, qty[..., None])
-    return np.linalg.solve(T, gamma)[..., 0]
-
-
-def _raw_design(colp: Mapping[str, np.ndarray], mask: np.ndarray, terms: Sequence[Term],
-                intercept: bool) -> np.ndarray:
-    """The design X in the raw basis for a padded batch (zeros on padding)."""
-    maskf = mask.astype(np.float64)
-    parts = [maskf] if intercept else []
-    parts += [np.where(mask, term.values(colp[term.column]), 0.0) for term in terms]
-    return np.stack(parts, axis=2)
-
-
-def _raw_residual(colp: Mapping[str, np.ndarray], yp: np.ndarray, mask: np.ndarray,
-                  terms: Sequence[Term], intercept: bool, b: np.ndarray) -> np.ndarray:
-    """y − Xβ in long double from the raw source values (zeros on padding)."""
-    acc = yp.astype(np.longdouble)
-    if intercept:
-        acc -= b[:, :1].astype(np.longdouble)
-    off = 1 if intercept else 0
-    for j, term in enumerate(terms):
-        x = term.values(colp[term.column]) if term.kind in ("log", "sqrt") else None
-        if x is None:
-            x = colp[term.column].astype(np.longdouble) ** term.power
-        acc -= x * b[:, off + j : off + j + 1].astype(np.longdouble)
-    return np.where(mask, acc, 0.0).astype(np.float64)
-
-
-def _triangular_order(terms: Sequence[Term], intercept: bool) -> np.ndarray:
-    """Column order that makes every T upper triangular (intercept, then by power)."""
-    keys = ([-1] if intercept else []) + [t.power if t.kind in ("column", "power") else 0
-                                         for t in terms]
-    return np.argsort(np.array(keys), kind="stable")
-
-
-def _from_working(T: np.ndarray, B: np.ndarray, order: np.ndarray) -> np.ndarray:
-    """Solve T·X = B for a batch by back substitution in extended precision.
-
-    T is upper triangular after permuting rows and columns by `order`; its entries (binomial
-    shifts of a polynomial family) can be large, so the conversion from the working basis to
-    the raw coefficients runs in long double to keep the last digits.
-    """
-    Tp = T[:, order][:, :, order].astype(np.longdouble)
-    Bp = B[:, order].astype(np.longdouble)
-    p = Tp.shape[1]
-    X = np.zeros_like(Bp)
-    for i in range(p - 1, -1, -1):
-        acc = Bp[:, i] - np.einsum("gk,gk...->g...", Tp[:, i, i + 1:], X[:, i + 1:])
-        X[:, i] = acc / Tp[:, i, i][:, None]
-    out = np.empty(B.shape, dtype=np.float64)
-    out[:, order] = X.astype(np.float64)
-    return out
+                     not_fitted_reason=reason, n=counts, beta=out.beta, se=out.se, xtx_inv=out.xtx_inv,
+                     rss=out.rss, tss=out.tss, df_resid=df_resid, ymean=out.ymean, fitted=out.fitted,
+                     resid=out.resid, leverage=out.leverage, studentized=external, internal=internal,
+                     cooks=cooks, batches=tuple(out.batches))
 
 
 def _constant_inputs(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,

@@ -31,7 +31,7 @@ class Inference:
     bic: np.ndarray
     df_model: np.ndarray
 
-    def with_std_errors(self, beta: np.ndarray, se: np.ndarray, df_resid: np.ndarray) -> "Inference":
+    def with_std_errors(self, beta: np.ndarray, se: np.ndarray, df_resid: np.ndarray) -> Inference:
         """The same metrics with t, p-values and intervals taken from other std errors (robust ones)."""
         with np.errstate(invalid="ignore", divide="ignore"):
             t = beta / se

@@ -1,0 +1,43 @@
+"""Auxiliary regressions behind the n·R² and F tests: R² of residuals (or y) on extra columns, per group of a batch."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..model.engine import Batch
+
+AUX_TOL = 1e-9   # relative |R_jj| below this in an auxiliary regression: column redundant
+
+
+def aux_r2(Z: np.ndarray, u: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centred R², residual sum of squares and a rank-ok flag of u on Z (Z holds a constant)."""
+    if Z.shape[2] > Z.shape[1]:       # more columns than rows in every group: nothing to estimate
+        G = Z.shape[0]
+        return np.full(G, np.nan), np.full(G, np.nan), np.zeros(G, dtype=bool)
+    Q, R = np.linalg.qr(Z)
+    norm = np.sqrt((Z**2).sum(axis=1))
+    diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ok = ~((diag / np.where(norm > 0, norm, 1.0)) < AUX_TOL).any(axis=1)
+    r2, rss = projection_r2(Q, u, mask)
+    return r2, rss, ok
+
+
+def projection_r2(Q: np.ndarray, u: np.ndarray, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Centred R² and residual sum of squares of u on the columns of Q (orthonormal, spanning a constant)."""
+    fitted = np.einsum("gmk,gk->gm", Q, np.einsum("gmk,gm->gk", Q, u))
+    n = mask.sum(axis=1)
+    resid = (u - fitted) * mask
+    rss = (resid**2).sum(axis=1)
+    ubar = (u * mask).sum(axis=1) / n
+    tss = (((u - ubar[:, None]) * mask) ** 2).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r2 = 1.0 - rss / tss
+    return r2, rss
+
+
+def with_constant(b: Batch, intercept: bool) -> np.ndarray:
+    """The working design with a constant column in front when the model has none."""
+    if intercept:
+        return b.W
+    return np.concatenate([b.mask[:, :, None].astype(np.float64), b.W], axis=2)

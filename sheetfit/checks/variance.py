@@ -1,0 +1,91 @@
+"""Constant variance: Breusch–Pagan (Koenker) and White, n·R² of squared residuals on the inputs.
+
+A failure here is what makes the run show heteroscedasticity-consistent (HC) std errors.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+from scipy import stats
+
+from ..model.engine import EngineFit
+from ..terms import Term, polynomial_family
+from .auxiliary import aux_r2, projection_r2, with_constant
+from .result import CheckResult, empty_arrays
+
+BREUSCH_PAGAN = "breusch_pagan"
+WHITE = "white"
+
+
+def breusch_pagan(fit: EngineFit) -> CheckResult:
+    """Koenker's studentized form: n·R² of squared residuals on the model's inputs."""
+    stat, pval, note = empty_arrays(fit.n_groups)
+    for b in fit.batches:
+        if fit.intercept:       # the model's own design holds the constant: reuse its QR
+            k = b.Q.shape[2]
+            r2, _ = projection_r2(b.Q, b.resid**2, b.mask)
+            ok = np.ones(len(b.groups), dtype=bool)
+        else:
+            Z = with_constant(b, fit.intercept)
+            k = Z.shape[2]
+            r2, _, ok = aux_r2(Z, b.resid**2, b.mask)
+        lm = b.n * r2
+        bad = ~ok | ~np.isfinite(lm)
+        lm[bad] = np.nan
+        note[b.groups[bad]] = "squared residuals do not vary (perfect fit or too few rows)"
+        stat[b.groups] = lm
+        pval[b.groups] = stats.chi2.sf(lm, k - 1)
+    return CheckResult(BREUSCH_PAGAN, "constant variance (Breusch–Pagan)", "p_small", stat, pval,
+                       np.full(fit.n_groups, np.nan), note,
+                       "spread of residuals changes with the inputs (Breusch–Pagan, {p})")
+
+
+def white_columns(terms: Sequence[Term], intercept: bool) -> list[tuple[int, int]]:
+    """Pairs (i, j) of design columns, with a constant at index 0, whose products are distinct.
+
+    Products that are the same monomial (x·x² and x³ in a polynomial family) are kept once.
+    """
+    base: list[dict[str, float]] = [{}]
+    for j, t in enumerate(terms):
+        family = polynomial_family(terms, t.column) if intercept else None
+        if family and t.kind in ("column", "power"):
+            base.append({f"z:{t.column}": float(t.power)})
+        else:
+            base.append({f"t:{j}": 1.0})
+    seen: set[tuple] = set()
+    pairs: list[tuple[int, int]] = []
+    for i in range(len(base)):
+        for j in range(i, len(base)):
+            mono = dict(base[i])
+            for k, v in base[j].items():
+                mono[k] = mono.get(k, 0.0) + v
+            key = tuple(sorted(mono.items()))
+            if key not in seen:
+                seen.add(key)
+                pairs.append((i, j))
+    return pairs
+
+
+def white(fit: EngineFit, terms: Sequence[Term]) -> CheckResult:
+    """n·R² of squared residuals on the inputs, their squares and cross-products."""
+    stat, pval, note = empty_arrays(fit.n_groups)
+    pairs = white_columns(terms, fit.intercept)
+    k = len(pairs)
+    for b in fit.batches:
+        Z0 = with_constant(b, fit.intercept)
+        Z = np.stack([Z0[:, :, i] * Z0[:, :, j] for i, j in pairs], axis=2)
+        small = b.n <= k
+        r2, _, ok = aux_r2(Z, b.resid**2, b.mask)
+        lm = b.n * r2
+        bad = small | ~ok | ~np.isfinite(lm)
+        lm[bad] = np.nan
+        for gi in np.flatnonzero(bad):
+            note[b.groups[gi]] = (f"White's test needs more than {k} rows; this group has {b.n[gi]}"
+                                  if small[gi] else "squared residuals do not vary or products are redundant")
+        stat[b.groups] = lm
+        pval[b.groups] = stats.chi2.sf(lm, k - 1)
+    return CheckResult(WHITE, "constant variance (White)", "p_small", stat, pval,
+                       np.full(fit.n_groups, np.nan), note,
+                       "spread of residuals changes with the inputs or their squares (White, {p})")
