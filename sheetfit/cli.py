@@ -404,7 +404,7 @@ def predict(
       sheetfit predict usage-fit.xlsx plan.xlsx --sheet Plan --out plan-predicted.xlsx
     """
     with error_boundary(debug):
-        from .prediction.compute import predict_workbook
+        from .pipeline import predict_workbook
 
         path = predict_workbook(results_workbook, new_rows, sheet, out, overwrite)
         typer.echo(f"predictions: {path}")

@@ -221,3 +221,34 @@ def summary_lines(results: FitResults) -> list[str]:
     lines.append(f"{results.info.rows_read} rows read: {used} used, {results.info.rows_read - used} not used "
                  f"(reasons on the observations sheet)")
     return lines
+
+
+def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None, out: Path | None,
+                     overwrite: bool) -> Path:
+    """Apply the models stored in a results workbook to a sheet of new rows; write a predictions workbook.
+
+    Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went.
+    """
+    from .errors import OutputError
+    from .prediction.compute import predict_cells
+    from .prediction.new_rows import inputs_as_numbers, read_new_rows
+    from .read import check_path
+    from .report.predictions import write_predictions
+    from .report.safe import check_output_path
+    from .results.store import read_store
+
+    results_path, new_rows_path = Path(results_path), Path(new_rows_path)
+    check_path(new_rows_path)
+    store = read_store(results_path)
+    target = Path(out) if out is not None else new_rows_path.with_name(f"{new_rows_path.stem}-predicted.xlsx")
+    target = check_output_path(new_rows_path, target, overwrite)
+    if target.resolve() == results_path.resolve():
+        raise OutputError(f'output "{target}" is the results workbook; choose another --out')
+    frame, src_rows, sheet_name = read_new_rows(new_rows_path, sheet)
+    raw = {c: frame[c].tolist() for c in (*store.group_columns, *store.sources) if c in frame.columns}
+    preds = predict_cells(store, raw, len(frame))
+    frame = inputs_as_numbers(frame, store.sources)     # inputs read as numbers are written as numbers
+    write_predictions(target, overwrite, store, frame, src_rows, preds,
+                      (("results workbook", results_path.name), ("new rows", new_rows_path.name),
+                       ("sheet", sheet_name)))
+    return target

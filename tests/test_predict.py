@@ -15,9 +15,9 @@ import statsmodels.api as sm
 import sheetfit
 from sheetfit.api import fit_frame
 from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
-from sheetfit.prediction.compute import predict_workbook
+from sheetfit.pipeline import predict_workbook
 from sheetfit.report import fastrows, write_results
-from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results
+from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results, store_layout
 from tests.oracle import curved_groups
 
 ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
@@ -93,6 +93,39 @@ def test_model_store_round_trip_from_the_results_workbook(results, data, tmp_pat
     for g in "ABC":
         rows = from_file["g"] == g
         assert_matches(from_file[rows], oracle(data, g, new[rows], 0.95))
+
+
+def test_store_cells_sit_where_the_shared_layout_says(tmp_path):
+    # One layout places the store's numbers, points the predict sheet's formulas at them and reads them
+    # back; two group columns and no intercept move every column from where the usual case puts it.
+    rng = np.random.default_rng(5)
+    data = pd.DataFrame({"a": rng.choice(["p", "q"], 90), "b": rng.choice([1, 2], 90),
+                         "x": rng.uniform(1, 9, 90), "z": rng.uniform(0, 4, 90)})
+    data["y"] = 1 + 0.5 * data["x"] + data["z"] ** 2 + rng.normal(size=90)
+    res = fit_frame(data, y="y", x=["x", "z^2"], group=["a", "b"], intercept=False)
+    path = write_results(res, tmp_path / "fit.xlsx")
+    direct = store_from_results(res)
+    lay = store_layout(direct)
+    book = openpyxl.load_workbook(path)
+    ws = book["model store"]
+
+    def cell(r, c):
+        return ws.cell(r + 1, c + 1).value
+
+    assert (cell(lay.term_header, 0), cell(lay.group_header, 0)) == ("coefficient", "group")
+    for g in range(len(direct)):
+        r = lay.first + g
+        assert cell(r, 0) == direct.labels[g]
+        assert tuple(cell(r, lay.col_key(j)) for j in range(lay.k)) == direct.keys[g]
+        assert cell(r, lay.col_n()) == direct.n[g]
+        assert cell(r, lay.col_coef(1)) == pytest.approx(direct.beta[g, 1], rel=1e-15)
+        assert cell(r, lay.col_inv(1, 0)) == pytest.approx(direct.xtx_inv[g, 1, 0], rel=1e-15)
+        assert cell(r, lay.col_max(1)) == pytest.approx(direct.hi[g, 1], rel=1e-15)
+    assert f",{lay.col_min(0) + 1})" in book["predict"]["C9"].value
+    back = read_store(path)
+    assert back.keys == direct.keys and not back.intercept and back.group_columns == ("a", "b")
+    for name in ("n", "df", "sigma2", "beta", "xtx_inv", "lo", "hi"):
+        np.testing.assert_allclose(getattr(back, name), getattr(direct, name), rtol=1e-14)
 
 
 def test_extrapolation_names_the_input_outside_the_range(results, data):

@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..results.store import group_label
 from ..results.types import FitResults
 from ..terms import INTERCEPT, source_columns
 
@@ -57,10 +58,6 @@ class ChartPlan:
     overview: list[tuple[str, float, bool]]   # (label, R², flagged), lowest R² first
     overview_start: int = 0
     x_name: str = ""
-
-
-def group_label(values: tuple) -> str:
-    return " · ".join(str(v) for v in values) if values else "all rows"
 
 
 def _indices(df: pd.DataFrame, keys: list[str]) -> dict[tuple, np.ndarray]:

@@ -157,13 +157,3 @@ def _plain(v: object) -> object:
             return None
         return v.item() if isinstance(v, np.generic) else v
     return str(v)
-
-
-def column_letter(index: int) -> str:
-    """0 → A, 25 → Z, 26 → AA."""
-    letters = ""
-    index += 1
-    while index:
-        index, rem = divmod(index - 1, 26)
-        letters = chr(65 + rem) + letters
-    return letters

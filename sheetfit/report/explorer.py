@@ -21,7 +21,7 @@ from . import fastrows
 from . import styles as S
 from .book import WriteContext
 from .columns import P_VALUE_FORMAT, SCIENTIFIC, number_format
-from .whatif import Cells, area, lookup, ref
+from .formulas import Cells, area, lookup, ref
 
 MAX_BLOCK = 500             # rows the block shows; larger groups show an even sample of this many
 MAX_ROWS = 100_000          # rows on the data sheet at most: with many groups, fewer rows per group…
@@ -240,18 +240,40 @@ class Spots:
     block_top: int
 
 
+@dataclass(frozen=True)
+class Chosen:
+    """The preset group's index entry and how formulas reach the chosen group's entry on the data sheet."""
+
+    entry: pd.Series       # the preset group's row of the index (the cached results)
+    columns: list[str]     # the index's columns
+    index_area: str        # the index on the data sheet
+    pos: str               # the cell holding the chosen group's position in the index
+
+    def pick(self, name: str) -> str:
+        """The chosen group's value in index column `name`."""
+        return f"INDEX({self.index_area},{self.pos},{self.columns.index(name) + 1})"
+
+
 def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) -> Spots:
     """Fill `cells` with the explorer's text and formulas; returns where the charts go."""
     st = ctx.styles
-    G = len(ex.labels)
     idx_cols = list(ex.index.columns)
-    idx_area = area(data, 3, 0, 2 + G, len(idx_cols) - 1)
-    pos = ref(None, 5, 1)
-    chosen = ex.index.iloc[g]
+    ch = Chosen(ex.index.iloc[g], idx_cols, area(data, 3, 0, 2 + len(ex.labels), len(idx_cols) - 1),
+                ref(None, 5, 1))
+    _choice_cells(cells, st, ex, data, g, ch)
+    r, zero_row = _fit_cells(cells, st, ex, ch)
+    r = _coefficient_cells(cells, st, ex, ch, r + 1)
+    r += 2
+    cells.formula(r, 0, f'=IF(ISNA({ch.pos}),"","charts and rows of "&{ref(None, 3, 1)})', st.section,
+                  f"charts and rows of {ex.labels[g]}")
+    block_top = r + 2 + math.ceil(CHART_H / 20) + 2
+    _block_cells(cells, st, ex, data, ch, block_top)
+    return Spots(zero_row, r + 1, block_top)
 
-    def pick(name: str) -> str:
-        return f"INDEX({idx_area},{pos},{idx_cols.index(name) + 1})"
 
+def _choice_cells(cells: Cells, st: Any, ex: Explorer, data: str, g: int, ch: Chosen) -> None:
+    """Title, note, the group drop-down, rows shown, and where the group sits on the data sheet."""
+    chosen, pos = ch.entry, ch.pos
     cells.text(0, 0, "Group explorer", st.title)
     cells.text(1, 0, "Choose a group in the shaded cell: its fit figures, coefficients, charts and rows follow "
                      f"(rows used in the fit, sorted by {ex.sources[0]}).", st.note)
@@ -259,27 +281,29 @@ def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) ->
     cells.text(3, 1, ex.labels[g], st.input)
     cells.text(3, 2, "(list of fitted groups)", st.note)
     cells.text(4, 0, "rows shown", st.group_label)
-    cnt, first = ref(None, 4, 1), ref(None, 6, 1)
-    cells.formula(4, 1, f"=IF(ISNA({pos}),0,{pick('rows')})", st.number("0"), int(chosen["rows"]))
+    cells.formula(4, 1, f"=IF(ISNA({pos}),0,{ch.pick('rows')})", st.number("0"), int(chosen["rows"]))
     n_all = int(chosen["n"]) if "n" in chosen and pd.notna(chosen["n"]) else int(chosen["rows"])
     sample_note = (f"an even sample of the {n_all} rows used" if n_all > int(chosen["rows"]) else "")
     cells.formula(4, 2, f'=IF(ISNA({pos}),"choose a fitted group from the list in cell B4",'
-                        f'IF({cnt}<{pick("n")},"an even sample of the "&{pick("n")}&" rows used",""))',
+                        f'IF({ref(None, 4, 1)}<{ch.pick("n")},"an even sample of the "&{ch.pick("n")}&" rows used",""))',
                   st.note, sample_note)
     cells.text(5, 0, "position in the list", st.note)
-    cells.formula(5, 1, "=" + lookup(ref(None, 3, 1), area(data, 3, 0, 2 + G, 0)), st.note, g + 1)
+    cells.formula(5, 1, "=" + lookup(ref(None, 3, 1), area(data, 3, 0, 2 + len(ex.labels), 0)), st.note, g + 1)
     cells.text(6, 0, f"first row on sheet '{data}'", st.note)
-    cells.formula(6, 1, f"=IF(ISNA({pos}),1,{pick('first row')})", st.note, int(chosen["first row"]))
+    cells.formula(6, 1, f"=IF(ISNA({pos}),1,{ch.pick('first row')})", st.note, int(chosen["first row"]))
 
+
+def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, int]:
+    """The fit figures from row TOP, then the lowest and highest fitted values; returns (next row, zero row)."""
     cells.text(TOP - 1, 0, "fit", st.header)
     cells.text(TOP - 1, 1, "value", st.header)
     r = TOP
-    for mtr in [m for m in METRICS if m in idx_cols]:
-        v = chosen[mtr]
+    for mtr in [m for m in METRICS if m in ch.columns]:
+        v = ch.entry[mtr]
         fmt = st.number(ex.formats[mtr]) if mtr in ex.formats else None
         cells.text(r, 0, mtr, st.text if mtr == "reasons" else None)
         text = mtr == "reasons"         # &"" keeps an empty text cell empty instead of showing 0
-        cells.formula(r, 1, "=" + pick(mtr) + ('&""' if text else ""), st.wrap if text else fmt,
+        cells.formula(r, 1, "=" + ch.pick(mtr) + ('&""' if text else ""), st.wrap if text else fmt,
                       "" if pd.isna(v) else (str(v) if text else v))
         if text:
             cells.merge(r, 1, len(COEF), height=48)
@@ -287,12 +311,14 @@ def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) ->
     zero = st.number(";;;")
     for label in ("lowest fitted", "highest fitted"):
         cells.text(r, 0, f"{label} value")
-        cells.formula(r, 1, "=" + pick(label), st.number(ex.formats.get("fitted", "General")), chosen[label])
+        cells.formula(r, 1, "=" + ch.pick(label), st.number(ex.formats.get("fitted", "General")), ch.entry[label])
         cells.number(r, 2, 0.0, zero)       # the residual chart's zero line runs through these cells
         r += 1
-    zero_row = r - 2
+    return r, r - 2
 
-    r += 1
+
+def _coefficient_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen, r: int) -> int:
+    """The coefficient table with its header at row `r`; returns its last row."""
     cells.text(r, 0, "term", st.header)
     for c, name in enumerate(COEF, start=1):
         cells.text(r, c, name, st.header)
@@ -300,15 +326,15 @@ def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) ->
         r += 1
         cells.text(r, 0, t)
         for c, name in enumerate(COEF, start=1):
-            v = chosen[f"{name}: {t}"]
-            cells.formula(r, c, "=" + pick(f"{name}: {t}"), st.number(ex.formats[name]),
+            v = ch.entry[f"{name}: {t}"]
+            cells.formula(r, c, "=" + ch.pick(f"{name}: {t}"), st.number(ex.formats[name]),
                           "" if pd.isna(v) else float(v))
-    r += 2
-    cells.formula(r, 0, f'=IF(ISNA({pos}),"","charts and rows of "&{ref(None, 3, 1)})', st.section,
-                  f"charts and rows of {ex.labels[g]}")
-    chart_row = r + 1
-    block_top = r + 2 + math.ceil(CHART_H / 20) + 2
+    return r
 
+
+def _block_cells(cells: Cells, st: Any, ex: Explorer, data: str, ch: Chosen, block_top: int) -> None:
+    """The block of the chosen group's rows under its header row (block_top − 1), by index arithmetic."""
+    cnt, first = ref(None, 4, 1), ref(None, 6, 1)
     head = block_headers(ex)
     for c, h in enumerate(head):
         cells.text(block_top - 1, c, h, st.header)
@@ -317,7 +343,8 @@ def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) ->
     m = len(ex.sources)
     chart_cols = {0, m, m + 1, m + 2}
     fmts = [st.number(ex.formats[h]) for h in head[:-1]] + [st.number("0")]
-    cached = ex.rows.iloc[int(chosen["first row"]) - 1:int(chosen["first row"]) - 1 + int(chosen["rows"])]
+    start = int(ch.entry["first row"]) - 1
+    cached = ex.rows.iloc[start:start + int(ch.entry["rows"])]
     for k in range(1, ex.block + 1):
         rr = block_top + k - 1
         for c, h in enumerate(head):
@@ -328,7 +355,6 @@ def _layout(ctx: WriteContext, cells: Cells, ex: Explorer, data: str, g: int) ->
             if isinstance(value, float) and math.isnan(value):
                 value = ""
             cells.formula(rr, c, f"=IF({k}<={cnt},INDEX({rng},{first}+{k - 1}),{empty})", fmts[c], value)
-    return Spots(zero_row, chart_row, block_top)
 
 
 def _text(name: str) -> str:

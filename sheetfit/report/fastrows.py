@@ -22,8 +22,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-
-from .columns import column_letter
+from xlsxwriter.utility import xl_col_to_name
 
 THRESHOLD: int | None = 100_000  # blocks with more cells than this take the fast path; None: never
 BLOCK_ROWS = 25_000              # rows turned into XML at a time (bounds memory)
@@ -63,7 +62,7 @@ class BulkColumn:
 
     def __init__(self, col: int, values: Any, style: int | None) -> None:
         self.col = col
-        self.letter = column_letter(col)
+        self.letter = xl_col_to_name(col)
         self.style = f' s="{style}"' if style else ""
         self.kind = "empty"
         self.valid: np.ndarray | None = None         # None: every row has a cell
@@ -259,9 +258,9 @@ def _sheet_stream(xml: str, blocks: list[BulkRows]) -> Iterator[str]:
     if box and m:
         r0, r1 = min(b[0] for b in box), max(b[1] for b in box)
         c0, c1 = min(b[2] for b in box), max(b[3] for b in box)
-        ref = f"{column_letter(c0)}{r0 + 1}"
+        ref = f"{xl_col_to_name(c0)}{r0 + 1}"
         if (r0, c0) != (r1, c1):
-            ref += f":{column_letter(c1)}{r1 + 1}"
+            ref += f":{xl_col_to_name(c1)}{r1 + 1}"
         head = head[:m.start()] + f'<dimension ref="{ref}"/>' + head[m.end():]
     yield head
     yield "<sheetData>"

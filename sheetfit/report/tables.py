@@ -9,14 +9,16 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import pandas as pd
+from xlsxwriter.utility import xl_col_to_name
 
 from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 from ..terms import source_columns
 from . import fastrows
 from .book import WriteContext
-from .columns import Column, column_letter
+from .columns import Column
 
 MAX_DATA_ROWS = 1_048_575      # a sheet holds 1,048,576 rows, one of them the header
 BLOCK_ROWS = 50_000            # rows converted to Python values at a time
@@ -105,14 +107,18 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
     if sum(widths) <= PRINT_FIT_WIDTH:     # printed: every column on the page width, if still readable
         ws.fit_to_pages(1, 0)
     if hi > lo:
-        headers = [c.header for c in columns]
-        for rule in rules:
-            if rule.column not in headers:
-                continue
-            cell = f"${column_letter(headers.index(rule.column))}2"
-            ws.conditional_format(1, 0, last_row, last_col, {
-                "type": "formula", "criteria": "=" + rule.test.format(c=cell),
-                "format": st.highlight[rule.style], "stop_if_true": True})
+        highlight_rows(ws, st, [c.header for c in columns], rules, last_row)
+
+
+def highlight_rows(ws: Any, st: Any, headers: Sequence[str], rules: Sequence[Rule], last_row: int) -> None:
+    """Whole-row highlights of rows 1..last_row, the first matching rule winning (columns absent are skipped)."""
+    for rule in rules:
+        if rule.column not in headers:
+            continue
+        cell = f"${xl_col_to_name(list(headers).index(rule.column))}2"
+        ws.conditional_format(1, 0, last_row, len(headers) - 1, {
+            "type": "formula", "criteria": "=" + rule.test.format(c=cell),
+            "format": st.highlight[rule.style], "stop_if_true": True})
 
 
 def _note_columns(ctx: WriteContext, label: str, columns: list[Column]) -> None:

@@ -2,7 +2,9 @@
 
 A results workbook carries every fitted model on its `model store` sheet (terms, coefficients,
 (X'X)⁻¹, residual variance and degrees of freedom, observed input ranges), so predictions need
-neither the input data nor a refit.
+neither the input data nor a refit. This module gathers the store from FitResults, gives the
+sheet's cells as plain values (the report only places them, at the positions of
+`store_layout.StoreLayout`) and reads the sheet back from the same positions.
 """
 
 from __future__ import annotations
@@ -17,16 +19,21 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ResultsWorkbookError
-from ..terms import Term, coefficient_labels, source_columns
+from ..terms import INTERCEPT, Term, coefficient_labels, source_columns
+from .store_layout import (
+    GROUP_HEADER,
+    SETTING_HEADER,
+    SETTING_NAMES,
+    STORE_FORMAT,
+    STORE_SHEET,
+    STORE_TITLE,
+    TERM_HEADER,
+    StoreLayout,
+)
 
 if TYPE_CHECKING:
     from .types import FitResults
 
-STORE_SHEET = "model store"
-STORE_TITLE = "sheetfit model store"
-STORE_FORMAT = 1
-GROUP_HEADER = "group"
-TERM_HEADER = "coefficient"
 RESULT_COLUMNS = ("predicted", "std error of mean", "mean CI low", "mean CI high", "prediction low",
                   "prediction high", "extrapolation", "reason")
 MAX_UNPACKED = 2 * 1024**3
@@ -137,6 +144,65 @@ def store_from_results(results: "FitResults") -> ModelStore:
         beta=beta[ok], xtx_inv=inv[ok], lo=lo[ok], hi=hi[ok])
 
 
+# --- the store sheet's cells as plain values --------------------------------------------------------
+
+@dataclass(frozen=True)
+class StoreColumn:
+    """One column of the store's group rows: its position, what it holds, one value per group."""
+
+    col: int
+    part: str             # "group", "key", "n", "residual df", "residual variance", "coefficient",
+    values: np.ndarray    # "(X'X)⁻¹", "min" or "max"
+
+
+def store_layout(store: ModelStore) -> StoreLayout:
+    """The store sheet's layout for this store."""
+    return StoreLayout(k=len(store.group_columns), p=len(store.term_labels), m=len(store.sources),
+                       groups=len(store))
+
+
+def store_settings(store: ModelStore) -> list[tuple[str, list]]:
+    """The rows of the settings table: (setting, its values)."""
+    values = ([STORE_FORMAT], [store.y], ["yes" if store.intercept else "no"], [store.level],
+              list(store.group_columns), list(store.sources), list(store.date_columns), [len(store)])
+    return list(zip(SETTING_NAMES, values))
+
+
+def term_rows(store: ModelStore) -> list[list]:
+    """The rows of the terms table: label, source column, kind, power (the intercept first)."""
+    rows: list[list] = [[INTERCEPT, "", "intercept", 0]] if store.intercept else []
+    return rows + [[t.label, t.column, t.kind, t.power] for t in store.terms]
+
+
+def group_headers(store: ModelStore) -> list[str]:
+    """The header row of the group table."""
+    labels = store.term_labels
+    head = [GROUP_HEADER, *store.group_columns, "n", "residual df", "residual variance"]
+    head += [f"coefficient: {t}" for t in labels]
+    head += [f"(X'X)⁻¹: {a} × {b}" for a in labels for b in labels]
+    for c in store.sources:
+        head += [f"min: {c}", f"max: {c}"]
+    return head
+
+
+def group_columns(store: ModelStore, lay: StoreLayout) -> list[StoreColumn]:
+    """Every column of the group rows, left to right (non-finite numbers stay empty cells)."""
+    G = len(store)
+    cols = [StoreColumn(0, "group", np.array(store.labels, dtype=object))]
+    keys = np.array(store.keys, dtype=object).reshape(G, lay.k)
+    cols += [StoreColumn(lay.col_key(j), "key", keys[:, j]) for j in range(lay.k)]
+    cols += [StoreColumn(lay.col_n(), "n", np.asarray(store.n, dtype=np.int64)),
+             StoreColumn(lay.col_df(), "residual df", np.asarray(store.df, dtype=np.float64)),
+             StoreColumn(lay.col_s2(), "residual variance", np.asarray(store.sigma2, dtype=np.float64))]
+    cols += [StoreColumn(c, "coefficient", store.beta[:, j]) for j, c in enumerate(lay.coef_columns())]
+    inv = store.xtx_inv.reshape(G, lay.p * lay.p)
+    cols += [StoreColumn(c, "(X'X)⁻¹", inv[:, i]) for i, c in enumerate(lay.inv_columns())]
+    for j in range(lay.m):
+        cols += [StoreColumn(lay.col_min(j), "min", store.lo[:, j]),
+                 StoreColumn(lay.col_max(j), "max", store.hi[:, j])]
+    return cols
+
+
 # --- reading the store back from a results workbook ------------------------------------------------
 
 def _text(v: Any) -> str:
@@ -181,15 +247,13 @@ def read_store(path: Path | str) -> ModelStore:
 
 
 def _parse_store(rows: list[list], name: str) -> ModelStore:
+    """The ModelStore from the store sheet's cells (rows as read, top-left cell first)."""
     rows = [[_cell(v) for v in r] for r in rows]
     first = [_text(r[0]) if r else "" for r in rows]
     if not first or first[0] != STORE_TITLE:
         raise ValueError(f'cell A1 should read "{STORE_TITLE}"')
-    settings = {}
-    i = first.index("setting") + 1
-    while i < len(rows) and first[i]:
-        settings[first[i]] = rows[i][1:]
-        i += 1
+    end, table = _table(rows, first, first.index(SETTING_HEADER[0]) + 1)
+    settings = {_text(r[0]): r[1:] for r in table}
     version = int(_number(settings["store format"][0]))
     if version != STORE_FORMAT:
         raise ResultsWorkbookError(f'"{name}" stores models in format {version}; this sheetfit reads format '
@@ -199,33 +263,33 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
         return tuple(_text(v) for v in settings.get(key, []) if _text(v))
 
     group_cols = names("group columns")
-    i = first.index(TERM_HEADER, i) + 1
-    term_rows = []
-    while i < len(rows) and first[i]:
-        term_rows.append(rows[i])
-        i += 1
-    intercept = _text(settings["intercept"][0]) == "yes"
+    end, term_table = _table(rows, first, first.index(TERM_HEADER, end) + 1)
     terms = tuple(Term(label=_text(r[0]), column=_text(r[1]), kind=_text(r[2]), power=int(_number(r[3])))
-                  for r in term_rows if _text(r[2]) != "intercept")
-    p, k, m = len(term_rows), len(group_cols), len(source_columns(terms))
-    h = first.index(GROUP_HEADER, i)
+                  for r in term_table if _text(r[2]) != "intercept")
+    h = first.index(GROUP_HEADER, end)
     body = [r for r in rows[h + 1:] if r and _text(r[0])]
-    width = 1 + k + 3 + p + p * p + 2 * m
-    nums = np.array([[_number(v) for v in (r + [None] * width)[1 + k:width]] for r in body],
-                    dtype=np.float64).reshape(len(body), width - 1 - k)
-    keys = tuple(tuple(_text(v) for v in r[1:1 + k]) for r in body)
-    G = len(body)
-    b0 = 3
-    x0 = b0 + p
-    r0 = x0 + p * p
-    if not np.isfinite(nums[:, :r0]).all():
+    lay = StoreLayout(k=len(group_cols), p=len(term_table), m=len(source_columns(terms)), groups=len(body))
+    body = [(r + [None] * lay.width)[:lay.width] for r in body]
+    nums = np.array([[_number(v) for v in r] for r in body], dtype=np.float64).reshape(len(body), lay.width)
+    if not np.isfinite(nums[:, lay.col_n():lay.col_min(0)]).all():
         raise ValueError("a stored number is missing")
     return ModelStore(
-        y=_text(settings["response"][0]), group_columns=group_cols, terms=terms, intercept=intercept,
-        level=_number(settings["confidence level"][0]), date_columns=names("date/time inputs"),
-        labels=tuple(_text(r[0]) for r in body), keys=keys, n=nums[:, 0].astype(np.int64), df=nums[:, 1],
-        sigma2=nums[:, 2], beta=nums[:, b0:x0], xtx_inv=nums[:, x0:r0].reshape(G, p, p),
-        lo=nums[:, r0:r0 + 2 * m:2], hi=nums[:, r0 + 1:r0 + 2 * m:2])
+        y=_text(settings["response"][0]), group_columns=group_cols, terms=terms,
+        intercept=_text(settings["intercept"][0]) == "yes", level=_number(settings["confidence level"][0]),
+        date_columns=names("date/time inputs"), labels=tuple(_text(r[0]) for r in body),
+        keys=tuple(tuple(_text(r[lay.col_key(j)]) for j in range(lay.k)) for r in body),
+        n=nums[:, lay.col_n()].astype(np.int64), df=nums[:, lay.col_df()], sigma2=nums[:, lay.col_s2()],
+        beta=nums[:, lay.coef_columns()], xtx_inv=nums[:, lay.inv_columns()].reshape(len(body), lay.p, lay.p),
+        lo=nums[:, [lay.col_min(j) for j in range(lay.m)]], hi=nums[:, [lay.col_max(j) for j in range(lay.m)]])
+
+
+def _table(rows: list[list], first: list[str], i: int) -> tuple[int, list[list]]:
+    """The rows from `i` down to the first one with an empty first cell: (that row's index, the rows)."""
+    out = []
+    while i < len(rows) and first[i]:
+        out.append(rows[i])
+        i += 1
+    return i, out
 
 
 def _cell(v: Any) -> Any:

@@ -23,7 +23,7 @@ import statsmodels.api as sm
 import sheetfit
 import sheetfit.report as report
 from sheetfit.api import fit_frame
-from sheetfit.prediction.compute import predict_workbook
+from sheetfit.pipeline import predict_workbook
 from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet
 from sheetfit.report.whatif import whatif_sheet

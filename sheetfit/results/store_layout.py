@@ -1,0 +1,84 @@
+"""Where everything sits on the `model store` sheet: its names, header rows and column positions.
+
+One layout for both directions: the report places the store's cells at these positions (and the
+predict sheet's formulas point at them), and `sheetfit.results.store.read_store` reads them back
+from the same positions. All rows and columns are 0-based.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+STORE_SHEET = "model store"
+STORE_TITLE = "sheetfit model store"
+STORE_FORMAT = 1
+STORE_NOTE = ("The fitted models, one row per group: the predict sheet and `sheetfit predict` read them from "
+              "here. Do not edit, sort, insert or delete cells.")
+SETTING_HEADER = ("setting", "value")
+TERM_HEADER = "coefficient"
+TERM_COLUMNS = (TERM_HEADER, "source column", "kind", "power")
+GROUP_HEADER = "group"
+SETTING_NAMES = ("store format", "response", "intercept", "confidence level", "group columns",
+                 "source columns", "date/time inputs", "fitted groups")
+
+TITLE_ROW = 0
+NOTE_ROW = 1
+SETTING_HEADER_ROW = 3
+
+
+@dataclass(frozen=True)
+class StoreLayout:
+    """Rows and columns of the store sheet for k group columns, p coefficients and m inputs.
+
+    Rows: title, note, the settings table, the terms table (one row per coefficient), then the
+    group table: one row per fitted group holding its label, key values, n, residual df, residual
+    variance, coefficients, (X'X)⁻¹ row by row, and the observed min and max of every input.
+    """
+
+    k: int
+    p: int
+    m: int
+    groups: int = 0
+
+    @property
+    def first_setting(self) -> int:
+        return SETTING_HEADER_ROW + 1
+
+    @property
+    def term_header(self) -> int:
+        return self.first_setting + len(SETTING_NAMES) + 1
+
+    @property
+    def group_header(self) -> int:
+        return self.term_header + self.p + 2
+
+    @property
+    def first(self) -> int:
+        """The first group row."""
+        return self.group_header + 1
+
+    @property
+    def last(self) -> int:
+        """The last group row (the first one when there is no group)."""
+        return self.group_header + max(self.groups, 1)
+
+    @property
+    def width(self) -> int:
+        return 1 + self.k + 3 + self.p + self.p * self.p + 2 * self.m
+
+    def col_key(self, j: int) -> int: return 1 + j
+    def col_n(self) -> int: return 1 + self.k
+    def col_df(self) -> int: return 2 + self.k
+    def col_s2(self) -> int: return 3 + self.k
+    def col_coef(self, j: int) -> int: return 4 + self.k + j
+    def col_inv(self, i: int, j: int) -> int: return 4 + self.k + self.p + i * self.p + j
+    def col_min(self, j: int) -> int: return 4 + self.k + self.p + self.p * self.p + 2 * j
+    def col_max(self, j: int) -> int: return self.col_min(j) + 1
+
+    def coef_columns(self) -> list[int]:
+        """The columns of the coefficients, in term order."""
+        return [self.col_coef(j) for j in range(self.p)]
+
+    def inv_columns(self) -> list[int]:
+        """The columns of (X'X)⁻¹, row by row."""
+        return [self.col_inv(i, j) for i in range(self.p) for j in range(self.p)]
