@@ -1,8 +1,11 @@
 """NIST StRD linear regression datasets: digits of agreement with the certified values.
 
-Data and certified values: NIST Statistical Reference Datasets (public domain), read from
-../shared/reference/nist-strd. LRE = −log10(|estimate − certified| / |certified|); where NIST
-certifies 0 the absolute error is used instead.
+Data and certified values: NIST Statistical Reference Datasets (public domain), kept in the
+project at tests/data/nist (source and certification: tests/data/nist/README.md).
+LRE = −log10(|estimate − certified| / |certified|); where NIST certifies 0 the absolute error is
+used instead.
+
+`python -m tests.test_nist` prints the digits-of-agreement table (as in the README).
 """
 
 from __future__ import annotations
@@ -16,9 +19,7 @@ import pytest
 
 import sheetfit
 
-NIST = Path(__file__).resolve().parents[1].parent / "shared" / "reference" / "nist-strd"
-pytestmark = pytest.mark.skipif(not (NIST / "certified.json").exists(),
-                                reason=f"NIST StRD folder not found at {NIST}")
+NIST = Path(__file__).resolve().parent / "data" / "nist"
 REQUIRED = {"wampler5": 7.5}   # every other dataset: at least 9 digits on every value
 DATASETS = ["norris", "pontius", "noint1", "noint2", "filip", "longley",
             "wampler1", "wampler2", "wampler3", "wampler4", "wampler5"]
@@ -57,21 +58,31 @@ def test_nist_certified_values(name):
 
 
 def digits_table() -> list[tuple[str, float, float, float, float]]:
-    """Digits of agreement per dataset (for the closing note and README)."""
+    """Digits of agreement per dataset: (NIST name, coefficients, std errors, residual sd, R²), each the
+    minimum LRE over the values certified."""
     out = []
     for name in DATASETS:
         res, cert = fit_dataset(name)
         row = res.groups.iloc[0]
-        out.append((name, lre(res.coefficients["estimate"], cert["coefficients"]).min(),
-                    lre(res.coefficients["std error"], cert["coefficient_sds"]).min(),
+        out.append((cert["name"], float(lre(res.coefficients["estimate"], cert["coefficients"]).min()),
+                    float(lre(res.coefficients["std error"], cert["coefficient_sds"]).min()),
                     float(lre(row["residual std error"], cert["residual_sd"])),
                     float(lre(row["R²"], cert["r_squared"]))))
     return out
 
 
-if __name__ == "__main__":
-    for r in digits_table():
-        print(f"{r[0]:9s} coefficients {r[1]:5.1f}  std errors {r[2]:5.1f}  residual sd {r[3]:5.1f}  R² {r[4]:5.1f}")
+def format_digits_table(rows) -> str:
+    """The table as the README shows it (Markdown)."""
+    lines = ["| dataset | coefficients | std errors | residual std dev | R² |", "|---|---|---|---|---|"]
+    lines += [f"| {r[0]} | {r[1]:.1f} | {r[2]:.1f} | {r[3]:.1f} | {r[4]:.1f} |" for r in rows]
+    return "\n".join(lines)
+
+
+def test_digits_table_covers_every_dataset():
+    rows = digits_table()
+    assert [r[0].lower() for r in rows] == DATASETS
+    assert all(np.isfinite(r[1:]).all() for r in rows)
+    assert format_digits_table(rows).count("\n") == len(DATASETS) + 1
 
 
 @pytest.mark.parametrize("name", ["filip", "longley", "noint1", "wampler4"])
@@ -92,3 +103,8 @@ def test_nist_through_the_workbook_reader(name, tmp_path):
         res = sheetfit.fit_workbook(source, y="y", x=terms, intercept=cert["intercept"])
         assert lre(res.coefficients["estimate"], cert["coefficients"]).min() >= REQUIRED.get(name, 9.0)
         assert lre(res.coefficients["std error"], cert["coefficient_sds"]).min() >= 9.0
+
+
+if __name__ == "__main__":
+    print("Digits of agreement with the NIST StRD certified values (LRE; 15 = every certified digit)")
+    print(format_digits_table(digits_table()))
