@@ -2,7 +2,7 @@
 values, the labels, the provenance, or the refusal with its one-line message.
 
 Expected outcomes are fixed by how each file is built (tests/corpus/build.py) and by the reading
-rules documented in sheetfit/cells.py and sheetfit/read.py.
+rules documented in sheetfit/read/cells.py and sheetfit/read/observations.py.
 """
 
 from __future__ import annotations

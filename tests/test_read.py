@@ -15,7 +15,7 @@ import pytest
 
 from sheetfit import errors
 from sheetfit.job import FitJob
-from sheetfit.read import xlsx
+from sheetfit.read import xlsx, xlsxscan
 from sheetfit.read.observations import read_observations
 from sheetfit.read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 
@@ -124,10 +124,10 @@ def test_dates_are_days_since_each_groups_earliest(messy):
 def test_small_scan_chunks_give_the_same_marks(messy, monkeypatch):
     """The XML scan cuts its buffer between rows; tiny chunks must find the same cells."""
     with zipfile.ZipFile(messy) as zf:
-        whole = xlsx.scan_sheet(zf, "xl/worksheets/sheet1.xml")
-        monkeypatch.setattr(xlsx, "_CHUNK", 1500)
-        pieces = xlsx.scan_sheet(zf, "xl/worksheets/sheet1.xml")
-        exact = xlsx._scan_slow(zf, "xl/worksheets/sheet1.xml")       # element-by-element parse
+        whole = xlsxscan.scan_sheet(zf, "xl/worksheets/sheet1.xml")
+        monkeypatch.setattr(xlsxscan, "_CHUNK", 1500)
+        pieces = xlsxscan.scan_sheet(zf, "xl/worksheets/sheet1.xml")
+        exact = xlsxscan._scan_slow(zf, "xl/worksheets/sheet1.xml")       # element-by-element parse
     assert whole == pieces == exact
     assert len(whole.errors) > 50 and len(whole.hidden_rows) > 50 and whole.hidden_cols == {4}
 

@@ -198,10 +198,6 @@ class ParsedColumn:
         self.values, self.problems, self.has_dates = values, problems, has_dates
 
     @property
-    def bad(self) -> np.ndarray:
-        return np.not_equal(self.problems, None)
-
-    @property
     def blank(self) -> np.ndarray:
         return self.problems == EMPTY
 

@@ -18,7 +18,8 @@ from collections import Counter
 from pathlib import Path
 
 from ..errors import JobError, NotAWorkbookError
-from .sources import Book, Grid
+from .book import Book
+from .grid import Grid
 
 _CANDIDATES = ("\t", ";", "|", ",")
 _NAMES = {"\t": "tab", ";": ";", "|": "|", ",": ","}

@@ -10,10 +10,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from xlsxwriter.utility import xl_col_to_name
+
 from ..errors import DuplicateHeaderError, JobError, NoUsableDataError
 from ..job import FitJob
 from .cells import header_name, is_blank
-from .sources import Grid, Region, col_letter
+from .grid import Grid, Region
 
 _MAX_HEADER_ROWS = 10
 
@@ -87,6 +89,6 @@ def no_duplicates(header: Header, used: list[str]) -> None:
     """DuplicateHeaderError naming each used name that heads more than one column."""
     dups = [n for n in dict.fromkeys(used) if len(header.names.get(n, ())) > 1]
     if dups:
-        shown = "; ".join(f'"{n}" in columns {", ".join(col_letter(c) for c in header.names[n])}' for n in dups)
+        shown = "; ".join(f'"{n}" in columns {", ".join(xl_col_to_name(c) for c in header.names[n])}' for n in dups)
         raise DuplicateHeaderError(f'header row {header.row} of sheet "{header.sheet}" repeats column names: '
                                    f'{shown}; rename them so each column used has its own name')

@@ -1,6 +1,11 @@
 """Workbook → tidy observations: one row per non-blank input row, with its source sheet and row
 number, group labels, the numbers the model needs, and the reason whenever a row cannot be used.
 
+Flow: `safety.sniff` names the format, `formats.open_book` opens the reader, each sheet comes back
+as a `grid.Grid`, `headers` finds the column names, `cells` parses the columns, and the parts of all
+sheets are joined into one table with a reason per unusable row. The file's SHA-256 is computed in
+a second thread meanwhile.
+
 Rules (see also `sheetfit.read.cells` for how one cell becomes a number):
 * The header is found by `sheetfit.read.headers` (first non-empty row unless told; merged cells filled).
 * A row whose cells are all blank is not data and is not counted; every other row appears once.
@@ -13,25 +18,33 @@ Rules (see also `sheetfit.read.cells` for how one cell becomes a number):
 from __future__ import annotations
 
 import gc
+import re
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from operator import itemgetter
 from pathlib import Path
 
+from xlsxwriter.utility import xl_rowcol_to_cell
+
 from ..errors import (
     ColumnNotFoundError,
     JobError,
+    NotAWorkbookError,
     NoUsableDataError,
     SheetNotFoundError,
     UnusableRowsError,
     not_found_message,
 )
 from ..job import FitJob
+from ..provenance import file_sha256
 from ..terms import parse_terms, source_columns
+from .book import Book
 from .cells import BLANK_LABEL, group_labels, is_blank, parse_column
+from .formats import open_book
+from .grid import Grid, Region
 from .headers import Header, find_header, no_duplicates
-from .sources import Book, Grid, Region, cell_ref, file_sha256, open_book, sniff
+from .safety import sniff
 from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
 
 SHEET_KEY = "sheet"
@@ -111,7 +124,7 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
     warnings = list(book.warnings())
     if skipped:
         warnings.append(f"sheets skipped: {', '.join(skipped)}")
-    data, date_cols = _frame(parts, spec, multi)
+    data, date_cols = _frame(parts, spec)
     _check_usable(data, spec, parts)
     no_result = [ref for p in parts for ref in p.no_result]
     if no_result:
@@ -142,7 +155,6 @@ def _plan(book: Book, job: FitJob) -> list[tuple[str, Region | None]]:
         region = book.region(job.table)
         return [(region.sheet, region)]
     if not names:
-        from ..errors import NotAWorkbookError
         raise NotAWorkbookError(f'"{Path(job.workbook).name}" has no worksheets')
     if job.all_sheets:
         return [(n, None) for n in names]
@@ -254,7 +266,8 @@ def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> 
         parsed.values, parsed.problems = parsed.values[keep], parsed.problems[keep]
     kept = set(row_numbers.tolist()) if grid.hidden_rows or grid.no_result else set()
     used_cols = set(col_of.values())
-    no_result = [f"{grid.sheet}!{cell_ref(r, c)}" for r, c in grid.no_result if r in kept and c in used_cols]
+    no_result = [f"{grid.sheet}!{xl_rowcol_to_cell(r - 1, c)}"          # Grid rows are 1-based, xlsxwriter's 0-based
+                 for r, c in grid.no_result if r in kept and c in used_cols]
     return _Part(grid.sheet, row_numbers, labels, numbers, header.row,
                  hidden_rows=len(kept & grid.hidden_rows),
                  hidden_cols=len(used_cols & grid.hidden_cols),
@@ -268,11 +281,11 @@ def _fill_merged(values: list, grid: Grid, col: int, first: int, bottom: int) ->
             top_value = grid.get(r1, c1)
             for r in range(max(r1, first), min(r2, bottom) + 1):
                 values[r - first] = top_value
-            refs.append(f"{grid.sheet}!{cell_ref(r1, c1)}:{cell_ref(r2, c2)}")
+            refs.append(f"{grid.sheet}!{xl_rowcol_to_cell(r1 - 1, c1)}:{xl_rowcol_to_cell(r2 - 1, c2)}")
     return refs
 
 
-def _frame(parts: list[_Part], spec: _Spec, multi: bool):
+def _frame(parts: list[_Part], spec: _Spec):
     import numpy as np
     import pandas as pd
 
@@ -322,16 +335,11 @@ def _check_usable(data, spec: _Spec, parts: list[_Part]) -> None:
     for name in spec.numeric:
         if np.isfinite(data[name].to_numpy()).any():
             continue
-        mine = data[REASON].str.extract(f"(?:^|; ){_escape(name)}: ([^;]*)")[0]
+        mine = data[REASON].str.extract(f"(?:^|; ){re.escape(name)}: ([^;]*)")[0]
         common = mine.value_counts()
         what = f" (most often: {common.index[0]}, {int(common.iloc[0])} rows)" if len(common) else ""
         raise NoUsableDataError(f'{roles[name]} column "{name}" has no usable numbers in its {len(data)} rows'
                                 f'{what}; check the column and --header-row')
-
-
-def _escape(text: str) -> str:
-    import re
-    return re.escape(text)
 
 
 def _strict(data, spec: _Spec) -> None:

@@ -1,6 +1,6 @@
-""".ods: cell values by python-calamine; error cells, formulas without results, hidden rows/columns
-and merged cells from one element-by-element pass over content.xml (defusedxml), run only when a
-quick byte search shows the file has any of them.
+""".ods: cell values by python-calamine (see `sheetfit.read.calamine`); error cells, formulas without
+results, hidden rows/columns and merged cells from one element-by-element pass over content.xml
+(defusedxml), run only when a quick byte search shows the file has any of them.
 """
 
 from __future__ import annotations
@@ -8,9 +8,10 @@ from __future__ import annotations
 import zipfile
 from pathlib import Path
 
-from ..errors import NotAWorkbookError
-from .sources import Grid
-from .xlsx import CalamineZipBook, SheetMarks, _calamine_call, _version, marked_grid
+from ..provenance import installed_version
+from .calamine import CalamineZipBook, SheetMarks, marked_grid
+from .file_errors import damaged_error
+from .grid import Grid
 
 _T = "{urn:oasis:names:tc:opendocument:xmlns:table:1.0}"
 _O = "{urn:oasis:names:tc:opendocument:xmlns:office:1.0}"
@@ -105,25 +106,21 @@ class OdsBook(CalamineZipBook):
     file_format = "ods"
 
     def __init__(self, path: Path):
-        self.path = Path(path)
-        self.reader = f"python-calamine {_version('python-calamine')} (values) + content.xml pass (errors, hidden, merged)"
-        self._open()
+        super().__init__(path)
+        self.reader = (f"python-calamine {installed_version('python-calamine')} (values) "
+                       f"+ content.xml pass (errors, hidden, merged)")
         try:
             self._scan = _needs_scan(self._zip)
         except Exception as exc:  # zlib or zip errors while unpacking content.xml
-            raise NotAWorkbookError(f'"{self.path.name}" is damaged and cannot be read ({exc}); open it in a '
-                                    f'spreadsheet application and save it again') from None
+            raise damaged_error(self.path.name, str(exc)) from None
 
     def sheet_names(self) -> list[str]:
         return list(self._wb.sheet_names)
 
     def grid(self, sheet: str) -> Grid:
-        ws = _calamine_call(lambda: self._wb.get_sheet_by_name(sheet), self.path.name)
-        rows = _calamine_call(ws.to_python, self.path.name)
-        start = ws.start or (0, 0)
+        _, rows, start = self.calamine_sheet(sheet)
         try:
             marks, merged = scan_ods(self._zip, sheet) if self._scan else (SheetMarks(), [])
         except Exception as exc:  # zlib, zip, XML or defusedxml errors all mean a damaged file
-            raise NotAWorkbookError(f'"{self.path.name}" is damaged and cannot be read ({exc}); open it in a '
-                                    f'spreadsheet application and save it again') from None
+            raise damaged_error(self.path.name, str(exc)) from None
         return marked_grid(sheet, rows, start, merged, marks)

@@ -1,5 +1,6 @@
 """Legacy .xls (BIFF): read with xlrd, which reports error cells, dates, hidden rows/columns and merged
-cells itself. Such files hold at most 65,536 rows, so speed is not a concern here.
+cells itself, so no XML scan is needed (compare `xlsx`). Such files hold at most 65,536 rows, so
+speed is not a concern here.
 """
 
 from __future__ import annotations
@@ -8,9 +9,11 @@ import datetime as dt
 from pathlib import Path
 
 from ..errors import NotAWorkbookError
+from ..provenance import installed_version
+from .book import Book
 from .cells import ErrorCell
-from .sources import Book, Grid
-from .xlsx import _version
+from .file_errors import encrypted_error, short_text
+from .grid import Grid
 
 
 class XlsBook(Book):
@@ -22,14 +25,13 @@ class XlsBook(Book):
         import xlrd
 
         self.path = Path(path)
-        self.reader = f"xlrd {_version('xlrd')}"
+        self.reader = f"xlrd {installed_version('xlrd')}"
         try:
             self._wb = xlrd.open_workbook(str(self.path), formatting_info=True, on_demand=True)
         except Exception as exc:  # xlrd raises plain XLRDError/AssertionError/struct errors on bad files
-            text = " ".join(str(exc).split())[:160]
+            text = short_text(exc)
             if "encrypt" in text.lower() or "password" in text.lower():
-                raise NotAWorkbookError(f'"{self.path.name}" is password-protected (encrypted); remove the password '
-                                        f'in a spreadsheet application and save a copy to read') from None
+                raise encrypted_error(self.path.name) from None
             raise NotAWorkbookError(f'"{self.path.name}" is not a readable .xls workbook ({text}); '
                                     f'open it in a spreadsheet application and save it as .xlsx') from None
 

@@ -1,21 +1,19 @@
-"""Input files: safety checks and format sniffing before any reader touches them, and the grid type
-every per-format reader returns.
+"""Safety checks and format sniffing: what an input file is, decided from its bytes before any reader opens it.
 
 Checks run on the raw bytes, in this order: the path exists and is a file; the content (not the
 name) says which format it is; a zip's declared unpacked size is within the limit; no XML part
 declares a document type (the door to entity-expansion attacks); encrypted files are named as such.
+`sniff` returns the format name that `sheetfit.read.formats.open_book` takes.
 """
 
 from __future__ import annotations
 
-import hashlib
-import re
 import zipfile
 import zlib
-from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import InputFileError, NotAWorkbookError
+from .file_errors import encrypted_error
 
 WORKBOOK_SUFFIXES = (".xlsx", ".xlsm", ".xls", ".ods")
 TEXT_SUFFIXES = (".csv", ".tsv", ".txt")
@@ -23,125 +21,6 @@ _ZIP_MAGIC = (b"PK\x03\x04", b"PK\x05\x06")
 _OLE_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"
 _ENCRYPTED_MARK = "EncryptedPackage".encode("utf-16-le")
 _FIX = "save it again as .xlsx, .xlsm, .xls, .ods or .csv"
-
-
-@dataclass
-class Grid:
-    """Cell values of one sheet: rows[i][j] is the cell at sheet row top+i (1-based), column left+j (0-based)."""
-
-    sheet: str
-    rows: list[list]
-    top: int = 1
-    left: int = 0
-    merged: list[tuple[int, int, int, int]] = field(default_factory=list)  # (row1, col1, row2, col2), inclusive
-    hidden_rows: frozenset[int] = frozenset()
-    hidden_cols: frozenset[int] = frozenset()
-    no_result: list[tuple[int, int]] = field(default_factory=list)        # formulas without saved results
-
-    rectangular: bool = False           # every row has `width` cells (readers that guarantee it set this)
-
-    @property
-    def bottom(self) -> int:
-        return self.top + len(self.rows) - 1
-
-    @property
-    def width(self) -> int:
-        if self.rectangular:
-            return len(self.rows[0]) if self.rows else 0
-        return max((len(r) for r in self.rows), default=0)
-
-    @property
-    def right(self) -> int:
-        return self.left + self.width - 1
-
-    def get(self, row: int, col: int) -> object:
-        i, j = row - self.top, col - self.left
-        if 0 <= i < len(self.rows) and 0 <= j < len(self.rows[i]):
-            return self.rows[i][j]
-        return ""
-
-    def put(self, row: int, col: int, value: object) -> None:
-        """Set one cell, growing the grid when the cell lies outside it."""
-        if not self.rows:
-            self.top, self.left = row, col
-            self.rows = [[""]]
-        if row < self.top:
-            self.rows[:0] = [[] for _ in range(self.top - row)]
-            self.top = row
-        if col < self.left:
-            pad = [""] * (self.left - col)
-            self.rows = [pad + r for r in self.rows]
-            self.left = col
-        self.rectangular = False
-        i, j = row - self.top, col - self.left
-        while len(self.rows) <= i:
-            self.rows.append([])
-        r = self.rows[i]
-        if len(r) <= j:
-            r.extend([""] * (j + 1 - len(r)))
-        r[j] = value
-
-    def square(self) -> None:
-        """Pad short rows with empty cells so every row has the same length."""
-        if self.rectangular:
-            return
-        w = self.width
-        for r in self.rows:
-            if len(r) < w:
-                r.extend([""] * (w - len(r)))
-        self.rectangular = True
-
-
-@dataclass(frozen=True)
-class Region:
-    """A rectangle of one sheet (1-based rows, 0-based columns, inclusive) named by a table or a defined name."""
-
-    sheet: str
-    header_row: int                         # 1-based row holding the column names
-    bottom: int                             # last data row
-    left: int
-    right: int
-    label: str                              # 'table "Sales"', 'defined name "Data" (Data!B2:D40)'
-    headers: tuple[str, ...] | None = None  # a table's own column names; None → read the header row
-
-
-def col_letter(col: int) -> str:
-    """0-based column index → spreadsheet letters (0 → A, 26 → AA)."""
-    s, n = "", col + 1
-    while n:
-        n, rem = divmod(n - 1, 26)
-        s = chr(65 + rem) + s
-    return s
-
-
-def cell_ref(row: int, col: int) -> str:
-    return f"{col_letter(col)}{row}"
-
-
-_A1 = re.compile(r"\$?([A-Za-z]{1,3})?\$?(\d+)?")
-
-
-def parse_range(ref: str) -> tuple[int, int, int, int]:
-    """'$B$2:$D$10' → (2, 1, 10, 3); whole columns ('A:D') and whole rows ('2:9') allowed."""
-    parts = ref.split(":")
-    if len(parts) > 2:
-        raise ValueError(ref)
-    bounds = []
-    for part in parts:
-        m = _A1.fullmatch(part.strip())
-        if m is None or not (m.group(1) or m.group(2)):
-            raise ValueError(ref)
-        col = None
-        if m.group(1):
-            col = 0
-            for ch in m.group(1).upper():
-                col = col * 26 + ord(ch) - 64
-            col -= 1
-        bounds.append((int(m.group(2)) if m.group(2) else None, col))
-    (r1, c1), (r2, c2) = bounds[0], bounds[-1]
-    top, bottom = (r1 or 1), (r2 or (1_048_576 if r1 is None else r1))
-    left, right = (c1 if c1 is not None else 0), (c2 if c2 is not None else (16_383 if c1 is None else c1))
-    return min(top, bottom), min(left, right), max(top, bottom), max(left, right)
 
 
 def check_path(path: Path) -> None:
@@ -157,15 +36,6 @@ def check_path(path: Path) -> None:
     except OSError as exc:
         raise InputFileError(f'input file "{path}" cannot be opened ({exc.strerror or exc}); '
                              f'check its permissions') from None
-
-
-def file_sha256(path: Path) -> str:
-    """SHA-256 of the file's bytes, read in 1 MB pieces."""
-    h = hashlib.sha256()
-    with path.open("rb") as fh:
-        while chunk := fh.read(1 << 20):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def sniff(path: Path, max_unpacked_bytes: int) -> str:
@@ -230,8 +100,7 @@ def _sniff_zip(path: Path, suffix: str, limit: int) -> str:
             kind = _zip_kind(zf, names, suffix)
             if kind == "ods" and "META-INF/manifest.xml" in names and \
                     b"encryption-data" in zf.read("META-INF/manifest.xml"):
-                raise NotAWorkbookError(f'"{name}" is password-protected (encrypted); remove the password in '
-                                        f'a spreadsheet application and save a copy to read')
+                raise encrypted_error(name)
             for info in infos:
                 if not info.filename.lower().endswith((".xml", ".rels", ".vml")):
                     continue
@@ -312,48 +181,3 @@ def _prolog_verdict(buf: bytes) -> bool | None:
         if end < 0:
             return None
         pos = end + len(close)
-
-
-class Book:
-    """One open input file; subclasses read one format."""
-
-    file_format = ""
-    reader = ""
-    decimal: str | None = None        # decimal mark fixed for text cells (CSV); None → point rule, then comma rule
-
-    def sheet_names(self) -> list[str]:
-        raise NotImplementedError
-
-    def grid(self, sheet: str) -> Grid:
-        raise NotImplementedError
-
-    def region(self, name: str) -> Region:
-        from ..errors import TableNotFoundError
-
-        raise TableNotFoundError(f'table or defined name "{name}" not found: {self.file_format} files are read '
-                                 f'sheet by sheet; use --sheet (and --header-row), or save as .xlsx')
-
-    def region_names(self) -> list[str]:
-        return []
-
-    def warnings(self) -> list[str]:
-        return []
-
-    def close(self) -> None:
-        pass
-
-
-def open_book(path: Path, file_format: str, *, csv_delimiter: str | None = None,
-              csv_decimal: str | None = None) -> Book:
-    """The reader for a sniffed format."""
-    if file_format in ("xlsx", "xlsm"):
-        from .xlsx import XlsxBook
-        return XlsxBook(path, file_format)
-    if file_format == "ods":
-        from .ods import OdsBook
-        return OdsBook(path)
-    if file_format == "xls":
-        from .xls import XlsBook
-        return XlsBook(path)
-    from .csvfile import CsvBook
-    return CsvBook(path, delimiter=csv_delimiter, decimal=csv_decimal)
