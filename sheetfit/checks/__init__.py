@@ -61,7 +61,8 @@ class RowsInOrder:
 
 def run_checks(fit: EngineFit, inf: Inference, rows: RowsInOrder, terms: Sequence[Term],
                labels: Sequence[str], thr: Thresholds) -> tuple[list[CheckResult], np.ndarray]:
-    """Every check of a run, and the VIF of each coefficient (G, p) that the collinearity check used."""
+    """Every check of a run, and the VIF of each coefficient (G, p) for the coefficients sheet
+    (the collinearity check itself judges inputs by their generalised VIF)."""
     vifs = collinearity.vif(fit)
     results = [
         fit_quality.model_f_test(fit, inf.f, inf.f_p_value),
@@ -77,7 +78,7 @@ def run_checks(fit: EngineFit, inf: Inference, rows: RowsInOrder, terms: Sequenc
         influence.outlier_test(fit, rows.codes, rows.source_rows),
         influence.cooks_check(fit, rows.codes, rows.source_rows),
         influence.leverage_one(fit, rows.codes, rows.source_rows),
-        *collinearity.collinearity_checks(fit, vifs, thr.vif_max, thr.condition_max, labels),
+        *collinearity.collinearity_checks(fit, terms, thr.vif_max, thr.condition_max),
     ]
     return results, vifs
 

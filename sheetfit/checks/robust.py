@@ -1,4 +1,9 @@
-"""Std errors that stay valid when the variance changes (HC0–HC3) or residuals are correlated (Newey–West)."""
+"""Std errors that stay valid when the variance changes (HC0–HC3) or residuals are correlated (Newey–West).
+
+Covariances are computed in the engine's units (residuals / y_scale, raw columns / their scale),
+where every number is of order one, and converted back by powers of two (`coefficient_exponent`):
+exact, and inf or 0 only where the true value is outside double precision.
+"""
 
 from __future__ import annotations
 
@@ -8,6 +13,7 @@ import numpy as np
 from scipy import stats
 
 from ..job import Thresholds
+from ..model.basis import pow2_exponent
 from ..model.engine import LEVERAGE_ONE_TOL, Batch, EngineFit
 from ..model.inference import Inference
 
@@ -20,9 +26,28 @@ def _selected(b: Batch, only: np.ndarray | None) -> tuple[np.ndarray | slice, np
     return (pick, b.groups[pick]) if len(pick) else None
 
 
+def coefficient_exponent(fit: EngineFit) -> np.ndarray:
+    """(G, p) k with β_j = 2**k · (β_j in the engine's units): y_scale / column scale as a power of two."""
+    out = np.zeros((fit.n_groups, fit.p), dtype=int)
+    for b in fit.batches:
+        out[b.groups] = pow2_exponent(b.y_scale)[:, None] - pow2_exponent(b.col_scale)
+    return out
+
+
+def to_raw(cov: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """Covariances (G, p, p) in the engine's units → raw units, given coefficient_exponent k."""
+    with np.errstate(over="ignore", under="ignore"):
+        return np.ldexp(cov, k[:, :, None] + k[:, None, :])
+
+
 def hc_cov(fit: EngineFit, kind: str, only: np.ndarray | None = None) -> np.ndarray:
     """Heteroscedasticity-consistent covariance (G, p, p) of the raw coefficients; with `only`
     (a (G,) mask) just for those groups, NaN elsewhere."""
+    return to_raw(_hc_scaled(fit, kind, only), coefficient_exponent(fit))
+
+
+def _hc_scaled(fit: EngineFit, kind: str, only: np.ndarray | None) -> np.ndarray:
+    """hc_cov in the engine's units."""
     out = np.full((fit.n_groups, fit.p, fit.p), np.nan)
     for b in fit.batches:
         if (sel := _selected(b, only)) is None:
@@ -58,6 +83,12 @@ def default_hac_lag(n: np.ndarray) -> np.ndarray:
 def hac_cov(fit: EngineFit, lags: int | None, only: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Newey–West covariance with Bartlett weights (G, p, p) and the lag used per group; with
     `only` (a (G,) mask) just for those groups (NaN and lag −1 elsewhere)."""
+    cov, lag = _hac_scaled(fit, lags, only)
+    return to_raw(cov, coefficient_exponent(fit)), lag
+
+
+def _hac_scaled(fit: EngineFit, lags: int | None, only: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """hac_cov in the engine's units."""
     out = np.full((fit.n_groups, fit.p, fit.p), np.nan)
     lag_used = np.full(fit.n_groups, -1)
     for b in fit.batches:
@@ -79,12 +110,14 @@ def hac_cov(fit: EngineFit, lags: int | None, only: np.ndarray | None = None) ->
     return out, lag_used
 
 
-def wald_f(fit: EngineFit, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def wald_f(fit: EngineFit, cov: np.ndarray, k: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """F = b'V⁻¹b / q of all slopes (the intercept excluded) with covariance `cov`, and its p-value
-    from F(q, n − p)."""
+    from F(q, n − p). With k (coefficient_exponent), `cov` is in the engine's units and β is
+    taken there too (F does not depend on the units)."""
     off = 1 if fit.intercept else 0
     q = fit.p - off
-    b = fit.beta[:, off:]
+    beta = fit.beta if k is None else np.ldexp(fit.beta, -k)
+    b = beta[:, off:]
     V = cov[:, off:, off:]
     ok = np.isfinite(V).all(axis=(1, 2)) & np.isfinite(b).all(axis=1)
     F = np.full(fit.n_groups, np.nan)
@@ -97,26 +130,34 @@ def wald_f(fit: EngineFit, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 @dataclass(frozen=True)
 class RobustCovariances:
-    """Robust covariances of the groups that need them; NaN for the others, which never show them."""
+    """Robust covariances of the groups that need them, in the engine's units (raw = 2**(k_i + k_j)
+    times these); NaN for the others, which never show them."""
 
     hc: np.ndarray        # (G, p, p) heteroscedasticity-consistent, where variance is not constant
     hac: np.ndarray       # (G, p, p) Newey–West, where residuals are not independent
     hac_lag: np.ndarray   # (G,) lag used by Newey–West
+    exponent: np.ndarray  # (G, p) coefficient_exponent k
+
+    def std_errors(self, cov: np.ndarray) -> np.ndarray:
+        """Raw std errors (G, p) from one of the covariances above."""
+        with np.errstate(invalid="ignore", over="ignore", under="ignore"):
+            return np.ldexp(np.sqrt(np.diagonal(cov, axis1=1, axis2=2)), self.exponent)
 
 
 def robust_covariances(fit: EngineFit, thr: Thresholds, het: np.ndarray, dep: np.ndarray) -> RobustCovariances:
     """HC covariances where variance is not constant (`het`), Newey–West where residuals are
     not independent (`dep`)."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        hac, lag = hac_cov(fit, thr.hac_lags, only=dep)
-        return RobustCovariances(hc=hc_cov(fit, thr.robust, only=het), hac=hac, hac_lag=lag)
+        hac, lag = _hac_scaled(fit, thr.hac_lags, only=dep)
+        return RobustCovariances(hc=_hc_scaled(fit, thr.robust, only=het), hac=hac, hac_lag=lag,
+                                 exponent=coefficient_exponent(fit))
 
 
 def robust_model_test(fit: EngineFit, covs: RobustCovariances, het: np.ndarray, dep: np.ndarray,
                       f: np.ndarray, f_p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The model F-test as a Wald test with the robust covariance where one applies (--inference robust)."""
     cov = np.where(dep[:, None, None], covs.hac, covs.hc)
-    f_rob, p_rob = wald_f(fit, cov)
+    f_rob, p_rob = wald_f(fit, cov, covs.exponent)
     use = het | dep
     return np.where(use, f_rob, f), np.where(use, p_rob, f_p)
 
@@ -132,8 +173,8 @@ def coefficient_extras(fit: EngineFit, inf: Inference, het: np.ndarray, dep: np.
     df = fit.df_resid[:, None]
     kind = thr.robust.upper()
     with np.errstate(invalid="ignore", divide="ignore"):
-        hc_se = np.sqrt(np.diagonal(covs.hc, axis1=1, axis2=2))
-        hac_se = np.sqrt(np.diagonal(covs.hac, axis1=1, axis2=2))
+        hc_se = covs.std_errors(covs.hc)
+        hac_se = covs.std_errors(covs.hac)
         extra[f"robust std error ({kind})"] = np.where(het[:, None], hc_se, np.nan)
         extra[f"robust p-value ({kind})"] = np.where(het[:, None], 2 * stats.t.sf(np.abs(fit.beta / hc_se), df), np.nan)
         extra["HAC std error"] = np.where(dep[:, None], hac_se, np.nan)

@@ -2,21 +2,40 @@
 
 Groups are padded into 3-D arrays (zero rows change no least-squares solution) and solved
 together by QR. Each group's design is first expressed in a well-conditioned working basis
-W with X = W·T (see basis.py), so coefficients and covariance convert back exactly:
-β = T⁻¹γ and (X'X)⁻¹ = (RT)⁻¹(RT)⁻ᵀ. X'X is never formed or inverted.
+W with X = W·T·diag(c) (see basis.py), so coefficients and covariance convert back exactly:
+β = diag(c)⁻¹T⁻¹γ and (X'X)⁻¹ = diag(c)⁻¹(RT)⁻¹(RT)⁻ᵀdiag(c)⁻¹. X'X is never formed or inverted.
+
+Padding rows repeat a real row's source values (so a term such as log(x) is defined there) and
+are zero in W and y. y is divided by a power of two per group (`y_scale`) before anything is
+squared; the scales c_j and y_scale are exact, so results keep their bits, and values near
+1e±300 neither overflow nor vanish.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 
-from ..terms import Term, coefficient_labels
-from .basis import from_working, raw_residual, triangular_order, working_design
+from ..terms import Term
+from .basis import (
+    from_working,
+    masked_absmax,
+    pow2_exponent,
+    pow2_scale,
+    raw_residual,
+    triangular_order,
+    working_design,
+)
+from .unfit import (
+    coefficients_out_of_range,
+    exactly_collinear,
+    reasons_before_solving,
+    values_out_of_range,
+)
 
-COLLINEAR_TOL = 1e-10       # |R_jj| / ‖W_j‖ below this: column j is a combination of the others
 LEVERAGE_ONE_TOL = 1e-10    # leverage within this of 1: the row alone fixes a coefficient
 PAD_RATIO = 1.3             # groups in one batch differ in size by at most this factor
 BATCH_ROWS = 400_000        # padded rows per batch, bounds memory
@@ -26,8 +45,11 @@ BATCH_ROWS = 400_000        # padded rows per batch, bounds memory
 class Batch:
     """Groups of similar size fitted together; arrays are padded to m rows.
 
-    rows[g, i] indexes the engine's row arrays (−1 on padding); X = W·T; (X'X)⁻¹ = A·Aᵀ.
-    Only groups that could be fitted are in a batch.
+    rows[g, i] indexes the engine's row arrays (−1 on padding). Units: y, resid and rss are
+    those of y / y_scale; raw column j is col_scale[j] times column j of W·T, so
+    X = W·T·diag(col_scale) and (X'X)⁻¹ = diag(col_scale)⁻¹·A·Aᵀ·diag(col_scale)⁻¹. Everything
+    stored here is of order one, whatever the magnitude of the data. Only groups that could be
+    fitted are in a batch.
     """
 
     groups: np.ndarray      # (G,) group ids
@@ -39,10 +61,12 @@ class Batch:
     Q: np.ndarray           # (G, m, p)
     R: np.ndarray           # (G, p, p)
     A: np.ndarray           # (G, p, p) = (R T)⁻¹
-    y: np.ndarray           # (G, m)
-    resid: np.ndarray       # (G, m)
+    y: np.ndarray           # (G, m) y / y_scale
+    resid: np.ndarray       # (G, m) residual / y_scale
     leverage: np.ndarray    # (G, m)
-    rss: np.ndarray         # (G,)
+    rss: np.ndarray         # (G,) residual sum of squares / y_scale²
+    y_scale: np.ndarray     # (G,) a power of two near the group's largest |y|
+    col_scale: np.ndarray   # (G, p) a power of two per raw column (1 for the intercept)
 
 
 @dataclass(frozen=True)
@@ -57,9 +81,10 @@ class EngineFit:
     n: np.ndarray               # (G,) usable rows
     beta: np.ndarray            # (G, p)
     se: np.ndarray              # (G, p)
-    xtx_inv: np.ndarray         # (G, p, p)
-    rss: np.ndarray
-    tss: np.ndarray
+    xtx_inv: np.ndarray         # (G, p, p); inf or 0 where a value is outside double precision
+    y_scale: np.ndarray         # (G,) power of two: the sums of squares below are in its square
+    rss_scaled: np.ndarray      # (G,) residual sum of squares / y_scale²
+    tss_scaled: np.ndarray      # (G,) total sum of squares (centred with an intercept) / y_scale²
     df_resid: np.ndarray
     ymean: np.ndarray
     fitted: np.ndarray          # (N,) per engine row
@@ -71,9 +96,22 @@ class EngineFit:
     batches: tuple[Batch, ...]
 
     @property
+    def rss(self) -> np.ndarray:
+        """Residual sum of squares (inf or 0 where it is outside double precision)."""
+        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+            return self.rss_scaled * self.y_scale**2
+
+    @property
+    def tss(self) -> np.ndarray:
+        """Total sum of squares (inf or 0 where it is outside double precision)."""
+        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+            return self.tss_scaled * self.y_scale**2
+
+    @property
     def sigma2(self) -> np.ndarray:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return self.rss / self.df_resid
+        """Residual variance (inf or 0 where it is outside double precision)."""
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore", under="ignore"):
+            return self.rss_scaled / self.df_resid * self.y_scale**2
 
 
 def group_bounds(codes: np.ndarray, n_groups: int) -> tuple[np.ndarray, np.ndarray]:
@@ -103,9 +141,8 @@ def _batches(counts: np.ndarray, eligible: np.ndarray) -> list[np.ndarray]:
 
 
 def _pad(values: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarray:
-    out = values[np.where(mask, rows, 0)]
-    out[~mask] = 0.0
-    return out
+    """Values on each group's rows; padding repeats the group's first row (a valid value for every term)."""
+    return values[np.where(mask, rows, rows[:, :1])]
 
 
 def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray, n_groups: int,
@@ -118,7 +155,7 @@ def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray,
     y = np.asarray(y, dtype=np.float64)
     p = len(terms) + (1 if intercept else 0)
     starts, counts = group_bounds(codes, n_groups)
-    reason = _reasons_before_solving(cols, terms, starts, counts, n_groups, p, intercept)
+    reason = reasons_before_solving(cols, terms, starts, counts, n_groups, p, intercept)
     out = _Collected.empty(n_groups, p, len(y))
     for ids in _batches(counts, reason == ""):
         solved = _fit_batch(y, cols, starts, counts, ids, terms, intercept, reason)
@@ -127,71 +164,82 @@ def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray,
     return _engine_fit(out, reason, codes, counts, n_groups, p, intercept)
 
 
-def _reasons_before_solving(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,
-                            counts: np.ndarray, n_groups: int, p: int, intercept: bool) -> np.ndarray:
-    """Why each group cannot be fitted, as far as is known before solving ('' where it may be)."""
-    reason = np.full(n_groups, "", dtype=object)
-    too_few = counts <= p
-    for g in np.flatnonzero(too_few):
-        reason[g] = (f"only {counts[g]} usable row{'s' if counts[g] != 1 else ''} for {p} "
-                     f"coefficient{'s' if p != 1 else ''}; at least {p + 1} are needed")
-    _constant_inputs(cols, terms, starts, counts, intercept, reason, ~too_few)
-    return reason
+@dataclass(frozen=True)
+class _Part:
+    """A batch's groups on their way to a solution: padded rows, working basis and (once factored) QR."""
+
+    ids: np.ndarray
+    rows: np.ndarray
+    mask: np.ndarray
+    n: np.ndarray
+    yp: np.ndarray
+    colp: dict[str, np.ndarray]
+    W: np.ndarray
+    T: np.ndarray
+    scale: np.ndarray
+    Q: np.ndarray | None = None
+    R: np.ndarray | None = None
+
+    def only(self, keep: np.ndarray) -> _Part:
+        """The same with only the groups where `keep` is true."""
+        if keep.all():
+            return self
+        sub = {f.name: getattr(self, f.name) for f in fields(self)}
+        return _Part(**{k: None if v is None else {c: a[keep] for c, a in v.items()} if isinstance(v, dict)
+                        else v[keep] for k, v in sub.items()})
 
 
 def _pad_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray, counts: np.ndarray,
                ids: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, np.ndarray]]:
-    """A batch's rows padded to its largest group: mask, row indices, y and source columns."""
+    """A batch's rows padded to its largest group: mask, row indices, y (0 on padding) and source
+    columns (the group's first row repeated on padding, so every term is defined there)."""
     m = int(counts[ids].max())
     offs = np.arange(m)[None, :]
     mask = offs < counts[ids][:, None]
     rows = np.where(mask, starts[ids][:, None] + offs, -1)
-    yp = _pad(y, rows, mask)
+    yp = np.where(mask, _pad(y, rows, mask), 0.0)
     colp = {c: _pad(np.asarray(v, dtype=np.float64), rows, mask) for c, v in cols.items()}
     return mask, rows, yp, colp
 
 
 def _fit_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray, counts: np.ndarray,
                ids: np.ndarray, terms: Sequence[Term], intercept: bool, reason: np.ndarray
-               ) -> tuple[Batch, np.ndarray, np.ndarray, np.ndarray] | None:
-    """Pad and factor one batch, drop its exactly collinear groups (reasons set), solve the rest."""
+               ) -> tuple[Batch, np.ndarray, np.ndarray] | None:
+    """Pad, factor and solve one batch; groups out of range or exactly collinear are dropped (reasons set)."""
     mask, rows, yp, colp = _pad_batch(y, cols, starts, counts, ids)
     n = counts[ids]
-    W, T = working_design(colp, mask, n, terms, intercept)
-    Q, R = np.linalg.qr(W)
-    bad = _exactly_collinear(W, R, ids, terms, intercept, reason)
-    if bad.any():
-        keep = ~bad
-        if not keep.any():
+    W, T, scale = working_design(colp, mask, n, terms, intercept)
+    part = _Part(ids, rows, mask, n, yp, colp, W, T, scale)
+    part = part.only(~values_out_of_range(W, T, scale, ids, terms, intercept, reason))
+    if not len(part.ids):
+        return None
+    Q, R = np.linalg.qr(part.W)
+    part = dataclasses.replace(part, Q=Q, R=R)
+    part = part.only(~exactly_collinear(part.W, R, part.ids, terms, intercept, reason))
+    if not len(part.ids):
+        return None
+    solved = _solve_batch(part, terms, intercept)
+    fitted = solved[0]
+    bad = coefficients_out_of_range(solved[1], fitted.A, fitted.rss, fitted.n, fitted.y_scale, fitted.col_scale,
+                                    fitted.groups, terms, intercept, reason)
+    if bad.any():                     # rare: solve again without them (groups are independent)
+        part = part.only(~bad)
+        if not len(part.ids):
             return None
-        ids, mask, rows, yp, n, W, T, Q, R = (a[keep] for a in (ids, mask, rows, yp, n, W, T, Q, R))
-        colp = {c: v[keep] for c, v in colp.items()}
-    return _solve_batch(ids, rows, mask, n, W, T, Q, R, yp, colp, terms, intercept)
+        solved = _solve_batch(part, terms, intercept)
+    return solved
 
 
-def _exactly_collinear(W: np.ndarray, R: np.ndarray, ids: np.ndarray, terms: Sequence[Term],
-                       intercept: bool, reason: np.ndarray) -> np.ndarray:
-    """(G,) bool: the batch's groups with a column that combines the others exactly; their reasons are set."""
-    colnorm = np.sqrt((W**2).sum(axis=1))
-    diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = diag / np.where(colnorm > 0, colnorm, 1.0)
-    bad = (ratio < COLLINEAR_TOL).any(axis=1)
-    if bad.any():
-        labels = coefficient_labels(terms, intercept)
-        for gi in np.flatnonzero(bad):
-            j = int(np.argmax(ratio[gi] < COLLINEAR_TOL))
-            reason[ids[gi]] = (f"{labels[j]} is an exact linear combination of the other "
-                               f"terms in this group (exact collinearity)")
-    return bad
-
-
-def _solve_batch(ids: np.ndarray, rows: np.ndarray, mask: np.ndarray, n: np.ndarray, W: np.ndarray,
-                 T: np.ndarray, Q: np.ndarray, R: np.ndarray, yp: np.ndarray, colp: Mapping[str, np.ndarray],
-                 terms: Sequence[Term], intercept: bool) -> tuple[Batch, np.ndarray, np.ndarray, np.ndarray]:
-    """Least squares of a factored batch, refined once: the batch, β (G, p), (X'X)⁻¹ and fitted values."""
+def _solve_batch(part: _Part, terms: Sequence[Term], intercept: bool) -> tuple[Batch, np.ndarray, np.ndarray]:
+    """Least squares of a factored batch, refined once: the batch, β·c/y_scale (G, p) and fitted values / y_scale."""
+    ids, rows, mask, n, W, T, scale, yp, colp = (part.ids, part.rows, part.mask, part.n, part.W, part.T,
+                                                 part.scale, part.yp, part.colp)
+    Q, R = part.Q, part.R
+    assert Q is not None and R is not None
     p = R.shape[-1]
     order = triangular_order(terms, intercept)
+    y_scale = pow2_scale(masked_absmax(yp, mask))
+    yp = yp / y_scale[:, None]
     qty = np.einsum("gmk,gm->gk", Q, yp)
     gamma = np.linalg.solve(R, qty[..., None])[..., 0]
     eye = np.broadcast_to(np.eye(p), R.shape)
@@ -200,7 +248,7 @@ def _solve_batch(ids: np.ndarray, rows: np.ndarray, mask: np.ndarray, n: np.ndar
     # One step of iterative refinement with the residual taken in the raw basis in
     # extended precision recovers digits lost between the working and the raw basis.
     # The refined fit's residual is r minus the projection of r, so it needs no second pass.
-    r = raw_residual(colp, yp, mask, terms, intercept, b)
+    r = raw_residual(colp, yp, mask, terms, intercept, b, scale)
     qtr = np.einsum("gmk,gm->gk", Q, r)
     b = b + from_working(T, np.linalg.solve(R, qtr[..., None]), order)[..., 0]
     e = r - np.einsum("gmk,gk->gm", Q, qtr)
@@ -208,10 +256,9 @@ def _solve_batch(ids: np.ndarray, rows: np.ndarray, mask: np.ndarray, n: np.ndar
     A = from_working(T, rinv, order)
     h = (Q**2).sum(axis=2)
     r_ss = (e**2).sum(axis=1)
-    xi = A @ np.swapaxes(A, 1, 2)
     batch = Batch(groups=ids, rows=rows, mask=mask, n=n, W=W, T=T, Q=Q, R=R, A=A,
-                  y=yp, resid=e, leverage=h, rss=r_ss)
-    return batch, b, xi, fit
+                  y=yp, resid=e, leverage=h, rss=r_ss, y_scale=y_scale, col_scale=scale)
+    return batch, b, fit
 
 
 @dataclass
@@ -221,11 +268,13 @@ class _Collected:
     beta: np.ndarray
     se: np.ndarray
     xtx_inv: np.ndarray
-    rss: np.ndarray
-    tss: np.ndarray
+    y_scale: np.ndarray
+    rss: np.ndarray          # / y_scale²
+    tss: np.ndarray          # / y_scale²
     ymean: np.ndarray
     fitted: np.ndarray
     resid: np.ndarray
+    resid_scaled: np.ndarray  # resid / y_scale of the row's group
     leverage: np.ndarray
     batches: list[Batch] = field(default_factory=list)
 
@@ -233,27 +282,35 @@ class _Collected:
     def empty(cls, n_groups: int, p: int, N: int) -> _Collected:
         """All-NaN arrays for G groups, p coefficients and N engine rows."""
         return cls(beta=np.full((n_groups, p), np.nan), se=np.full((n_groups, p), np.nan),
-                   xtx_inv=np.full((n_groups, p, p), np.nan), rss=np.full(n_groups, np.nan),
-                   tss=np.full(n_groups, np.nan), ymean=np.full(n_groups, np.nan),
-                   fitted=np.full(N, np.nan), resid=np.full(N, np.nan), leverage=np.full(N, np.nan))
+                   xtx_inv=np.full((n_groups, p, p), np.nan), y_scale=np.ones(n_groups),
+                   rss=np.full(n_groups, np.nan), tss=np.full(n_groups, np.nan),
+                   ymean=np.full(n_groups, np.nan), fitted=np.full(N, np.nan), resid=np.full(N, np.nan),
+                   resid_scaled=np.full(N, np.nan), leverage=np.full(N, np.nan))
 
-    def add(self, batch: Batch, b: np.ndarray, xi: np.ndarray, fit: np.ndarray, *, p: int,
-            intercept: bool) -> None:
-        """Store a solved batch's per-group and per-row results."""
+    def add(self, batch: Batch, b: np.ndarray, fit: np.ndarray, *, p: int, intercept: bool) -> None:
+        """Store a solved batch's per-group and per-row results, back in the units of the data.
+
+        Scaled values are multiplied by powers of two only: exact, unless the true value is
+        outside double precision (then inf or 0, silently).
+        """
         ids, mask, rows, yp, n, r_ss = batch.groups, batch.mask, batch.rows, batch.y, batch.n, batch.rss
-        df = n - p
-        s2 = r_ss / df
-        self.beta[ids] = b
-        self.se[ids] = np.sqrt(s2[:, None] * np.diagonal(xi, axis1=1, axis2=2))
-        self.xtx_inv[ids] = xi
+        ys = batch.y_scale
+        ey, ec = pow2_exponent(ys)[:, None], pow2_exponent(batch.col_scale)
+        s2 = r_ss / (n - p)
+        aat = batch.A @ np.swapaxes(batch.A, 1, 2)
+        with np.errstate(over="ignore", under="ignore"):
+            self.beta[ids] = np.ldexp(b, ey - ec)
+            self.se[ids] = np.ldexp(np.sqrt(s2[:, None] * np.diagonal(aat, axis1=1, axis2=2)), ey - ec)
+            self.xtx_inv[ids] = np.ldexp(aat, -ec[:, :, None] - ec[:, None, :])
+            self.ymean[ids] = yp.sum(axis=1) / n * ys
+            self.fitted[rows[mask]] = (fit * ys[:, None])[mask]
+            self.resid[rows[mask]] = (batch.resid * ys[:, None])[mask]
+        self.y_scale[ids] = ys
         self.rss[ids] = r_ss
-        ym = (yp.sum(axis=1)) / n
-        self.ymean[ids] = ym
+        ym = yp.sum(axis=1) / n
         self.tss[ids] = (((yp - ym[:, None]) * mask) ** 2).sum(axis=1) if intercept else (yp**2).sum(axis=1)
-        flat = rows[mask]
-        self.fitted[flat] = fit[mask]
-        self.resid[flat] = batch.resid[mask]
-        self.leverage[flat] = batch.leverage[mask]
+        self.resid_scaled[rows[mask]] = batch.resid[mask]
+        self.leverage[rows[mask]] = batch.leverage[mask]
         self.batches.append(batch)
 
 
@@ -262,42 +319,19 @@ def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: 
     """The EngineFit from the collected arrays, with the row influence measures they imply."""
     ok = reason == ""
     df_resid = (counts - p).astype(np.float64)
-    internal, external, cooks = _influence(out.resid, out.leverage, codes, out.rss, df_resid, p)
+    internal, external, cooks = _influence(out.resid_scaled, out.leverage, codes, out.rss, df_resid, p)
     return EngineFit(n_groups=n_groups, p=p, intercept=intercept, fitted_ok=ok,
                      not_fitted_reason=reason, n=counts, beta=out.beta, se=out.se, xtx_inv=out.xtx_inv,
-                     rss=out.rss, tss=out.tss, df_resid=df_resid, ymean=out.ymean, fitted=out.fitted,
+                     y_scale=out.y_scale, rss_scaled=out.rss, tss_scaled=out.tss, df_resid=df_resid,
+                     ymean=out.ymean, fitted=out.fitted,
                      resid=out.resid, leverage=out.leverage, studentized=external, internal=internal,
                      cooks=cooks, batches=tuple(out.batches))
 
 
-def _constant_inputs(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,
-                     counts: np.ndarray, intercept: bool, reason: np.ndarray, check: np.ndarray) -> None:
-    """Mark groups where a source column takes one value (collinear with the intercept)."""
-    nonempty = counts > 0
-    for col in dict.fromkeys(t.column for t in terms):
-        x = np.asarray(cols[col], dtype=np.float64)
-        if len(x) == 0:
-            continue
-        idx = starts[nonempty]
-        hi = np.full(len(counts), np.nan)
-        lo = np.full(len(counts), np.nan)
-        hi[nonempty] = np.maximum.reduceat(x, idx)
-        lo[nonempty] = np.minimum.reduceat(x, idx)
-        const = check & nonempty & (hi == lo) & (reason == "")
-        if not intercept:
-            const &= hi == 0
-        for g in np.flatnonzero(const):
-            reason[g] = (f"input {col} takes the same value ({_num(hi[g])}) in every usable row, "
-                         f"so its effect cannot be estimated")
-
-
-def _num(v: float) -> str:
-    return f"{v:.6g}"
-
-
 def _influence(resid: np.ndarray, h: np.ndarray, codes: np.ndarray, rss: np.ndarray,
                df_resid: np.ndarray, p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Internally and externally studentized residuals and Cook's distance per row."""
+    """Internally and externally studentized residuals and Cook's distance per row (scale-free:
+    residuals and rss in the units of y / y_scale)."""
     rss_r = rss[codes]
     df_r = df_resid[codes]
     with np.errstate(invalid="ignore", divide="ignore"):

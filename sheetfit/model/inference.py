@@ -8,6 +8,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from .basis import pow2_exponent
 from .engine import EngineFit
 
 
@@ -41,7 +42,10 @@ class Inference:
 
 
 def inference(fit: EngineFit, level: float) -> Inference:
-    """t, p-values and confidence limits of every coefficient, plus whole-model metrics."""
+    """t, p-values and confidence limits of every coefficient, plus whole-model metrics.
+
+    Sums of squares are taken in units of the group's y_scale, so no square of the data is formed.
+    """
     df = fit.df_resid
     with np.errstate(invalid="ignore", divide="ignore"):
         t = fit.beta / fit.se
@@ -51,16 +55,41 @@ def inference(fit: EngineFit, level: float) -> Inference:
         n = fit.n.astype(np.float64)
         k_const = 1 if fit.intercept else 0
         df_model = fit.p - k_const
-        r2 = 1.0 - fit.rss / fit.tss
+        rss, tss, ys = fit.rss_scaled, fit.tss_scaled, fit.y_scale   # sums of squares of y / y_scale
+        r2 = 1.0 - rss / tss
         adj = 1.0 - (n - k_const) / df * (1.0 - r2)
-        rse = np.sqrt(fit.rss / df)
-        rmse = np.sqrt(fit.rss / n)
+        rse = np.sqrt(rss / df) * ys
+        rmse = np.sqrt(rss / n) * ys
         cv = 100.0 * rse / fit.ymean
-        f = ((fit.tss - fit.rss) / df_model) / (fit.rss / df)
+        f = ((tss - rss) / df_model) / (rss / df)
         f_p = stats.f.sf(f, df_model, df)
-        llf = -n / 2.0 * (np.log(2 * np.pi) + np.log(fit.rss / n) + 1.0)
+        llf = -n / 2.0 * (np.log(2 * np.pi) + np.log(rss / n) + 2.0 * np.log(ys) + 1.0)
         aic = -2.0 * llf + 2.0 * fit.p
         bic = -2.0 * llf + np.log(n) * fit.p
     return Inference(t=t, p_value=pval, ci_low=fit.beta - half, ci_high=fit.beta + half, t_quantile=q,
                      r2=r2, adj_r2=adj, residual_std_error=rse, rmse=rmse, cv_rmse=cv, f=f, f_p_value=f_p,
                      aic=aic, bic=bic, df_model=np.full(fit.n_groups, df_model))
+
+
+def mean_std_error(fit: EngineFit, groups: np.ndarray, D: np.ndarray) -> np.ndarray:
+    """Std error of the fitted mean, √(d'(X'X)⁻¹d·σ²), at raw design rows D (len(groups), k, p).
+
+    Computed as ‖d'A‖·σ in the engine's units (a sum of squares of numbers of order one), so it
+    is finite whenever the answer is, even where fit.xtx_inv or fit.sigma2 alone is not. NaN for
+    groups that were not fitted.
+    """
+    groups = np.asarray(groups)
+    out = np.full(D.shape[:2], np.nan)
+    at = np.full(fit.n_groups, -1)
+    at[groups] = np.arange(len(groups))
+    for b in fit.batches:
+        sel = np.flatnonzero(at[b.groups] >= 0)
+        if not len(sel):
+            continue
+        rows = at[b.groups[sel]]
+        d = np.ldexp(D[rows], -pow2_exponent(b.col_scale[sel])[:, None, :])     # raw column / its scale
+        s2 = b.rss[sel] / (b.n[sel] - fit.p)
+        v = ((d @ b.A[sel]) ** 2).sum(axis=2) * s2[:, None]
+        with np.errstate(over="ignore", under="ignore"):
+            out[rows] = np.ldexp(np.sqrt(v), pow2_exponent(b.y_scale[sel])[:, None])
+    return out

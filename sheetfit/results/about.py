@@ -9,6 +9,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..checks.collinearity import MEASURE as COLLINEARITY_MEASURE
+from ..checks.independence import DW_METHOD
 from ..job import FitJob
 from ..model.engine import EngineFit
 from ..provenance import __version__, installed_version
@@ -31,6 +33,7 @@ def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit
         ("groups flagged", int((groups["flags"] > 0).sum())),
         ("response", job.y), ("terms", ", ".join(job.x)),
         ("intercept", "yes" if job.intercept else "no"),
+        ("collinearity check", COLLINEARITY_MEASURE), ("Durbin–Watson p-value", DW_METHOD),
     ]
     rows += [(f"warning {i + 1}", w) for i, w in enumerate(info.warnings)]
     rows += [(f"setting: {k}", v) for k, v in job.settings_rows()]

@@ -1,0 +1,109 @@
+"""Why a group cannot be fitted, in plain words: too few rows, an input that never changes, values
+or coefficients outside double precision, a term that combines the others exactly.
+
+Each screen sets the reason of the groups it rejects (an object array, '' where fittable) and
+returns which groups of a batch it rejected; all are scale-free.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+
+from ..terms import Term, coefficient_labels
+from .basis import pow2_exponent
+
+COLLINEAR_TOL = 1e-10       # |R_jj| / ‖W_j‖ below this: column j is a combination of the others
+
+
+def reasons_before_solving(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,
+                           counts: np.ndarray, n_groups: int, p: int, intercept: bool) -> np.ndarray:
+    """Why each group cannot be fitted, as far as is known before solving ('' where it may be)."""
+    reason = np.full(n_groups, "", dtype=object)
+    too_few = counts <= p
+    for g in np.flatnonzero(too_few):
+        reason[g] = (f"only {counts[g]} usable row{'s' if counts[g] != 1 else ''} for {p} "
+                     f"coefficient{'s' if p != 1 else ''}; at least {p + 1} are needed")
+    constant_inputs(cols, terms, starts, counts, intercept, reason, ~too_few)
+    return reason
+
+
+def values_out_of_range(W: np.ndarray, T: np.ndarray, scale: np.ndarray, ids: np.ndarray,
+                        terms: Sequence[Term], intercept: bool, reason: np.ndarray) -> np.ndarray:
+    """(G,) bool: groups with a term whose values fall outside double precision (x^k of a huge x); reasons set."""
+    finite = np.isfinite(W).all(axis=1) & np.isfinite(T).all(axis=1) & np.isfinite(scale) & (scale > 0)
+    bad = ~finite.all(axis=1)
+    if bad.any():
+        labels = coefficient_labels(terms, intercept)
+        for gi in np.flatnonzero(bad):
+            j = int(np.argmin(finite[gi]))
+            reason[ids[gi]] = (f"the values of {labels[j]} are outside the range of double precision "
+                               f"numbers (about 1e-308 to 1e308); rescale the input")
+    return bad
+
+
+def exactly_collinear(W: np.ndarray, R: np.ndarray, ids: np.ndarray, terms: Sequence[Term],
+                      intercept: bool, reason: np.ndarray) -> np.ndarray:
+    """(G,) bool: the batch's groups with a column that combines the others exactly; their reasons are set.
+
+    Scale-free: |R_jj| relative to the length of column j of W, whose columns are of order one.
+    """
+    colnorm = np.sqrt((W**2).sum(axis=1))
+    diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = diag / np.where(colnorm > 0, colnorm, 1.0)
+    bad = (ratio < COLLINEAR_TOL).any(axis=1)
+    if bad.any():
+        labels = coefficient_labels(terms, intercept)
+        for gi in np.flatnonzero(bad):
+            j = int(np.argmax(ratio[gi] < COLLINEAR_TOL))
+            reason[ids[gi]] = (f"{labels[j]} is an exact linear combination of the other "
+                               f"terms in this group (exact collinearity)")
+    return bad
+
+
+def coefficients_out_of_range(b: np.ndarray, A: np.ndarray, rss: np.ndarray, n: np.ndarray,
+                              y_scale: np.ndarray, col_scale: np.ndarray, ids: np.ndarray,
+                              terms: Sequence[Term], intercept: bool, reason: np.ndarray) -> np.ndarray:
+    """(G,) bool: groups whose raw coefficient or std error would be beyond double precision; reasons set.
+
+    b, A and rss are in the engine's units (see engine.Batch); raw = 2**k times them.
+    """
+    k = pow2_exponent(y_scale)[:, None] - pow2_exponent(col_scale)
+    s2 = rss / (n - b.shape[1])
+    root = np.sqrt(s2[:, None] * (A**2).sum(axis=2))
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        finite = np.isfinite(np.ldexp(b, k)) & np.isfinite(np.ldexp(root, k))
+    bad = ~finite.all(axis=1)
+    labels = coefficient_labels(terms, intercept)
+    for gi in np.flatnonzero(bad):
+        j = int(np.argmin(finite[gi]))
+        reason[ids[gi]] = (f"the coefficient of {labels[j]} is outside the range of double precision "
+                                    f"numbers (about 1e308); rescale the response or this input")
+    return bad
+
+
+def constant_inputs(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,
+                    counts: np.ndarray, intercept: bool, reason: np.ndarray, check: np.ndarray) -> None:
+    """Mark groups where a source column takes one value (collinear with the intercept)."""
+    nonempty = counts > 0
+    for col in dict.fromkeys(t.column for t in terms):
+        x = np.asarray(cols[col], dtype=np.float64)
+        if len(x) == 0:
+            continue
+        idx = starts[nonempty]
+        hi = np.full(len(counts), np.nan)
+        lo = np.full(len(counts), np.nan)
+        hi[nonempty] = np.maximum.reduceat(x, idx)
+        lo[nonempty] = np.minimum.reduceat(x, idx)
+        const = check & nonempty & (hi == lo) & (reason == "")
+        if not intercept:
+            const &= hi == 0
+        for g in np.flatnonzero(const):
+            reason[g] = (f"input {col} takes the same value ({_num(hi[g])}) in every usable row, "
+                         f"so its effect cannot be estimated")
+
+
+def _num(v: float) -> str:
+    return f"{v:.6g}"
