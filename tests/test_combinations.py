@@ -72,11 +72,7 @@ OBS_VALUES = ("fitted", "residual", "leverage", "Cook's distance", "studentized 
 
 # Sheetfit faults the matrix finds: (which cases, what fails). Each matching case is a strict xfail,
 # so a fix shows up as XPASS(strict) and its entry must then go.
-KNOWN_FAULTS: list[tuple[Callable[[Case], bool], str]] = [
-    (lambda c: c.term == "power" and not c.intercept and c.sizes != "tiny",
-     ("White n/a ('squared residuals do not vary or products are redundant') for CDD + CDD^2 without intercept; "
-      "statsmodels het_white gives LM 4.3125, p 0.3654 (group S03, 25 rows)")),
-]
+KNOWN_FAULTS: list[tuple[Callable[[Case], bool], str]] = []
 
 CASES = cases()
 

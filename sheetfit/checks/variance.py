@@ -46,11 +46,13 @@ def white_columns(terms: Sequence[Term], intercept: bool) -> list[tuple[int, int
     """Pairs (i, j) of design columns, with a constant at index 0, whose products are distinct.
 
     Products that are the same monomial (x·x² and x³ in a polynomial family) are kept once.
+    Without an intercept every column or power term is a multiple of x^K (nothing is centred),
+    so its products are monomials of x whether or not it belongs to a family.
     """
     base: list[dict[str, float]] = [{}]
     for j, t in enumerate(terms):
-        family = polynomial_family(terms, t.column) if intercept else None
-        if family and t.kind in ("column", "power"):
+        monomial = t.kind in ("column", "power") and (not intercept or polynomial_family(terms, t.column))
+        if monomial:
             base.append({f"z:{t.column}": float(t.power)})
         else:
             base.append({f"t:{j}": 1.0})
