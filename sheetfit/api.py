@@ -14,7 +14,7 @@ from typing import Any
 
 import pandas as pd
 
-from .job import FitJob, load_job_file, make_job
+from .job import FitJob, job_file_settings, make_job
 from .pipeline import fit_job, fit_observations
 from .prediction.compute import predict
 from .read.frame import observations_from_frame
@@ -25,14 +25,17 @@ __all__ = ["fit_workbook", "fit_frame", "write_results", "predict", "job_from"]
 
 
 def job_from(workbook: str | Path | None = None, job_file: str | Path | None = None, **settings: Any) -> FitJob:
-    """A validated FitJob from a job file and keyword settings (keywords win)."""
-    merged: dict[str, Any] = load_job_file(Path(job_file)) if job_file else {}
+    """A validated FitJob from a job file and keyword settings (keywords win).
+
+    Every setting is checked as a job file's would be (`sheetfit.job.SCHEMA`): a wrong type, a value
+    out of range or an unknown keyword raises JobError naming it. `sheet` is another name for
+    `sheets`; relative paths in the job file are taken from the job file's folder.
+    """
+    merged: dict[str, Any] = job_file_settings(Path(job_file)) if job_file else {}
     if workbook is not None:
         merged["workbook"] = workbook
     if "sheet" in settings:
-        s = settings.pop("sheet")
-        if s is not None:
-            settings["sheets"] = (s,) if isinstance(s, str) else tuple(s)
+        settings["sheets"] = settings.pop("sheet")
     merged.update({k: v for k, v in settings.items() if v is not None})
     return make_job(merged)
 
@@ -48,8 +51,6 @@ def fit_workbook(workbook: str | Path, *, y: str, x: Sequence[str] | str, group:
 def fit_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str] | str, group: Sequence[str] | str = (),
               order: str | None = None, **settings: Any) -> FitResults:
     """Fit one OLS model per group of an in-memory DataFrame of numbers (same tables as fit_workbook)."""
-    x = (x,) if isinstance(x, str) else tuple(x)
-    group = (group,) if isinstance(group, str) else tuple(group)
     job = make_job({"workbook": "(data frame)", "y": y, "x": x, "group": group, "order": order, **settings})
-    obs = observations_from_frame(frame, y=y, x=x, group=group, order=order)
+    obs = observations_from_frame(frame, y=job.y, x=job.x, group=job.group, order=job.order)
     return fit_observations(obs, job)

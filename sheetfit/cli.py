@@ -7,6 +7,9 @@ from __future__ import annotations
 
 import contextlib
 import enum
+import os
+import signal
+import stat
 import sys
 from collections.abc import Iterator
 from dataclasses import MISSING, fields
@@ -15,7 +18,7 @@ from typing import Any, NoReturn
 
 import typer
 
-from .errors import SheetfitError
+from .errors import InputFileError, JobError, SheetfitError
 from .job import (
     ADJUST_METHODS,
     INFERENCE_KINDS,
@@ -23,12 +26,14 @@ from .job import (
     ROBUST_KINDS,
     FitJob,
     Thresholds,
-    load_job_file,
+    check_setting,
+    job_file_settings,
     make_job,
 )
 
 PROG = "sheetfit"
 MB = 1024 * 1024
+STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")   # as pipeline.STAGES
 
 # Defaults come from the job dataclasses so help text and library never disagree.
 DEFAULTS: dict[str, Any] = {
@@ -65,20 +70,82 @@ def fail(message: str, code: int = 1) -> NoReturn:
     raise typer.Exit(code)
 
 
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised as a KeyboardInterrupt so every cleanup that Ctrl-C runs (temporary files) runs too."""
+
+
+def _raise_terminated(signum: int, frame: Any) -> NoReturn:
+    raise Terminated()
+
+
 @contextlib.contextmanager
-def error_boundary(debug: bool) -> Iterator[None]:
-    """The one place user errors become a one-line message and an exit code; --debug re-raises."""
+def _sigterm_as_interrupt() -> Iterator[None]:
+    """While the command runs, SIGTERM raises Terminated; the previous handler comes back after."""
+    try:
+        previous = signal.signal(signal.SIGTERM, _raise_terminated)
+    except (ValueError, OSError):          # not the main thread: leave signals alone
+        yield
+        return
     try:
         yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+@contextlib.contextmanager
+def _warnings_held(debug: bool) -> Iterator[None]:
+    """Python and library warnings (numpy, xlsxwriter) are recorded, not printed; --debug shows them after."""
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        if debug:
+            warnings.simplefilter("always")
+        try:
+            yield
+        finally:
+            for w in caught if debug else ():
+                text = " ".join(str(w.message).split())
+                typer.echo(f"{PROG}: warning: {w.category.__name__}: {text} ({w.filename}:{w.lineno})", err=True)
+
+
+@contextlib.contextmanager
+def error_boundary(debug: bool) -> Iterator[None]:
+    """The one place user errors become a one-line message and an exit code; --debug re-raises.
+
+    Warnings are held back (shown with --debug); SIGTERM is handled as Ctrl-C (exit 143, Ctrl-C 130).
+    """
+    try:
+        with _sigterm_as_interrupt(), _warnings_held(debug):
+            yield
     except SheetfitError as exc:
         if debug:
             raise
         fail(str(exc) or type(exc).__name__)
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:
         if debug:
             raise
-        typer.echo(f"{PROG}: interrupted; no output written", err=True)
-        raise typer.Exit(130) from None
+        stopped = isinstance(exc, Terminated)
+        typer.echo(f"{PROG}: {'stopped by SIGTERM' if stopped else 'interrupted'}; no output written", err=True)
+        raise typer.Exit(143 if stopped else 130) from None
+
+
+def refuse_special_file(path: Path | None) -> None:
+    """A named pipe, device or socket would block or never end: refuse it before anything opens it.
+
+    Missing and unreadable paths pass: the reader's check_path says those in one line.
+    """
+    if path is None:
+        return
+    try:
+        mode = os.stat(path).st_mode
+    except (OSError, ValueError):
+        return
+    if stat.S_ISREG(mode) or stat.S_ISDIR(mode):
+        return
+    kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(mode) else "a socket" if stat.S_ISSOCK(mode)
+            else "a device" if stat.S_ISCHR(mode) or stat.S_ISBLK(mode) else "a special file")
+    raise InputFileError(f'"{path}" is not a regular file (it is {kind}); save the data to a file '
+                         f'(.xlsx, .xlsm, .xls, .ods or .csv) and give its path')
 
 
 def _version(value: bool) -> None:
@@ -140,7 +207,7 @@ For example:
 
 \b
 Exit status: 0 done; 1 bad input or nothing could be fitted (one line on stderr);
-2 wrong usage; 130 interrupted.
+2 wrong usage; 130 interrupted (Ctrl-C); 143 stopped (SIGTERM).
 """
 
 def _opt(default: Any, *names: str, help: str, show_default: bool | str = True, **kw: Any) -> Any:
@@ -151,7 +218,7 @@ def _opt(default: Any, *names: str, help: str, show_default: bool | str = True, 
 def fit(
     ctx: typer.Context,
     workbook: Path | None = typer.Argument(
-        None, metavar="WORKBOOK", show_default=False,
+        None, metavar="WORKBOOK", show_default=False, readable=False,
         help="The workbook to read (.xlsx, .xlsm, .xls, .ods or .csv)."),
     sheet: list[str] | None = _opt(None, "--sheet", help="Sheet to read; repeat for several (default: the first sheet).", show_default=False, metavar="NAME"),
     all_sheets: bool = _opt(False, "--all-sheets", help="Read every sheet (they must share the same headers).", show_default=False),
@@ -165,7 +232,7 @@ def fit(
     level: float = _opt(DEFAULTS["level"], "--level", help="Confidence level of the intervals."),
     order: str | None = _opt(None, "--order", help="Column giving the time order within a group (dates, times, "
                              "counters) for the independence checks (default: row order).", show_default=False, metavar="COL"),
-    out: Path | None = _opt(None, "--out", help="Results workbook to write (default: <input name>-fit.xlsx).", show_default=False, metavar="RESULTS.xlsx"),
+    out: Path | None = _opt(None, "--out", help="Results workbook to write (default: <input name>-fit.xlsx).", show_default=False, metavar="RESULTS.xlsx", readable=False),
     overwrite: bool = _opt(False, "--overwrite", help="Replace the results workbook if it exists.", show_default=False),
     max_charts: int = _opt(DEFAULTS["max_charts"], "--max-charts", help="At most this many charts (flagged groups first)."),
     observations: ObservationRows = _opt(ObservationRows(DEFAULTS["observations"]), "--observations",
@@ -193,21 +260,22 @@ def fit(
                           help="Kind of heteroscedasticity-robust std errors."),
     inference: Inference = _opt(Inference(DEFAULTS["inference"]), "--inference",
                                 help="Std errors behind intervals and flags: classic or robust."),
-    job_file: Path | None = _opt(None, "--job", help="TOML job file with settings; options given here override it.", show_default=False, metavar="JOB.toml"),
+    job_file: Path | None = _opt(None, "--job", help="TOML job file with settings; options given here override it.", show_default=False, metavar="JOB.toml", readable=False),
     strict: bool = _opt(False, "--strict", help="Stop with an error if any row cannot be used.", show_default=False),
     csv_delimiter: str | None = _opt(None, "--csv-delimiter", help="Field separator of a .csv input (default: guessed).", show_default=False, metavar="C"),
     csv_decimal: str | None = _opt(None, "--csv-decimal", help="Decimal mark of a .csv input (default: '.').", show_default=False, metavar="C"),
     max_unpacked_mb: int = _opt(DEFAULTS["max_unpacked_bytes"] // MB, "--max-unpacked-mb",
                                 help="Refuse workbooks that unpack to more than this many MB."),
     quiet: bool = _opt(False, "--quiet", "-q", help="No progress bar and no summary; only the results path.", show_default=False),
-    debug: bool = _opt(False, "--debug", help="Show the full traceback of an error.", show_default=False),
+    debug: bool = _opt(False, "--debug", help="Show the full traceback of an error, and any warnings.", show_default=False),
 ) -> None:
     given = _given_on_command_line(ctx)
     with error_boundary(debug):
-        settings = _job_file_settings(job_file) if job_file is not None else {}
+        settings = job_file_settings(job_file) if job_file is not None else {}
         settings.update(_settings_from_options(ctx.params, given))
         _require(ctx, settings)
         job = make_job(settings)
+        refuse_special_file(job.workbook)
         from .pipeline import run_job, summary_lines
 
         with stage_bar(not quiet) as bar:
@@ -243,21 +311,13 @@ def _settings_from_options(params: dict[str, Any], given: set[str]) -> dict[str,
         if name == "no_intercept":
             settings["intercept"] = not value
         elif name == "max_unpacked_mb":
+            if value < 1:
+                raise JobError(f"--max-unpacked-mb must be a whole number, 1 or more; found {value}")
             settings["max_unpacked_bytes"] = int(value) * MB
         elif name in ("sheet", "group", "x"):
             settings[_RENAMED.get(name, name)] = tuple(value or ())
         else:
             settings[name] = value
-    return settings
-
-
-def _job_file_settings(path: Path) -> dict[str, Any]:
-    """The job file's settings; its relative workbook/out paths are taken from the job file's folder."""
-    settings = load_job_file(path)
-    for key in ("workbook", "out"):
-        value = settings.get(key)
-        if isinstance(value, str) and value and not Path(value).expanduser().is_absolute():
-            settings[key] = str(Path(path).parent / Path(value).expanduser())
     return settings
 
 
@@ -285,9 +345,7 @@ class StageBar:
     runs print nothing. The run reports its stages through `stage`; every stage's start is kept.
     """
 
-    STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
-
-    def __init__(self, enabled: bool, delay: float = 2.0):
+    def __init__(self, enabled: bool, stages: tuple[str, ...] = STAGES, delay: float = 2.0):
         import threading
         import time
 
@@ -295,6 +353,7 @@ class StageBar:
         self.enabled = enabled and _stderr_is_tty()
         self.t0 = self._clock()
         self.delay = delay
+        self.stages = stages
         self.current = ""
         self.started: dict[str, float] = {}
         self.shown = False
@@ -305,10 +364,10 @@ class StageBar:
             self._thread.start()
 
     def _line(self) -> str:
-        step = (len(self.STAGES) if self.current == "done" else
-                self.STAGES.index(self.current) + 1 if self.current in self.STAGES else 0)
+        step = (len(self.stages) if self.current == "done" else
+                self.stages.index(self.current) + 1 if self.current in self.stages else 0)
         width = 20
-        done = round(width * step / len(self.STAGES))
+        done = round(width * step / len(self.stages))
         bar = "#" * done + "-" * (width - done)
         return f"\r[{bar}] {self.current:<18} {self._clock() - self.t0:6.1f} s"
 
@@ -335,9 +394,9 @@ class StageBar:
 
 
 @contextlib.contextmanager
-def stage_bar(enabled: bool) -> Iterator[StageBar]:
+def stage_bar(enabled: bool, stages: tuple[str, ...] = STAGES) -> Iterator[StageBar]:
     """A StageBar that always ends its line, whatever happens to the run."""
-    bar = StageBar(enabled)
+    bar = StageBar(enabled, stages)
     try:
         yield bar
     finally:
@@ -346,8 +405,6 @@ def stage_bar(enabled: bool) -> Iterator[StageBar]:
 
 def _print_timings(results: Any, bar: StageBar) -> None:
     """With SHEETFIT_TIMINGS set: read, fit+checks and write times on stderr (for bench/run.py)."""
-    import os
-
     if not os.environ.get("SHEETFIT_TIMINGS"):
         return
     about = dict(results.about)
@@ -360,10 +417,10 @@ def _print_timings(results: Any, bar: StageBar) -> None:
 
 @app.command("demo")
 def demo(
-    folder: Path = typer.Option(Path("sheetfit-demo"), "--dir", metavar="DIR",
+    folder: Path = typer.Option(Path("sheetfit-demo"), "--dir", metavar="DIR", readable=False,
                              help="Folder to write into (created if needed); its two demo files are replaced."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar and no summary; only the paths."),
-    debug: bool = typer.Option(False, "--debug", help="Show the full traceback of an error."),
+    debug: bool = typer.Option(False, "--debug", help="Show the full traceback of an error, and any warnings."),
 ) -> None:
     """Write the bundled demo workbook (invented cold-storage sites) and its results into DIR."""
     with error_boundary(debug):
@@ -381,33 +438,56 @@ def demo(
 
 # ── predict ──
 
+PREDICT_STAGES = ("reading", "predicting", "writing")
+
+
 @app.command("predict")
 def predict(
-    results_workbook: Path = typer.Argument(..., metavar="RESULTS.xlsx", show_default=False,
+    results_workbook: Path = typer.Argument(..., metavar="RESULTS.xlsx", show_default=False, readable=False,
                                             help="A results workbook written by `sheetfit fit`."),
-    new_rows: Path = typer.Argument(..., metavar="NEW_ROWS", show_default=False,
+    new_rows: Path = typer.Argument(..., metavar="NEW_ROWS", show_default=False, readable=False,
                                     help="Workbook or CSV with the group key columns and the input columns."),
-    sheet: str | None = typer.Option(None, "--sheet", metavar="NAME", show_default=False,
-                                     help="Sheet of NEW_ROWS to read (default: the first sheet)."),
-    out: Path | None = typer.Option(None, "--out", metavar="PREDICTIONS.xlsx", show_default=False,
-                                    help="Where to write (default: <new rows name>-predicted.xlsx)."),
-    overwrite: bool = typer.Option(False, "--overwrite", help="Replace the output if it exists."),
-    debug: bool = typer.Option(False, "--debug", help="Show the full traceback of an error."),
+    sheet: str | None = _opt(None, "--sheet", metavar="NAME", show_default=False,
+                             help="Sheet of NEW_ROWS to read (default: the first sheet)."),
+    out: Path | None = _opt(None, "--out", metavar="PREDICTIONS.xlsx", show_default=False, readable=False,
+                            help="Where to write (default: <new rows name>-predicted.xlsx)."),
+    overwrite: bool = _opt(False, "--overwrite", help="Replace the output if it exists.", show_default=False),
+    level: float | None = _opt(None, "--level", show_default=False,
+                               help="Confidence level of the intervals (default: the fit's level)."),
+    quiet: bool = _opt(False, "--quiet", "-q", help="No progress bar and no summary; only the output path.",
+                       show_default=False),
+    debug: bool = _opt(False, "--debug", help="Show the full traceback of an error, and any warnings.", show_default=False),
 ) -> None:
     """Apply the models stored in a results workbook to new rows.
 
     Writes each row's predicted value, the confidence interval of the mean, the prediction
     interval of a new observation and an extrapolation flag; rows that cannot be predicted
-    (unknown group, missing input) get a reason.
+    (unknown group, missing input) get a reason. A group or input column missing from the new
+    rows, or no row that can be predicted, is an error (exit 1) and nothing is written.
 
+    \b
     Example:
       sheetfit predict usage-fit.xlsx plan.xlsx --sheet Plan --out plan-predicted.xlsx
+
+    \b
+    Exit status: 0 done (some rows may have a reason); 1 bad input or no row predicted;
+    2 wrong usage; 130 interrupted (Ctrl-C); 143 stopped (SIGTERM).
     """
     with error_boundary(debug):
+        refuse_special_file(results_workbook)
+        refuse_special_file(new_rows)
+        if level is not None:
+            level = check_setting("level", level)
         from .pipeline import predict_workbook
 
-        path = predict_workbook(results_workbook, new_rows, sheet, out, overwrite)
+        done: list[Any] = []
+        with stage_bar(not quiet, PREDICT_STAGES) as bar:
+            path = predict_workbook(results_workbook, new_rows, sheet, out, overwrite, level=level,
+                                    progress=bar.stage, summary=done.append)
         typer.echo(f"predictions: {path}")
+        if not quiet:
+            for line in done[0].lines() if done else ():
+                typer.echo(line)
 
 
 def main() -> None:

@@ -1,21 +1,218 @@
 """The run's settings: what to read, which model to fit, which thresholds judge it.
 
-Built from CLI options or a TOML job file (`--job`); CLI options win over the file.
+Built from CLI options, a TOML job file (`--job`) or the Python API's keyword settings; CLI options
+win over the file. Every setting is described once, in SCHEMA (expected type, allowed range or
+choices, what it means); the job file, the API keywords and the CLI values all pass through
+`check_setting`, so a wrong value is one line naming the key, the expected type and the value found.
 """
 
 from __future__ import annotations
 
+import math
+import numbers
+import os
 import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-from .errors import JobError
+from .errors import JobError, closest
 
 ADJUST_METHODS = ("bh", "holm", "none")
 ROBUST_KINDS = ("hc0", "hc1", "hc2", "hc3")
 INFERENCE_KINDS = ("classic", "robust")
 OBSERVATION_MODES = ("all", "flagged", "none")
+MAX_LAGS = 10_000
+
+
+@dataclass(frozen=True)
+class Setting:
+    """One setting's contract: its kind, the values allowed, what it means and its option on the CLI.
+
+    kind: path | text | texts (a list of texts; one text is a list of one) | bool | int | number | choice.
+    low/high bound numbers (`low_open`/`high_open`: the bound itself is excluded); `optional` allows
+    None (the default).
+    """
+
+    kind: str
+    description: str
+    option: str = ""
+    low: float | None = None
+    high: float | None = None
+    low_open: bool = False
+    high_open: bool = False
+    choices: tuple[str, ...] = ()
+    optional: bool = False
+
+    def expected(self) -> str:
+        """'a number above 0 and below 1', 'true or false', 'one of "bh", "holm", "none"'…"""
+        if self.kind == "choice":
+            return "one of " + ", ".join(f'"{c}"' for c in self.choices)
+        base = {"path": "a file path (text)", "text": "a non-empty text",
+                "texts": "a list of non-empty texts (or one text)",
+                "bool": "true or false", "int": "a whole number", "number": "a finite number"}[self.kind]
+        bounds = []
+        if self.low is not None:
+            bounds.append(f"above {self.low:g}" if self.low_open else f"{self.low:g} or more")
+        if self.high is not None:
+            bounds.append(f"below {self.high:g}" if self.high_open else f"at most {self.high:g}")
+        return base + (" " + " and ".join(bounds) if bounds else "")
+
+
+def _threshold(description: str, option: str) -> Setting:
+    return Setting("number", description, option, low=0.0, low_open=True)
+
+
+SCHEMA: dict[str, Setting] = {
+    "workbook": Setting("path", "the workbook or CSV file to read", "WORKBOOK"),
+    "y": Setting("text", "the response column", "--y"),
+    "x": Setting("texts", "the input terms (columns, COL^k, log(COL), sqrt(COL))", "--x"),
+    "group": Setting("texts", "the columns whose values split the rows into groups", "--group"),
+    "sheets": Setting("texts", "the sheets to read (default: the first)", "--sheet"),
+    "all_sheets": Setting("bool", "read every sheet", "--all-sheets"),
+    "table": Setting("text", "a named table or defined name to read instead of a sheet", "--table", optional=True),
+    "header_row": Setting("int", "the header's row number (default: first non-empty row)", "--header-row",
+                          low=1, optional=True),
+    "intercept": Setting("bool", "fit an intercept", "--no-intercept"),
+    "level": Setting("number", "the confidence level of the intervals", "--level", low=0.5, high=1.0,
+                     high_open=True),
+    "order": Setting("text", "the column giving the order within a group", "--order", optional=True),
+    "strict": Setting("bool", "stop if any row cannot be used", "--strict"),
+    "csv_delimiter": Setting("text", "the field separator of a .csv input", "--csv-delimiter", optional=True),
+    "csv_decimal": Setting("text", "the decimal mark of a .csv input", "--csv-decimal", optional=True),
+    "max_unpacked_bytes": Setting("int", "refuse workbooks that unpack to more bytes than this",
+                                  "--max-unpacked-mb", low=1),
+    "out": Setting("path", "the results workbook to write", "--out", optional=True),
+    "overwrite": Setting("bool", "replace an existing results workbook", "--overwrite"),
+    "max_charts": Setting("int", "at most this many charts", "--max-charts", low=0),
+    "observations": Setting("choice", "rows on the observations sheet", "--observations",
+                            choices=OBSERVATION_MODES),
+    "alpha": Setting("number", "the level of every p-value-based verdict", "--alpha", low=0.0, high=1.0,
+                     low_open=True, high_open=True),
+    "adjust": Setting("choice", "the p-value adjustment across groups", "--adjust", choices=ADJUST_METHODS),
+    "min_r2": Setting("number", "flag fits whose R² is below this", "--min-r2", low=0.0, high=1.0),
+    "rows_per_coefficient": _threshold("flag fits with fewer rows per coefficient", "--rows-per-coefficient"),
+    "leverage_factor": _threshold("highlight rows with leverage above factor·p/n", "--leverage-factor"),
+    "studentized_cutoff": _threshold("highlight rows with |studentized residual| above this",
+                                     "--studentized-cutoff"),
+    "cooks_factor": _threshold("highlight rows with Cook's distance above factor/n", "--cooks-factor"),
+    "vif_max": _threshold("flag inputs whose VIF exceeds this", "--vif-max"),
+    "condition_max": _threshold("flag designs whose condition number exceeds this", "--condition-max"),
+    "bg_lags": Setting("int", "lags of the Breusch–Godfrey test", "--bg-lags", low=1, high=MAX_LAGS),
+    "hac_lags": Setting("int", "lags of the Newey–West std errors (default: from n)", "--hac-lags", low=0,
+                        high=MAX_LAGS, optional=True),
+    "robust": Setting("choice", "the kind of robust std errors", "--robust", choices=ROBUST_KINDS),
+    "inference": Setting("choice", "the std errors behind intervals and flags", "--inference",
+                         choices=INFERENCE_KINDS),
+}
+TABLES = ("thresholds", "checks")        # job-file tables whose keys join the top-level ones
+
+
+def _shown(value: Any) -> str:
+    """The value found, as the user wrote it, with its kind: '"high" (text)', '[1, 2] (a list)'."""
+    if isinstance(value, bool):
+        return f"{str(value).lower()} (true/false)"
+    if isinstance(value, str):
+        return f'"{value}" (text)'
+    if isinstance(value, (list, tuple)):
+        return f"{list(value)!r} (a list)"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, numbers.Number):
+        return f"{value!r}"
+    return f"{value!r} (a {type(value).__name__})"
+
+
+def _refuse(key: str, spec: Setting, value: Any, where: str = "") -> JobError:
+    option = f" ({spec.option})" if spec.option and spec.option != key else ""
+    hint = " (write it without quotes)" if _quoted(spec, value) else ""
+    return JobError(f'{where}setting "{key}"{option} must be {spec.expected()}; found {_shown(value)}{hint}')
+
+
+def _quoted(spec: Setting, value: Any) -> bool:
+    """True when a text would be a right value without its quotes (`overwrite = "false"`, `alpha = "0.1"`)."""
+    if not isinstance(value, str):
+        return False
+    if spec.kind == "bool":
+        return value.strip().lower() in ("true", "false")
+    if spec.kind in ("int", "number"):
+        try:
+            float(value)
+        except ValueError:
+            return False
+        return True
+    return False
+
+
+def check_setting(key: str, value: Any, where: str = "") -> Any:
+    """`value` checked against SCHEMA[key] and normalised (tuple of texts, Path, float, int); else JobError.
+
+    `where` prefixes the message (e.g. 'job file job.toml: ').
+    """
+    spec = SCHEMA.get(key)
+    if spec is None:
+        raise unknown_setting(key, where)
+    if value is None and spec.optional:
+        return None
+    kind = spec.kind
+    if kind == "bool":
+        if not isinstance(value, bool):
+            raise _refuse(key, spec, value, where)
+        return value
+    if kind in ("text", "choice"):
+        if isinstance(value, str) and not value and spec.optional:
+            return None                     # an empty text is the default (`--csv-delimiter ""`)
+        if not isinstance(value, str) or not value or (kind == "choice" and value not in spec.choices):
+            raise _refuse(key, spec, value, where)
+        return value
+    if kind == "path":
+        if not isinstance(value, (str, os.PathLike)) or not str(value).strip():
+            raise _refuse(key, spec, value, where)
+        return Path(value)
+    if kind == "texts":
+        items = (value,) if isinstance(value, str) else value
+        if not isinstance(items, (list, tuple)) or not all(isinstance(v, str) and v for v in items):
+            raise _refuse(key, spec, value, where)
+        return tuple(items)
+    return _check_number(key, spec, value, where)
+
+
+def _check_number(key: str, spec: Setting, value: Any, where: str) -> int | float:
+    """An int or number setting: a real number (not a boolean, not text), finite, whole if int, in range."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
+        raise _refuse(key, spec, value, where)
+    try:
+        number = float(value)
+    except OverflowError:                   # an int beyond any float
+        raise _refuse(key, spec, value, where) from None
+    if not math.isfinite(number):
+        raise _refuse(key, spec, value, where)
+    if spec.kind == "int":
+        if isinstance(value, numbers.Integral):
+            number = int(value)
+        elif number.is_integer():
+            number = int(number)
+        else:
+            raise _refuse(key, spec, value, where)
+    if spec.low is not None and (number < spec.low or (spec.low_open and number == spec.low)):
+        raise _refuse(key, spec, value, where)
+    if spec.high is not None and (number > spec.high or (spec.high_open and number == spec.high)):
+        raise _refuse(key, spec, value, where)
+    return number
+
+
+def unknown_setting(key: str, where: str = "") -> JobError:
+    """The error for a key no setting has: names the closest known key (or lists them all)."""
+    near = closest(str(key), SCHEMA)
+    tail = (f'closest known setting: "{near}"' if near is not None
+            else "known settings: " + ", ".join(SCHEMA))
+    return JobError(f'{where}unknown setting "{key}"; {tail}')
+
+
+def _check_fields(obj: Any) -> None:
+    for f in fields(obj):
+        if f.name in SCHEMA:
+            check_setting(f.name, getattr(obj, f.name))
 
 
 @dataclass(frozen=True)
@@ -37,24 +234,8 @@ class Thresholds:
     inference: str = "classic"           # classic | robust: which std errors drive intervals and flags
 
     def validate(self) -> "Thresholds":
-        if not 0 < self.alpha < 1:
-            raise JobError(f"--alpha must be between 0 and 1, got {self.alpha}")
-        if self.adjust not in ADJUST_METHODS:
-            raise JobError(f"--adjust must be one of {', '.join(ADJUST_METHODS)}, got {self.adjust!r}")
-        if self.robust not in ROBUST_KINDS:
-            raise JobError(f"--robust must be one of {', '.join(ROBUST_KINDS)}, got {self.robust!r}")
-        if self.inference not in INFERENCE_KINDS:
-            raise JobError(f"--inference must be one of {', '.join(INFERENCE_KINDS)}, got {self.inference!r}")
-        if not 0 <= self.min_r2 <= 1:
-            raise JobError(f"--min-r2 must be between 0 and 1, got {self.min_r2}")
-        if self.bg_lags < 1:
-            raise JobError(f"--bg-lags must be at least 1, got {self.bg_lags}")
-        if self.hac_lags is not None and self.hac_lags < 0:
-            raise JobError(f"--hac-lags must be 0 or more, got {self.hac_lags}")
-        for name in ("rows_per_coefficient", "leverage_factor", "studentized_cutoff", "cooks_factor",
-                     "vif_max", "condition_max"):
-            if getattr(self, name) <= 0:
-                raise JobError(f"--{name.replace('_', '-')} must be positive, got {getattr(self, name)}")
+        """Every field against SCHEMA (type, finiteness, range, choices); JobError on the first wrong one."""
+        _check_fields(self)
         return self
 
 
@@ -84,20 +265,14 @@ class FitJob:
     thresholds: Thresholds = field(default_factory=Thresholds)
 
     def validate(self) -> "FitJob":
+        """Required settings present, then every field against SCHEMA; JobError on the first problem."""
         if not self.y:
             raise JobError("no response column given; name it with --y COLUMN")
         if not self.x:
             raise JobError("no input term given; name at least one with --x TERM")
-        if not 0.5 <= self.level < 1:
-            raise JobError(f"--level must be at least 0.5 and below 1, got {self.level}")
-        if self.max_charts < 0:
-            raise JobError(f"--max-charts must be 0 or more, got {self.max_charts}")
-        if self.observations not in OBSERVATION_MODES:
-            raise JobError(f"--observations must be one of {', '.join(OBSERVATION_MODES)}, got {self.observations!r}")
-        if self.header_row is not None and self.header_row < 1:
-            raise JobError(f"--header-row counts from 1, got {self.header_row}")
-        if self.max_unpacked_bytes <= 0:
-            raise JobError("--max-unpacked-mb must be positive")
+        _check_fields(self)
+        if not isinstance(self.thresholds, Thresholds):
+            raise JobError(f"thresholds must be a sheetfit.job.Thresholds; found {_shown(self.thresholds)}")
         self.thresholds.validate()
         return self
 
@@ -110,10 +285,14 @@ class FitJob:
         return src.with_name(f"{src.stem}-fit.xlsx")
 
     def settings_rows(self) -> list[tuple[str, str]]:
-        """(setting, value) pairs for the `about` sheet."""
+        """(setting, value) pairs for the `about` sheet, each setting once.
+
+        Left out because `about` lists them already: the input file, the response, the terms, the
+        intercept, the sheets and the header row (as read).
+        """
         rows: list[tuple[str, str]] = []
         for f in fields(self):
-            if f.name in ("thresholds", "workbook"):
+            if f.name in SHOWN_ELSEWHERE:
                 continue
             rows.append((f.name.replace("_", " "), _show(getattr(self, f.name))))
         for f in fields(self.thresholds):
@@ -121,9 +300,14 @@ class FitJob:
         return rows
 
 
+SHOWN_ELSEWHERE = ("thresholds", "workbook", "y", "x", "intercept", "sheets", "header_row")
+
+
 def _show(value: Any) -> str:
     if value is None:
         return "(default)"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
     if isinstance(value, (tuple, list)):
         return ", ".join(str(v) for v in value) if value else "(none)"
     return str(value)
@@ -131,60 +315,82 @@ def _show(value: Any) -> str:
 
 _JOB_KEYS = {f.name for f in fields(FitJob)} - {"thresholds"}
 _THRESHOLD_KEYS = {f.name for f in fields(Thresholds)}
+assert _JOB_KEYS | _THRESHOLD_KEYS == set(SCHEMA), "SCHEMA must describe every FitJob/Thresholds field"
 
 
 def load_job_file(path: Path) -> dict[str, Any]:
-    """Read a TOML job file into a flat dict of FitJob/Thresholds field names (dashes allowed)."""
+    """Read a TOML job file into a flat dict of FitJob/Thresholds field names (dashes allowed).
+
+    Every key and value is checked against SCHEMA (JobError naming the file, the key, the expected
+    type and the value found); values are returned as written (paths stay text, relative to the
+    file: see `job_file_settings`).
+    """
     path = Path(path)
-    try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise JobError(f'job file "{path}" not found; check the path given to --job') from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise JobError(f'job file "{path}" is not valid TOML: {exc}') from None
+    where = f"job file {path.name}: "
+    raw = _read_toml(path)
     flat: dict[str, Any] = {}
     for key, value in raw.items():
-        if isinstance(value, dict):  # [checks] / [thresholds] tables flatten into one namespace
-            for k, v in value.items():
-                flat[k.replace("-", "_")] = v
+        if isinstance(value, dict) and key.replace("-", "_") not in SCHEMA:
+            if key not in TABLES:
+                near = closest(key, TABLES)
+                raise JobError(f'{where}unknown table [{key}]; settings go at the top or under '
+                               f'[{near or TABLES[0]}]')
+            items = value.items()
         else:
-            flat[key.replace("-", "_")] = value
-    unknown = sorted(set(flat) - _JOB_KEYS - _THRESHOLD_KEYS)
-    if unknown:
-        raise JobError(f"job file {path.name} has unknown settings: {', '.join(unknown)}; "
-                       f"known ones are: {', '.join(sorted(_JOB_KEYS | _THRESHOLD_KEYS))}")
+            items = [(key, value)]
+        for k, v in items:
+            name = k.replace("-", "_")
+            if name in flat:
+                raise JobError(f'{where}setting "{name}" is given twice; keep one')
+            check_setting(name, v, where)
+            flat[name] = v
     return flat
 
 
+def _read_toml(path: Path) -> dict[str, Any]:
+    """The parsed file; a missing file, a folder, an unreadable or special file or bad TOML → JobError."""
+    if path.is_dir():
+        raise JobError(f'job file "{path}" is a folder; give the path of a TOML file to --job')
+    if path.exists() and not path.is_file():
+        raise JobError(f'job file "{path}" is not a regular file (a pipe, device or socket); '
+                       f'give the path of a TOML file to --job')
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise JobError(f'job file "{path}" not found; check the path given to --job') from None
+    except OSError as exc:
+        raise JobError(f'job file "{path}" cannot be read ({exc.strerror or exc}); check its permissions') from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise JobError(f'job file "{path}" is not valid TOML: {" ".join(str(exc).split())}') from None
+
+
+def job_file_settings(path: Path) -> dict[str, Any]:
+    """The job file's settings, with its relative workbook/out paths taken from the job file's folder."""
+    settings = load_job_file(path)
+    for key in ("workbook", "out"):
+        value = settings.get(key)
+        if isinstance(value, str) and value and not Path(value).expanduser().is_absolute():
+            settings[key] = str(Path(path).parent / Path(value).expanduser())
+    return settings
+
+
 def make_job(settings: dict[str, Any]) -> FitJob:
-    """Build and validate a FitJob from a flat dict of settings (job file merged with CLI options)."""
+    """Build and validate a FitJob from a flat dict of settings (job file merged with CLI options).
+
+    None means "the default". Every value is checked against SCHEMA first, so a wrong type is a
+    JobError naming the key, never a TypeError from deep inside a run.
+    """
     job_kw: dict[str, Any] = {}
     thr_kw: dict[str, Any] = {}
     for key, value in settings.items():
         if value is None:
             continue
-        if key in _THRESHOLD_KEYS:
-            thr_kw[key] = value
-        elif key in _JOB_KEYS:
-            job_kw[key] = value
-        else:
-            raise JobError(f"unknown setting {key!r}")
-    for key in ("x", "group", "sheets"):
-        if key in job_kw:
-            v = job_kw[key]
-            job_kw[key] = (v,) if isinstance(v, str) else tuple(v)
-    for key in ("workbook", "out"):
-        if key in job_kw and job_kw[key] is not None:
-            job_kw[key] = Path(job_kw[key])
+        value = check_setting(key, value)
+        (thr_kw if key in _THRESHOLD_KEYS else job_kw)[key] = value
     if "workbook" not in job_kw:
         raise JobError("no workbook given; pass WORKBOOK or set workbook in the job file")
     if "y" not in job_kw:
         raise JobError("no response column given; name it with --y COLUMN")
     if "x" not in job_kw:
         raise JobError("no input term given; name at least one with --x TERM")
-    try:
-        thresholds = Thresholds(**thr_kw)
-        job = FitJob(thresholds=thresholds, **job_kw)
-    except TypeError as exc:
-        raise JobError(f"bad setting: {exc}") from None
-    return job.validate()
+    return FitJob(thresholds=Thresholds(**thr_kw), **job_kw).validate()

@@ -140,8 +140,12 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit, i
         "influential rows": np.bincount(codes, weights=highlights["influential"], minlength=G),
         "condition number": condition,
     }
-    dropped = np.bincount(rows.codes_all, weights=rows.reason != "", minlength=G).astype(int)
-    groups = tables.groups_table(keys, fit, inf, judged.flags, judged.reasons, dropped, group_extra)
+    # n and rows dropped count the rows `observations` says are used and not used (a group that
+    # could not be fitted uses none of its rows)
+    used = (rows.reason == "") & fit.fitted_ok[rows.codes_all]
+    n_used = np.bincount(rows.codes_all, weights=used, minlength=G).astype(np.int64)
+    dropped = np.bincount(rows.codes_all, weights=~used, minlength=G).astype(np.int64)
+    groups = tables.groups_table(keys, fit, inf, judged.flags, judged.reasons, (n_used, dropped), group_extra)
     observations = observations_table(obs, rows.reason, rows.pos, rows.codes_all, fit, highlights)
     ranges = tables.observed_ranges(rows.columns, codes, G)
     return FitResults(
@@ -152,7 +156,7 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit, i
         quantiles=tables.quantiles_table(keys, fit, codes),
         xtx_inverse=tables.xtx_table(keys, fit, labels),
         input_ranges=tables.ranges_table(keys, fit, ranges),
-        info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)),
+        info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)), order=obs.order,
     )
 
 
@@ -224,31 +228,55 @@ def summary_lines(results: FitResults) -> list[str]:
 
 
 def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None, out: Path | None,
-                     overwrite: bool) -> Path:
+                     overwrite: bool, *, level: float | None = None, progress: ProgressCallback | None = None,
+                     summary: Callable[[object], None] | None = None) -> Path:
     """Apply the models stored in a results workbook to a sheet of new rows; write a predictions workbook.
 
-    Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went.
+    Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went;
+    `summary`, when given, receives a `prediction.summary.PredictionSummary` (rows, predicted, sheets).
+    `level` sets the intervals' confidence level (default: the fit's). A group or input column
+    missing from the new rows, or no row that can be predicted, is an error and nothing is written.
+    Stages reported to `progress`: reading, predicting, writing.
     """
     from .errors import OutputError
-    from .prediction.compute import predict_cells
-    from .prediction.new_rows import inputs_as_numbers, read_new_rows
+    from .prediction.compute import at_level, predict_cells
+    from .prediction.new_rows import inputs_as_numbers, read_new_rows, require_columns
+    from .prediction.summary import (
+        PredictionSummary,
+        count_predicted,
+        nothing_predicted,
+    )
     from .read import check_path
-    from .report.predictions import write_predictions
+    from .report.predictions import output_error, write_predictions
     from .report.safe import check_output_path
     from .results.store import read_store
 
+    progress = progress or _no_progress
     results_path, new_rows_path = Path(results_path), Path(new_rows_path)
+    progress("reading")
     check_path(new_rows_path)
-    store = read_store(results_path)
+    store = at_level(read_store(results_path), level)
     target = Path(out) if out is not None else new_rows_path.with_name(f"{new_rows_path.stem}-predicted.xlsx")
-    target = check_output_path(new_rows_path, target, overwrite)
-    if target.resolve() == results_path.resolve():
+    try:
+        target = check_output_path(new_rows_path, target, overwrite)
+        same = target.resolve() == results_path.resolve()
+    except OSError as exc:                      # e.g. a name too long for the file system
+        raise output_error(target, exc) from None
+    if same:
         raise OutputError(f'output "{target}" is the results workbook; choose another --out')
-    frame, src_rows, sheet_name = read_new_rows(new_rows_path, sheet)
-    raw = {c: frame[c].tolist() for c in (*store.group_columns, *store.sources) if c in frame.columns}
-    preds = predict_cells(store, raw, len(frame))
-    frame = inputs_as_numbers(frame, store.sources)     # inputs read as numbers are written as numbers
-    write_predictions(target, overwrite, store, frame, src_rows, preds,
-                      (("results workbook", results_path.name), ("new rows", new_rows_path.name),
-                       ("sheet", sheet_name)))
+    new = read_new_rows(new_rows_path, sheet)
+    require_columns(new, store)
+    progress("predicting")
+    raw = {c: new.frame[c].tolist() for c in (*store.group_columns, *store.sources)}
+    preds = predict_cells(store, raw, len(new.frame))
+    done = count_predicted(preds)
+    if done == 0:
+        raise nothing_predicted(preds, new.source_rows, new.where())
+    frame = inputs_as_numbers(new.frame, store.sources)     # inputs read as numbers are written as numbers
+    progress("writing")
+    sheets = write_predictions(target, overwrite, store, frame, new.source_rows, preds,
+                               (("results workbook", results_path.name), ("new rows", new_rows_path.name),
+                                ("sheet", new.sheet)))
+    if summary is not None:
+        summary(PredictionSummary(target, len(preds), done, tuple(sheets)))
     return target

@@ -6,6 +6,8 @@ Oracle: statsmodels OLS `get_prediction(exog).summary_frame(alpha)` fitted on th
 
 from __future__ import annotations
 
+import errno
+
 import numpy as np
 import openpyxl
 import pandas as pd
@@ -14,10 +16,22 @@ import statsmodels.api as sm
 
 import sheetfit
 from sheetfit.api import fit_frame
-from sheetfit.errors import ResultsWorkbookError, SheetNotFoundError
+from sheetfit.errors import (
+    ColumnNotFoundError,
+    JobError,
+    NoUsableDataError,
+    OutputError,
+    ResultsWorkbookError,
+    SheetNotFoundError,
+)
 from sheetfit.pipeline import predict_workbook
-from sheetfit.report import fastrows, write_results
-from sheetfit.results.store import RESULT_COLUMNS, read_store, store_from_results, store_layout
+from sheetfit.report import fastrows, predictions, write_results
+from sheetfit.results.store import (
+    RESULT_COLUMNS,
+    read_store,
+    store_from_results,
+    store_layout,
+)
 from tests.oracle import curved_groups
 
 ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
@@ -231,3 +245,134 @@ def test_predict_workbook_refuses_what_it_should(results, tmp_path):
         predict_workbook(fit_path, new_path, None, new_path, True)
     with pytest.raises(sheetfit.errors.OutputError, match="is the results workbook"):
         predict_workbook(fit_path, new_path, None, fit_path, True)
+
+
+def test_level_can_be_chosen_at_prediction_time(results, data):
+    new = NEW.assign(g="C")
+    assert_matches(sheetfit.predict(results, new, level=0.8), oracle(data, "C", new, 0.8))
+    with pytest.raises(JobError, match='setting "level"'):
+        sheetfit.predict(results, new, level=float("nan"))
+
+
+def test_inputs_too_large_to_compute_get_a_reason(results):
+    # x^2 of 1e200 (and of 1e160, -1e308) overflows; log(1e308) stays finite
+    new = pd.DataFrame({"g": ["A", "A", "A", "A"], "x": [1e200, 2.0, 1e160, -1e308], "z": [1.0, 1e308, 1.0, 1.0]})
+    pred = sheetfit.predict(results, new)
+    why = pred["reason"].tolist()
+    assert why[0].startswith("x^2 at these inputs is too large to compute")
+    assert why[1] == "" and np.isfinite(pred["predicted"][1])
+    for r in (0, 2, 3):
+        assert why[r], r
+        assert pred.loc[r, list(ORACLE)].isna().all() and pred["extrapolation"][r] == ""
+    finite = pred[pred["reason"] == ""][list(ORACLE)].to_numpy(np.float64)
+    assert np.isfinite(finite).all()
+    # a straight line: the term 1e308 is finite, its variance term x'(X'X)⁻¹x is not
+    rng = np.random.default_rng(2)
+    line = pd.DataFrame({"x": rng.uniform(0, 5, 20)})
+    line["y"] = 1 + 2 * line["x"] + rng.normal(0, 0.1, 20)
+    pred = sheetfit.predict(fit_frame(line, y="y", x="x"), pd.DataFrame({"x": [1e308, 1.0]}))
+    assert pred["reason"][0].startswith("the prediction or its interval at these inputs is too large to compute")
+    assert pred["predicted"].isna().tolist() == [True, False]
+
+
+def summary_of(*args, **kwargs):
+    got = []
+    path = predict_workbook(*args, summary=got.append, **kwargs)
+    assert len(got) == 1 and got[0].path == path
+    return got[0]
+
+
+def test_summary_counts_rows_and_reasons(results, tmp_path):
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["A", "", 2.0, 5.0], ["Q", "", 2.0, 5.0], ["B", "", 3.0, 2.0]])
+    done = summary_of(fit_path, new_path, None, None, False)
+    assert (done.rows, done.predicted, done.sheets) == (3, 2, ("predictions",))
+    assert done.lines() == ["3 rows: 2 predicted, 1 with a reason (see the reason column)"]
+
+
+@pytest.mark.parametrize("header, missing, near", [
+    (("g", "note", "x", "zz"), 'input column "z"', '"zz"'),
+    (("G", "note", "x", "z"), 'group column "g"', '"G"'),           # letter case differs
+])
+def test_a_missing_column_is_an_error_naming_the_closest(results, tmp_path, header, missing, near):
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["A", "", 2.0, 5.0]], header=header)
+    with pytest.raises(ColumnNotFoundError) as err:
+        predict_workbook(fit_path, new_path, None, None, False)
+    msg = str(err.value)
+    assert f'{missing} not found in sheet "new" of "new.xlsx"' in msg and f"closest match: {near}" in msg
+    assert not new_path.with_name("new-predicted.xlsx").exists()
+
+
+def test_a_notes_sheet_first_points_at_the_other_sheets(results, tmp_path):
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    wb = openpyxl.Workbook()
+    wb.active.title = "Notes"
+    wb.active.append(["Plan for next year, see sheet Plan"])
+    plan = wb.create_sheet("Plan")
+    plan.append(["g", "x", "z"])
+    plan.append(["A", 2.0, 5.0])
+    wb.save(new_path)
+    with pytest.raises(ColumnNotFoundError, match='the first sheet is read unless --sheet names another: "Plan"'):
+        predict_workbook(fit_path, new_path, None, None, False)
+    assert summary_of(fit_path, new_path, "Plan", None, False).predicted == 1
+
+
+def test_nothing_predicted_is_an_error_and_nothing_is_written(results, tmp_path):
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["Q", "", 2.0, 5.0], ["A", "", "abc", 5.0]])
+    with pytest.raises(NoUsableDataError, match=r'none of the 2 new rows .* row 2: no fitted model for group "Q"'):
+        predict_workbook(fit_path, new_path, None, None, False)
+    write_new_rows(new_path, [])
+    with pytest.raises(NoUsableDataError, match="has a header but no rows"):
+        predict_workbook(fit_path, new_path, None, None, False)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["fit.xlsx", "new.xlsx"]
+
+
+def test_more_rows_than_a_sheet_holds_continue_on_more_sheets(results, tmp_path, monkeypatch):
+    monkeypatch.setattr(predictions, "MAX_DATA_ROWS", 3)
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    rows = [["ABC"[i % 3], f"row {i}", 1.0 + i, 2.0] for i in range(7)]
+    write_new_rows(new_path, rows)
+    done = summary_of(fit_path, new_path, None, None, False)
+    assert done.sheets == ("predictions", "predictions (2)", "predictions (3)")
+    assert (done.rows, done.predicted) == (7, 7)
+    assert done.lines()[1] == ("more rows than one sheet holds: written on 3 sheets "
+                               "(predictions, predictions (2), predictions (3))")
+    wb = openpyxl.load_workbook(done.path, read_only=True)
+    assert wb.sheetnames == ["predictions", "predictions (2)", "predictions (3)", "about"]
+    seen = []
+    for name in wb.sheetnames[:3]:
+        table = list(wb[name].iter_rows(values_only=True))
+        assert table[0][:3] == ("source row", "g", "note")      # every part has the header
+        seen += [r[2] for r in table[1:]]
+    assert seen == [r[1] for r in rows]
+    about = dict(wb["about"].iter_rows(values_only=True))
+    assert "continues on 'predictions (2)', 'predictions (3)'" in about["sheets"]
+    wb.close()
+
+
+def test_a_full_disk_or_a_too_long_name_is_one_line(results, tmp_path, monkeypatch):
+    import xlsxwriter
+    from xlsxwriter.exceptions import FileCreateError
+
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["A", "", 2.0, 5.0]])
+    long_name = tmp_path / ("p" * 300 + ".xlsx")
+    with pytest.raises(OutputError, match="the name is too long for the file system; choose a shorter name"):
+        predict_workbook(fit_path, new_path, None, long_name, False)
+
+    def full(self):
+        raise FileCreateError(OSError(errno.ENOSPC, "No space left on device"))
+
+    monkeypatch.setattr(xlsxwriter.Workbook, "close", full)
+    with pytest.raises(OutputError) as err:
+        predict_workbook(fit_path, new_path, None, tmp_path / "p.xlsx", False)
+    assert str(err.value).startswith(f'no space left on the disk while writing "{tmp_path / "p.xlsx"}"')
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["fit.xlsx", "new.xlsx"]     # no temporary file

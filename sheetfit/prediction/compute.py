@@ -7,6 +7,7 @@ workbook is `sheetfit.prediction.new_rows`; writing the predictions workbook is
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import math
 from collections.abc import Sequence
@@ -16,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from ..job import check_setting
 from ..model.engine import design_row
 from ..read.cells import cell_number, label
 from ..results.store import (
@@ -30,15 +32,17 @@ if TYPE_CHECKING:
     from ..results.types import FitResults
 
 
-def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: pd.DataFrame) -> pd.DataFrame:
+def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: pd.DataFrame,
+            level: float | None = None) -> pd.DataFrame:
     """Predicted value, confidence interval of the mean and prediction interval for each new row.
 
-    `new_rows` holds the group key columns and the model's source input columns. Intervals use the
-    fit's confidence level and a t quantile with the group's residual degrees of freedom. Rows that
-    cannot be predicted (unknown group, missing or non-numeric input, log/sqrt of a bad value)
-    keep empty results and a reason. Columns: the group keys and inputs given, then RESULT_COLUMNS.
+    `new_rows` holds the group key columns and the model's source input columns. Intervals use
+    `level` (default: the fit's confidence level) and a t quantile with the group's residual degrees
+    of freedom. Rows that cannot be predicted (unknown group, missing or non-numeric input, log/sqrt
+    of a bad value, an input so large that a term or the prediction is not a finite number) keep
+    empty results and a reason. Columns: the group keys and inputs given, then RESULT_COLUMNS.
     """
-    store = _store(results_or_path)
+    store = at_level(_store(results_or_path), level)
     if not isinstance(new_rows, pd.DataFrame):
         raise TypeError("new_rows must be a pandas DataFrame")
     given = [str(c) for c in new_rows.columns]
@@ -48,6 +52,13 @@ def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: p
     front = pd.DataFrame({c: new_rows.iloc[:, given.index(c)].to_numpy() for c in raw}, index=new_rows.index)
     out.index = new_rows.index
     return pd.concat([front, out], axis=1)
+
+
+def at_level(store: ModelStore, level: float | None) -> ModelStore:
+    """The store with its intervals at confidence `level` (checked as --level is), or as fitted when None."""
+    if level is None:
+        return store
+    return dataclasses.replace(store, level=check_setting("level", level))
 
 
 def _store(obj: Any) -> ModelStore:
@@ -69,7 +80,11 @@ def predict_cells(store: ModelStore, raw: dict[str, list], n_rows: int) -> pd.Da
         for r in np.flatnonzero(bad):
             reasons[r].append(t.domain_reason())
     ok = np.array([not r for r in reasons], dtype=bool) & (gidx >= 0)
-    out = pd.DataFrame(_intervals(store, gidx, X, np.flatnonzero(ok), n_rows))
+    results, too_large = _intervals(store, gidx, X, np.flatnonzero(ok), n_rows)
+    for r, why in too_large.items():
+        reasons[r].append(why)
+        ok[r] = False
+    out = pd.DataFrame(results)
     extrap = np.full(n_rows, "", dtype=object)
     for r in np.flatnonzero(ok):
         extrap[r] = _extrapolation(store, gidx[r], X[r])
@@ -128,26 +143,50 @@ def _inputs(store: ModelStore, raw: dict[str, list], n_rows: int, reasons: list[
 
 
 def _intervals(store: ModelStore, gidx: np.ndarray, X: np.ndarray, rows: np.ndarray,
-               n_rows: int) -> dict[str, np.ndarray]:
-    """Predicted value, its standard error and both intervals for `rows` (NaN elsewhere)."""
+               n_rows: int) -> tuple[dict[str, np.ndarray], dict[int, str]]:
+    """Predicted value, its standard error and both intervals for `rows` (NaN elsewhere).
+
+    Also returns, per row whose term values or results are not finite numbers (an input such as
+    1e308 squared), the reason; those rows keep empty results.
+    """
     from scipy import stats
 
     res = {c: np.full(n_rows, np.nan) for c in RESULT_COLUMNS[:6]}
     if not len(rows):
-        return res
+        return res, {}
     g = gidx[rows]
-    D = design_row(store.terms, store.intercept, {c: X[rows, j] for j, c in enumerate(store.sources)})
-    pred = np.einsum("np,np->n", D, store.beta[g])
-    quad = np.einsum("np,npq,nq->n", D, store.xtx_inv[g], D)
-    s2 = store.sigma2[g]
-    se = np.sqrt(np.maximum(s2 * quad, 0.0))
-    se_obs = np.sqrt(np.maximum(s2 * (1.0 + quad), 0.0))
-    t_q = stats.t.ppf(0.5 + store.level / 2.0, store.df[g])
-    res["predicted"][rows] = pred
-    res["std error of mean"][rows] = se
-    res["mean CI low"][rows], res["mean CI high"][rows] = pred - t_q * se, pred + t_q * se
-    res["prediction low"][rows], res["prediction high"][rows] = pred - t_q * se_obs, pred + t_q * se_obs
-    return res
+    with np.errstate(all="ignore"):
+        D = design_row(store.terms, store.intercept, {c: X[rows, j] for j, c in enumerate(store.sources)})
+        pred = np.einsum("np,np->n", D, store.beta[g])
+        quad = np.einsum("np,npq,nq->n", D, store.xtx_inv[g], D)
+        s2 = store.sigma2[g]
+        se = np.sqrt(np.maximum(s2 * quad, 0.0))
+        se_obs = np.sqrt(np.maximum(s2 * (1.0 + quad), 0.0))
+        t_q = stats.t.ppf(0.5 + store.level / 2.0, store.df[g])
+        found = {"predicted": pred, "std error of mean": se,
+                 "mean CI low": pred - t_q * se, "mean CI high": pred + t_q * se,
+                 "prediction low": pred - t_q * se_obs, "prediction high": pred + t_q * se_obs}
+    too_large = _not_finite(store, D, np.column_stack(list(found.values())), rows)
+    keep = np.array([r not in too_large for r in rows], dtype=bool)
+    for name, values in found.items():
+        res[name][rows[keep]] = values[keep]
+    return res, too_large
+
+
+def _not_finite(store: ModelStore, D: np.ndarray, found: np.ndarray, rows: np.ndarray) -> dict[int, str]:
+    """Row → reason, for rows whose term values or results are not finite numbers."""
+    labels = store.term_labels
+    out: dict[int, str] = {}
+    bad_terms, bad_results = ~np.isfinite(D), ~np.isfinite(found).all(axis=1)
+    for i in np.flatnonzero(bad_terms.any(axis=1) | bad_results):
+        if bad_terms[i].any():
+            term = labels[int(np.flatnonzero(bad_terms[i])[0])]
+            out[int(rows[i])] = (f"{term} at these inputs is too large to compute (not a finite number); "
+                                 f"check the inputs' units")
+        else:
+            out[int(rows[i])] = ("the prediction or its interval at these inputs is too large to compute "
+                                 "(not a finite number); check the inputs' units")
+    return out
 
 
 def _close_label(name: str, labels: Sequence[str]) -> str | None:

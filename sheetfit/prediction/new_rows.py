@@ -7,24 +7,72 @@ remembers its row number in the sheet.
 from __future__ import annotations
 
 import datetime as dt
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from ..errors import NoUsableDataError, SheetNotFoundError, not_found_message
+from ..errors import (
+    ColumnNotFoundError,
+    NoUsableDataError,
+    SheetNotFoundError,
+    closest,
+    not_found_message,
+)
 from ..read import open_book, sniff
 from ..read.cells import NO_RESULT, ErrorCell, cell_number, header_name, is_blank
-from ..results.store import MAX_UNPACKED
+from ..results.store import MAX_UNPACKED, ModelStore
 
 
-def read_new_rows(path: Path, sheet: str | None) -> tuple[pd.DataFrame, np.ndarray, str]:
-    """Cells of one sheet under its first non-empty row (the header): (raw values, source rows, sheet)."""
+@dataclass(frozen=True)
+class NewRows:
+    """The new rows as read: raw cell values under the header, their row numbers, which sheet."""
+
+    frame: pd.DataFrame              # one column per header, cells as read (text, numbers, dates, None)
+    source_rows: np.ndarray          # each row's number in the sheet
+    sheet: str                       # the sheet read
+    sheet_names: tuple[str, ...]     # every sheet of the file
+    by_default: bool                 # the sheet was not named (the first one was read)
+    file_name: str
+
+    def where(self) -> str:
+        return f'sheet "{self.sheet}" of "{self.file_name}"'
+
+
+def require_columns(new: NewRows, store: ModelStore) -> None:
+    """Every group key and input column the models need is a header of the new rows, else one line.
+
+    Headers are compared exactly, as `sheetfit fit` compares them; the message names the closest
+    header and, when the first sheet was read by default, the other sheets.
+    """
+    headers = [str(c) for c in new.frame.columns]
+    for name in (*store.group_columns, *store.sources):
+        if name in headers:
+            continue
+        kind = "group column" if name in store.group_columns else "input column"
+        msg = (not_found_message("column", name, headers).replace('column "', f'{kind} "', 1)
+               .replace(" not found;", f" not found in {new.where()};", 1))
+        near = closest(name, headers)
+        if near is not None and near.lower() == name.lower():
+            msg += " (headers must match the fit's letter case)"
+        others = [s for s in new.sheet_names if s != new.sheet]
+        if new.by_default and others:
+            msg += ("; the first sheet is read unless --sheet names another: "
+                    + ", ".join(f'"{s}"' for s in others[:10]))
+        raise ColumnNotFoundError(msg)
+    if not len(new.frame):
+        raise NoUsableDataError(f"{new.where()} has a header but no rows below it; add the new rows to predict")
+
+
+def read_new_rows(path: Path, sheet: str | None) -> NewRows:
+    """Cells of one sheet under its first non-empty row (the header), with their row numbers."""
     fmt = sniff(path, MAX_UNPACKED)
     book = open_book(path, fmt)
     try:
         names = book.sheet_names()
+        by_default = sheet is None
         if sheet is None:
             if not names:
                 raise SheetNotFoundError(f'"{path.name}" has no worksheet; give a workbook with the new rows')
@@ -37,8 +85,11 @@ def read_new_rows(path: Path, sheet: str | None) -> tuple[pd.DataFrame, np.ndarr
     rows = grid.rows
     h = next((i for i, r in enumerate(rows) if any(not is_blank(v) for v in r)), None)
     if h is None:
-        raise NoUsableDataError(f'sheet "{sheet}" of "{path.name}" is empty; put a header row and the new rows '
-                                f'there')
+        others = [s for s in names if s != sheet] if by_default else []
+        fix = ("name the sheet with --sheet (other sheets: " + ", ".join(f'"{s}"' for s in others[:10]) + ")"
+               if others
+               else "put a header row and the new rows there")
+        raise NoUsableDataError(f'sheet "{sheet}" of "{path.name}" is empty; {fix}')
     headers = [header_name(v) for v in rows[h]]
     keep = [j for j, name in enumerate(headers) if name]
     body, src = [], []
@@ -50,7 +101,7 @@ def read_new_rows(path: Path, sheet: str | None) -> tuple[pd.DataFrame, np.ndarr
         src.append(grid.top + i)
     names_kept = _dedupe([headers[j] for j in keep])
     frame = pd.DataFrame(body, columns=names_kept, dtype=object) if body else pd.DataFrame(columns=names_kept)
-    return frame, np.asarray(src, dtype=np.int64), sheet
+    return NewRows(frame, np.asarray(src, dtype=np.int64), sheet, tuple(names), by_default, path.name)
 
 
 def _plain_cell(v: Any) -> Any:

@@ -1,57 +1,112 @@
 """The predictions workbook `sheetfit predict` writes: the new rows as given, their predictions, an about sheet.
 
-Computes nothing: the predictions come from `sheetfit.prediction.compute.predict_cells`.
+Computes nothing: the predictions come from `sheetfit.prediction.compute.predict_cells`. More rows
+than a sheet holds continue on `predictions (2)`, `predictions (3)`… as the results workbook's long
+tables do (report.tables).
 """
 
 from __future__ import annotations
 
+import errno
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from ..errors import OutputError
 from ..results.store import ModelStore
+from . import tables
 from .book import WORKBOOK_OPTIONS
 from .columns import Column
 from .safe import atomic_output
 from .styles import Styles
 from .tables import Rule, highlight_rows
 
+SHEET = "predictions"
+MAX_DATA_ROWS = tables.MAX_DATA_ROWS            # data rows per sheet (a sheet holds 1,048,576 rows)
+ZIP64_CELLS = 40_000_000                          # beyond this many cells the archive may pass 4 GB
 WIDTHS = {"extrapolation": 50, "reason": 60}      # these columns hold sentences
 HIGHLIGHTS = (Rule("reason", 'LEN({c})>0', "left_out"), Rule("extrapolation", 'LEFT({c},3)="yes"', "check_failed"))
 
 
 def write_predictions(target: Path, overwrite: bool, store: ModelStore, frame: pd.DataFrame,
-                      src_rows: np.ndarray, preds: pd.DataFrame, about: tuple[tuple[str, str], ...]) -> None:
-    """The predictions workbook at `target`: complete or not at all (see report.safe)."""
+                      src_rows: np.ndarray, preds: pd.DataFrame, about: tuple[tuple[str, str], ...]) -> list[str]:
+    """The predictions workbook at `target`: complete or not at all (see report.safe).
+
+    Returns the names of the predictions sheets. A full disk, a name too long for the file system
+    or another OS error while writing is an OutputError naming `target`.
+    """
     import xlsxwriter
+    from xlsxwriter.exceptions import FileCreateError, FileSizeError
 
     table = pd.concat([pd.DataFrame({"source row": src_rows}), frame.reset_index(drop=True),
                        preds.reset_index(drop=True)], axis=1)
-    with atomic_output(target, overwrite) as tmp:
-        wb = xlsxwriter.Workbook(str(tmp), {**WORKBOOK_OPTIONS, "constant_memory": False})
-        st = Styles(wb)
-        _predictions_sheet(wb.add_worksheet("predictions"), st, table)
-        done = int(preds["predicted"].notna().sum())
-        _about_sheet(wb.add_worksheet("about"), st, [*about, *_about_lines(store, len(table), done)])
-        wb.close()
+    try:
+        with atomic_output(target, overwrite) as tmp:
+            wb = xlsxwriter.Workbook(str(tmp), WORKBOOK_OPTIONS)
+            if len(table) * max(len(table.columns), 1) > ZIP64_CELLS:
+                wb.use_zip64()
+            st = Styles(wb)
+            names = _predictions_sheets(wb, st, table)
+            done = int(preds["predicted"].notna().sum())
+            _about_sheet(wb.add_worksheet("about"), st,
+                         [*about, *_about_lines(store, len(table), done), *_split_lines(names)])
+            wb.close()
+    except (OSError, FileCreateError, FileSizeError) as exc:
+        raise output_error(target, exc) from None
+    return names
 
 
-def _predictions_sheet(ws: Any, st: Styles, table: pd.DataFrame) -> None:
-    """One row per new row: source row, the columns given, then the results (reasons and extrapolation lit)."""
+def output_error(target: Path, exc: BaseException) -> OutputError:
+    """The one-line error for an OS failure writing `target` (xlsxwriter wraps the OSError it met)."""
+    cause = exc if isinstance(exc, OSError) else next((a for a in exc.args if isinstance(a, OSError)), None)
+    code = getattr(cause, "errno", None)
+    if code == errno.ENAMETOOLONG:
+        return OutputError(f'output "{target}": the name is too long for the file system; choose a shorter '
+                           f'name with --out')
+    if code in (errno.ENOSPC, errno.EDQUOT):
+        return OutputError(f'no space left on the disk while writing "{target}"; free some space or choose '
+                           f'another --out on another disk (nothing was written)')
+    why = getattr(cause, "strerror", None) or " ".join(str(exc).split())[:160]
+    return OutputError(f'could not write "{target}" ({why}); choose another --out')
+
+
+def _predictions_sheets(wb: Any, st: Styles, table: pd.DataFrame) -> list[str]:
+    """The table on as many sheets as its rows need, each with its header row."""
     n = len(table)
     columns = [Column(h, table.iloc[:, j], n) for j, h in enumerate(table.columns)]
+    names = []
+    for part in range(max(1, -(-n // MAX_DATA_ROWS))):
+        name = SHEET if part == 0 else f"{SHEET} ({part + 1})"
+        lo, hi = part * MAX_DATA_ROWS, min(n, (part + 1) * MAX_DATA_ROWS)
+        _predictions_sheet(wb.add_worksheet(name), st, columns, lo, hi)
+        names.append(name)
+    return names
+
+
+def _predictions_sheet(ws: Any, st: Styles, columns: list[Column], lo: int, hi: int) -> None:
+    """Rows lo..hi: source row, the columns given, then the results (reasons and extrapolation lit)."""
+    n = hi - lo
     for j, col in enumerate(columns):
         wide = WIDTHS.get(col.header, min(col.width, 40))
         ws.set_column(j, j, wide, st.number(col.num_format) if col.num_format else None)
     ws.write_row(0, 0, [c.header for c in columns], st.header)
-    for r, row in enumerate(zip(*(c.block(0, n) for c in columns)), start=1):
-        ws.write_row(r, 0, row)
+    for start in range(lo, hi, tables.BLOCK_ROWS):
+        stop = min(hi, start + tables.BLOCK_ROWS)
+        for r, row in enumerate(zip(*(c.block(start, stop) for c in columns)), start=start - lo + 1):
+            ws.write_row(r, 0, row)
     ws.freeze_panes(1, 0)
     ws.autofilter(0, 0, max(n, 1), len(columns) - 1)
     if n:
         highlight_rows(ws, st, [c.header for c in columns], HIGHLIGHTS, n)
+
+
+def _split_lines(names: list[str]) -> list[tuple[str, str]]:
+    if len(names) < 2:
+        return []
+    return [("sheets", f"more rows than a sheet holds ({MAX_DATA_ROWS:,} data rows each), so the table "
+                       f"continues on {', '.join(repr(s) for s in names[1:])}")]
 
 
 def _about_lines(store: ModelStore, n: int, done: int) -> list[tuple[str, str]]:
