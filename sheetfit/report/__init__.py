@@ -14,14 +14,12 @@ chart ranges) and fills it after every builder ran. Then return it from `_extra_
 from __future__ import annotations
 
 import shutil
-import tempfile
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from ..errors import OutputError
 from .book import WORKBOOK_OPTIONS, SheetBuilder, WriteContext
-from .safe import atomic_output, check_output_path
+from .safe import atomic_output, check_output_path, output_error, scratch_folder
 
 if TYPE_CHECKING:
     from ..results.types import FitResults
@@ -56,7 +54,9 @@ def write_results(results: "FitResults", path: Path | None = None, overwrite: bo
     """Write the results workbook to `path` (default: beside the input) and return where it went.
 
     Refuses the input file itself, an existing file unless `overwrite` (or the job's overwrite),
-    and an unwritable folder, each with OutputError. The file appears complete or not at all.
+    and an unwritable folder, each with OutputError. The file appears complete or not at all; a
+    failure of the file system (no space left, a name too long…) is an OutputError too, and leaves
+    neither the temporary file nor the scratch folder behind (see report.safe).
     """
     import xlsxwriter
     from xlsxwriter.exceptions import FileCreateError, FileSizeError
@@ -67,39 +67,33 @@ def write_results(results: "FitResults", path: Path | None = None, overwrite: bo
     target = check_output_path(job.workbook, Path(path) if path is not None else job.output_path,
                                overwrite or job.overwrite)
     builders = [*core_sheets(), *_extra_sheets(), *(extra_sheets or ())]
-    scratch = tempfile.mkdtemp(prefix="sheetfit-")   # xlsxwriter's row files (constant_memory)
-    try:
-        with atomic_output(target, overwrite or job.overwrite) as tmp:
-            wb = xlsxwriter.Workbook(str(tmp), {**WORKBOOK_OPTIONS, "tmpdir": scratch})
-            if len(results.observations) * max(len(results.observations.columns), 1) > ZIP64_CELLS:
-                wb.use_zip64()
-            try:
-                ctx = WriteContext(workbook=wb, results=results, styles=Styles(wb))
-                for build in builders:
-                    build(ctx)
-                ctx.finish()
-                wb.close()
-            except (FileCreateError, FileSizeError) as exc:
-                raise OutputError(f'could not write "{target.name}": {exc}; choose another --out') from None
-            finally:
-                _release(wb)
-            if ctx.bulk:                  # large tables: their rows go in while the archive is copied
-                _splice(tmp, Path(scratch) / "shell.xlsx", ctx.bulk, target)
-    finally:
-        shutil.rmtree(scratch, ignore_errors=True)
+    with scratch_folder() as scratch, atomic_output(target, overwrite or job.overwrite) as tmp:
+        # xlsxwriter's row files (constant_memory) and parts go in the scratch folder
+        wb = xlsxwriter.Workbook(str(tmp), {**WORKBOOK_OPTIONS, "tmpdir": str(scratch)})
+        if len(results.observations) * max(len(results.observations.columns), 1) > ZIP64_CELLS:
+            wb.use_zip64()
+        try:
+            ctx = WriteContext(workbook=wb, results=results, styles=Styles(wb))
+            for build in builders:
+                build(ctx)
+            ctx.finish()
+            wb.close()
+        except (FileCreateError, FileSizeError) as exc:
+            raise output_error(target, exc) from None
+        finally:
+            _release(wb)
+        if ctx.bulk:                  # large tables: their rows go in while the archive is copied
+            _splice(tmp, scratch / "shell.xlsx", ctx.bulk)
     return target
 
 
-def _splice(tmp: Path, shell: Path, bulk: list, target: Path) -> None:
+def _splice(tmp: Path, shell: Path, bulk: list) -> None:
     """Move xlsxwriter's workbook aside and rebuild it at `tmp` with the bulk rows inserted."""
     from .fastrows import splice
     shutil.move(str(tmp), str(shell))
     try:
         with open(tmp, "xb") as fh:
             splice(shell, fh, bulk)
-    except OSError as exc:
-        raise OutputError(f'could not write "{target.name}" ({exc.strerror or exc}); '
-                          "choose another --out") from None
     finally:
         shell.unlink(missing_ok=True)
 

@@ -6,6 +6,7 @@ import datetime as _dt
 import math
 from typing import Any
 
+from ..results.headers import cell_text
 from .book import WriteContext
 from .styles import CHART_LEGEND, HIGHLIGHTS
 
@@ -77,9 +78,8 @@ def _cell(value: Any) -> tuple[Any, bool]:
         except (TypeError, ValueError):
             pass
     if isinstance(value, (tuple, list)):
-        return (", ".join(str(v) for v in value) or "(none)"), False
-    text = str(value)
-    return text[:32_767], False
+        return cell_text(", ".join(str(v) for v in value) or "(none)"), False
+    return cell_text(str(value)), False
 
 
 def _write_about(ctx: WriteContext, ws) -> None:
@@ -122,6 +122,7 @@ def _write_about(ctx: WriteContext, ws) -> None:
 
     ws.write_row(0, 0, ["item", "value"], st.header)
     for r, (item, value, fmt) in enumerate(rows, start=1):
+        item, value = cell_text(item), cell_text(value) if isinstance(value, str) else value
         if fmt is not None:
             ws.write_string(r, 0, item, fmt)
         elif item:

@@ -53,6 +53,25 @@ class SheetNames:
 SheetBuilder = Callable[["WriteContext"], None]
 
 
+def literal_names(chart: Any) -> Any:
+    """Make every text name given to `chart` (title, axis titles, series names) literal text.
+
+    xlsxwriter reads a name that looks like `Sheet!A1` (`Sales!Q4 total`, `=cmd|' /C calc'!A0`) as a
+    cell reference and has no option to say "this is text"; names built from input column names and
+    labels must never become references, so string names bypass that guess. (A list
+    `[sheet, row, col]` still names a cell, as documented.)
+    """
+    guess = chart._process_names
+
+    def names(name: Any, name_formula: Any) -> tuple[Any, Any]:
+        if isinstance(name, str):
+            return name, None
+        return guess(name, name_formula)
+
+    chart._process_names = names
+    return chart
+
+
 @dataclass
 class WriteContext:
     """What every sheet builder shares while one results workbook is written.
@@ -80,6 +99,12 @@ class WriteContext:
         ws = self.workbook.add_worksheet(name)
         self.sheets[name] = ws
         return ws
+
+    def add_chart(self, options: dict[str, Any]) -> Any:
+        """A new chart whose title, axis titles and series names are always literal text (`literal_names`)."""
+        chart = self.workbook.add_chart(options)
+        literal_names(chart)
+        return chart
 
     def reserve_data_sheet(self, label: str, fill: Callable[[Any], None], hidden: bool = False) -> str:
         """Name a data sheet now; it is created after all builders and `fill(worksheet)` writes it."""

@@ -13,9 +13,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..results.headers import cell_text
 from ..results.store import group_label
 from ..results.types import FitResults
 from ..terms import INTERCEPT, source_columns
+from . import fastrows
 
 MAX_POINTS = 5_000      # points per group plotted; beyond that, flagged rows plus an even sample
 
@@ -60,13 +62,14 @@ class ChartPlan:
     x_name: str = ""
 
 
-def _indices(df: pd.DataFrame, keys: list[str]) -> dict[tuple, np.ndarray]:
+def _indices(df: pd.DataFrame, k: int) -> dict[tuple, np.ndarray]:
+    """Rows of each group in a result table whose first `k` columns are the group keys."""
     if df is None or len(df) == 0:
         return {}
-    if not keys:
+    if not k:
         return {(): np.arange(len(df))}
-    idx = df.groupby(keys, sort=False, dropna=False).indices
-    return {(k if isinstance(k, tuple) else (k,)): v for k, v in idx.items()}
+    idx = df.groupby([df.iloc[:, j] for j in range(k)], sort=False, dropna=False).indices
+    return {(key if isinstance(key, tuple) else (key,)): v for key, v in idx.items()}
 
 
 def _floats(df: pd.DataFrame, col: str, rows: np.ndarray) -> np.ndarray:
@@ -113,12 +116,12 @@ def equation(y: str, terms: list[tuple[str, float]]) -> str:
 
 def plan_charts(res: FitResults) -> ChartPlan:
     """Choose the charted groups (flagged first, capped) and gather their chart data."""
-    keys = list(res.group_columns)
+    k = len(res.group_columns)
     g = res.groups
     fitted_mask = g["status"].astype(str).eq("fitted").to_numpy() if "status" in g.columns else np.ones(len(g), bool)
     flags = pd.to_numeric(g.get("flags", pd.Series(0, index=g.index)), errors="coerce").fillna(0).to_numpy()
     r2_all = pd.to_numeric(g.get("R²", pd.Series(np.nan, index=g.index)), errors="coerce").to_numpy()
-    key_rows = list(zip(*(g[k].tolist() for k in keys))) if keys else [()] * len(g)
+    key_rows = list(zip(*(g.iloc[:, j].tolist() for j in range(k)))) if k else [()] * len(g)
     fitted = [i for i in range(len(g)) if fitted_mask[i]]
 
     overview = sorted(((group_label(key_rows[i]), float(r2_all[i]), bool(flags[i] > 0))
@@ -132,8 +135,9 @@ def plan_charts(res: FitResults) -> ChartPlan:
     one_source = len(srcs) == 1
     plan.x_name = srcs[0] if one_source else ""
     obs, cur, qq, coef = res.observations, res.curves, res.quantiles, res.coefficients
-    obs_at, cur_at, qq_at, coef_at = (_indices(obs, keys), _indices(cur, keys), _indices(qq, keys),
-                                      _indices(coef, keys))
+    obs_at, cur_at, qq_at, coef_at = _indices(obs, k), _indices(cur, k), _indices(qq, k), _indices(coef, k)
+    y_col = res.observation_header(res.y)
+    x_col = res.observation_header(plan.x_name) if one_source else ""
     used_all = obs["used"].astype(str).eq("yes").to_numpy() if "used" in obs.columns else np.ones(len(obs), bool)
     flagged_rows = (obs["row flags"].fillna("").astype(str).str.len().gt(0).to_numpy()
                     if "row flags" in obs.columns else np.zeros(len(obs), bool))
@@ -155,7 +159,7 @@ def plan_charts(res: FitResults) -> ChartPlan:
             if room and len(rest):
                 keep[rest[np.linspace(0, len(rest) - 1, min(room, len(rest))).astype(int)]] = True
             rows = rows[keep]
-        y, fit, res_ = _floats(obs, res.y, rows), _floats(obs, "fitted", rows), _floats(obs, "residual", rows)
+        y, fit, res_ = _floats(obs, y_col, rows), _floats(obs, "fitted", rows), _floats(obs, "residual", rows)
         crow = cur_at.get(key, np.empty(0, dtype=np.intp))
         one_input = one_source and len(crow) > 0
         qrow = qq_at.get(key, np.empty(0, dtype=np.intp))
@@ -167,7 +171,7 @@ def plan_charts(res: FitResults) -> ChartPlan:
                        r2=float(r2_all[i]), n=ns[i], equation=equation(res.y, eq_terms), one_input=one_input, x_name=plan.x_name,
                        n_points=len(rows), n_grid=len(crow), n_quantiles=len(qrow), sampled_from=sampled_from)
         c = b.cols
-        c[C_X] = _cells(_floats(obs, plan.x_name, rows)) if one_input else []
+        c[C_X] = _cells(_floats(obs, x_col, rows)) if one_input else []
         c[C_Y], c[C_FIT], c[C_RES] = _cells(y), _cells(fit), _cells(res_)
         if one_input:
             for col, name in ((C_GX, "x"), (C_GF, "fitted"), (C_LO, "mean CI low"), (C_HI, "mean CI high")):
@@ -195,8 +199,9 @@ def layout(plan: ChartPlan) -> None:
         row += b.height
 
 
-def write_data_sheet(ws: Any, plan: ChartPlan, styles: Any, y_name: str) -> None:
-    """Fill the `chart data` sheet row by row, following `layout`."""
+def write_data_sheet(ws: Any, plan: ChartPlan, styles: Any, y_name: str, bulk: Any = None) -> None:
+    """Fill the `chart data` sheet row by row, following `layout`; `bulk` (WriteContext.add_bulk) lets
+    many cells or long group labels take the fast path (the same cells)."""
     ws.set_column(0, 0, 24)
     ws.set_column(1, len(BLOCK_HEADERS) - 1, 22)
     ws.write_string(0, 0, "Data behind the charts on the 'charts' and 'overview' sheets. The charts read these "
@@ -207,10 +212,29 @@ def write_data_sheet(ws: Any, plan: ChartPlan, styles: Any, y_name: str) -> None
         ws.write_row(r, 0, [label, rank, None if flagged else r2, r2 if flagged else None])
         r += 1
     headers = list(BLOCK_HEADERS)
-    headers[C_X] = f"x: {plan.x_name}" if plan.x_name else "x"
-    headers[C_Y] = f"y: {y_name}"
+    headers[C_X] = cell_text(f"x: {plan.x_name}") if plan.x_name else "x"
+    headers[C_Y] = cell_text(f"y: {y_name}")
     ws.write_row(r + 1, 0, headers, styles.header)
+    rows = sum(b.height for b in plan.blocks)
+    chars = sum(len(b.label) * b.height for b in plan.blocks)
+    if bulk is not None and plan.blocks and fastrows.use_fast(rows, len(BLOCK_HEADERS), chars):
+        bulk(ws, plan.blocks[0].start, _block_columns(plan, rows))
+        return
     for b in plan.blocks:
         cols = [[b.label] * b.height] + [b.cols.get(j, []) for j in range(1, len(BLOCK_HEADERS))]
         for k in range(b.height):
             ws.write_row(b.start + k, 0, [col[k] if k < len(col) else None for col in cols])
+
+
+def _block_columns(plan: ChartPlan, rows: int) -> list[tuple[int, Any, Any]]:
+    """The group blocks as column arrays for the bulk path (blocks are contiguous; NaN = no cell)."""
+    labels = np.empty(rows, dtype=object)
+    values = np.full((len(BLOCK_HEADERS), rows), np.nan)
+    at = 0
+    for b in plan.blocks:
+        labels[at:at + b.height] = b.label
+        for j in range(1, len(BLOCK_HEADERS)):
+            col = b.cols.get(j, [])
+            values[j, at:at + len(col)] = [np.nan if v is None else v for v in col]
+        at += b.height
+    return [(0, labels, None)] + [(j, values[j], None) for j in range(1, len(BLOCK_HEADERS))]

@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from ..results.headers import CELL_LIMIT, cell_text, utf16_len
 from . import styles as S
 from .book import WriteContext
 from .chartdata import (
@@ -54,7 +55,8 @@ def charts_sheets(ctx: WriteContext) -> None:
     if not (plan.blocks or ov):
         _charts_header(ctx, ws, plan, cap)
         return
-    data = ctx.reserve_data_sheet("chart data", lambda sheet: write_data_sheet(sheet, plan, ctx.styles, res.y))
+    data = ctx.reserve_data_sheet("chart data", lambda sheet: write_data_sheet(sheet, plan, ctx.styles, res.y,
+                                                                             ctx.add_bulk))
     _charts_header(ctx, ws, plan, cap)
     for k, block in enumerate(plan.blocks):
         _group_row(ctx, ws, data, block, top=3 + k * ROWS_PER_GROUP)
@@ -102,7 +104,11 @@ def _group_row(ctx: WriteContext, ws: Any, data: str, b: GroupBlock, top: int) -
     if len(b.label) + len(tail) > LABEL_LINE:
         ws.set_row(top, 30)
     ws.merge_range(top, 0, top, GRID_COLUMNS - 1, "", cell)
-    ws.write_rich_string(top, 0, st.label_name[b.flagged], b.label, st.label_tail[b.flagged], tail, cell)
+    label = cell_text(b.label, CELL_LIMIT - utf16_len(tail))       # the whole cell stays within the limit
+    if label:
+        ws.write_rich_string(top, 0, st.label_name[b.flagged], label, st.label_tail[b.flagged], tail, cell)
+    else:                                   # a rich string cannot hold an empty part (an empty label)
+        ws.write_string(top, 0, tail.lstrip(), cell)
     charts = [_fit_chart(ctx, data, b), _residual_chart(ctx, data, b), _quantile_chart(ctx, data, b)]
     for k, chart in enumerate(charts):
         if chart is not None:
@@ -112,7 +118,7 @@ def _group_row(ctx: WriteContext, ws: Any, data: str, b: GroupBlock, top: int) -
 
 def _new_chart(ctx: WriteContext, title: str, x_title: str, y_title: str,
                x_bounds: tuple, y_bounds: tuple, legend: bool = False) -> Any:
-    chart = ctx.workbook.add_chart({"type": "scatter", "subtype": "straight"})
+    chart = ctx.add_chart({"type": "scatter", "subtype": "straight"})
     chart.set_title(S.chart_title(title))
     chart.set_x_axis(S.axis(x_title, **_bounds(x_bounds)))
     chart.set_y_axis(S.axis(y_title, **_bounds(y_bounds)))
@@ -194,7 +200,7 @@ def _overview(ctx: WriteContext, ws: Any, data: str, plan: ChartPlan) -> None:
     r2s = [r for _, r, _ in plan.overview]
     low = min(0.0, min(r2s))
     if n <= COLUMN_BAR_MAX:
-        chart = ctx.workbook.add_chart({"type": "column"})
+        chart = ctx.add_chart({"type": "column"})
         width = min(max(560, 140 + 30 * n), 1400)
         for col, name, colour in ((2, "no flags", S.OVERVIEW_OK), (3, "flagged", S.OVERVIEW_FLAGGED)):
             chart.add_series({"name": name, "categories": [data, s0, 0, s0 + n - 1, 0],
@@ -204,7 +210,7 @@ def _overview(ctx: WriteContext, ws: Any, data: str, plan: ChartPlan) -> None:
         chart.set_x_axis(S.axis("group", num_font={"size": 8, "rotation": -45, "name": S.FONT},
                                 major_gridlines={"visible": False}))
     else:
-        chart = ctx.workbook.add_chart({"type": "scatter"})
+        chart = ctx.add_chart({"type": "scatter"})
         width = 1000
         for col, name, colour, size in ((2, "no flags", S.OVERVIEW_OK, 4), (3, "flagged", S.OVERVIEW_FLAGGED, 6)):
             chart.add_series({**S.point_series(name, colour=colour, size=size),

@@ -11,7 +11,9 @@ import math
 import numpy as np
 import pandas as pd
 
-MAX_TEXT = 32_767  # characters a cell can hold
+from ..results.headers import CELL_LIMIT, cell_text
+
+MAX_TEXT = CELL_LIMIT  # UTF-16 units a cell's text can hold; longer text is cut, ending in …
 
 COUNT_COLUMNS = {"flags", "n", "rows dropped", "parameters", "source row", "HAC lag",
                  "high-leverage rows", "outlying rows", "influential rows", "rows read", "rows used"}
@@ -59,11 +61,13 @@ class Column:
     """One table column ready to write: cell values by row block, format, width and counts."""
 
     def __init__(self, header: str, series: pd.Series | None, n_rows: int) -> None:
-        self.header = str(header)
+        self.header = cell_text(str(header))
+        self.n_rows = n_rows
         self.num_format: str | None = None
         self.undefined = 0     # NaN numbers written as empty cells
         self.infinite = 0      # ±inf written as empty cells
         self.cut = 0           # texts cut to MAX_TEXT characters
+        self.chars = 0         # characters of text in the column
         self.timezone_dropped = False
         self._bad: np.ndarray | None = None
         self._mixed = False
@@ -119,13 +123,20 @@ class Column:
             plain = np.empty(len(arr), dtype=object)
             plain[:] = [_plain(v) for v in arr]
             arr = plain
-        texts = (v for v in arr if isinstance(v, str)) if self._mixed else filter(None, arr)
-        if max(map(len, texts), default=0) > MAX_TEXT:
+        texts = [v for v in arr if isinstance(v, str)] if self._mixed else list(filter(None, arr))
+        lengths_all = list(map(len, texts))
+        self.chars = sum(lengths_all)
+        if max(lengths_all, default=0) > MAX_TEXT // 2:      # may pass the limit in UTF-16 units
             arr = arr.copy()
+            cuts: dict[str, str] = {}           # a long text repeated on many rows is cut once
             for i, v in enumerate(arr):
-                if isinstance(v, str) and len(v) > MAX_TEXT:
-                    arr[i] = v[:MAX_TEXT]
-                    self.cut += 1
+                if isinstance(v, str) and len(v) > MAX_TEXT // 2:
+                    cut = cuts.get(v)
+                    if cut is None:
+                        cut = cuts[v] = cell_text(v)
+                    if cut is not v:
+                        arr[i] = cut
+                        self.cut += 1
         lengths = np.array([len(v) for v in arr[:2000] if isinstance(v, str) and v], dtype=np.float64)
         self._array = arr
         typical = float(np.percentile(lengths, 95)) if lengths.size else 0.0

@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..results.headers import cell_text, shown_names
 from ..results.store import group_codes, unique_labels
 from ..terms import source_columns
 from . import fastrows
@@ -39,33 +40,43 @@ class Explorer:
     labels: list[str]
     index: pd.DataFrame                  # one row per group: first, rows, metrics, coefficient columns
     rows: pd.DataFrame                   # group, source row, inputs, y, fitted, residual
-    sources: list[str]
-    y: str
+    sources: list[str]                   # the input (source) column names
+    y: str                               # the response's name
     terms: list[str]
     block: int
     sampled: int = 0                     # groups shown as an even sample of `cap` rows
     cap: int = 0                         # rows kept per group
     left_out: int = 0                    # fitted groups left out to keep the data sheet small
-    formats: dict[str, str] = field(default_factory=dict)
+    formats: dict[str, str] = field(default_factory=dict)          # column of `rows` → number format
+    figure_formats: dict[str, str] = field(default_factory=dict)   # metric or coefficient column → format
+    headers: dict[str, str] = field(default_factory=dict)   # input or response name → its header in `rows`
+
+    def header(self, name: str) -> str:
+        """The header of input or response `name` in `rows` (`NAME (input)` when it is one of ours)."""
+        return self.headers.get(name, name)
 
 
 def plan_explorer(res: Any) -> Explorer:
     """Every fitted group's used rows, sorted by group, first input and source row, with an index."""
-    keys = list(res.group_columns)
+    k = len(res.group_columns)
     g = res.groups
     fitted = (g[g["status"].astype(str).eq("fitted")] if "status" in g.columns else g).reset_index(drop=True)
     G = len(fitted)
     sources = list(source_columns(res.terms))
-    cols = ["source row", *sources, res.y, "fitted", "residual"]
+    user = [*sources, res.y]
+    headers = dict(zip(user, shown_names(user, ("group", "source row", "fitted", "residual"))))
+    cols = ["source row", *(headers[c] for c in user), "fitted", "residual"]
+    where = {"source row": "source row", "fitted": "fitted", "residual": "residual",
+             **{headers[c]: res.observation_header(c) for c in user}}      # column of `rows` → of observations
     obs = res.observations
     used = obs["used"].astype(str).eq("yes") if "used" in obs.columns else pd.Series(True, index=obs.index)
     fit = pd.to_numeric(obs.get("fitted", pd.Series(np.nan, index=obs.index)), errors="coerce")
     obs = obs.loc[used & fit.notna()]
-    code = group_codes(obs, keys, fitted)
+    code = group_codes(obs, fitted, k)
     obs, code = obs[code >= 0], code[code >= 0]
-    table = pd.DataFrame({c: (pd.to_numeric(obs[c], errors="coerce").to_numpy(np.float64) if c in obs.columns
-                              else np.full(len(obs), np.nan)) for c in cols})
-    order = np.lexsort((table["source row"].to_numpy(), table[sources[0]].to_numpy(), code))
+    table = pd.DataFrame({c: (pd.to_numeric(obs[where[c]], errors="coerce").to_numpy(np.float64)
+                              if where[c] in obs.columns else np.full(len(obs), np.nan)) for c in cols})
+    order = np.lexsort((table["source row"].to_numpy(), table[headers[sources[0]]].to_numpy(), code))
     table, code = table.iloc[order].reset_index(drop=True), code[order]
     counts = np.bincount(code, minlength=G)
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
@@ -81,7 +92,8 @@ def plan_explorer(res: Any) -> Explorer:
     take &= include[code]
     table, code = table[take].reset_index(drop=True), code[take]
     gi = np.flatnonzero(include)
-    kept = [tuple(fitted[k].astype(str).iloc[i] for k in keys) for i in gi]
+    key_text = [fitted.iloc[:, j].astype(str) for j in range(k)]
+    kept = [tuple(col.iloc[i] for col in key_text) for i in gi]
     labels = list(unique_labels(kept))
     n_shown = shown[gi]
     idx = pd.DataFrame({"group": labels, "first row": 1 + np.concatenate(([0], np.cumsum(n_shown)[:-1])),
@@ -96,7 +108,7 @@ def plan_explorer(res: Any) -> Explorer:
     coef = res.coefficients
     c_code = np.full(G, -1, dtype=np.int64)
     c_code[gi] = np.arange(len(gi))
-    cc = group_codes(coef, keys, fitted) if len(coef) else np.empty(0, dtype=np.int64)
+    cc = group_codes(coef, fitted, k) if len(coef) else np.empty(0, dtype=np.int64)
     rows_of = np.where(cc >= 0, c_code[np.maximum(cc, 0)], -1)
     term_at = pd.Index(terms).get_indexer(coef["term"].astype(str)) if len(coef) else np.empty(0, dtype=np.int64)
     ok = (rows_of >= 0) & (term_at >= 0)
@@ -109,16 +121,16 @@ def plan_explorer(res: Any) -> Explorer:
             idx[f"{c}: {t}"] = values
     table.insert(0, "group", np.asarray(labels, dtype=object)[np.repeat(np.arange(len(gi)), n_shown)])
     ex = Explorer(labels, idx, table, sources, res.y, terms, int(n_shown.max()) if len(gi) else 0,
-                  sampled=int(len(big)), cap=cap, left_out=int(((shown > 0) & ~include).sum()))
+                  sampled=int(len(big)), cap=cap, left_out=int(((shown > 0) & ~include).sum()), headers=headers)
     for c in cols[1:]:
         ex.formats[c] = number_format(c, table[c].to_numpy(np.float64))
     for mtr in METRICS:
         if mtr != "reasons" and mtr in fitted.columns:
-            ex.formats[mtr] = number_format(mtr, pd.to_numeric(idx[mtr], errors="coerce").to_numpy(np.float64))
+            ex.figure_formats[mtr] = number_format(mtr, pd.to_numeric(idx[mtr], errors="coerce").to_numpy(np.float64))
     for c in COEF:
         vals = pd.to_numeric(coef[c], errors="coerce").to_numpy(np.float64) if c in coef.columns else np.empty(0)
         fmt = P_VALUE_FORMAT if c == "p-value" else number_format(c, vals)
-        ex.formats[c] = SCIENTIFIC if fmt == "General" else fmt     # General overflows narrow cells
+        ex.figure_formats[c] = SCIENTIFIC if fmt == "General" else fmt     # General overflows narrow cells
     return ex
 
 
@@ -129,7 +141,7 @@ def _cell(v: Any) -> Any:
     if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
         f = float(v)
         return f if math.isfinite(f) else ""
-    return str(v)
+    return cell_text(str(v))
 
 
 def _bulk_values(series: pd.Series) -> np.ndarray:
@@ -140,7 +152,9 @@ def _bulk_values(series: pd.Series) -> np.ndarray:
 
 
 def _rows(ws: Any, first: int, df: pd.DataFrame, bulk: Any) -> None:
-    if bulk is not None and fastrows.use_fast(len(df), len(df.columns)):
+    chars = sum(int(df[c].map(lambda v: len(v) if isinstance(v, str) else 0).sum())
+                for c in df.columns if df[c].dtype == object)
+    if bulk is not None and fastrows.use_fast(len(df), len(df.columns), chars):
         bulk(ws, first, [(j, _bulk_values(df[c]), None) for j, c in enumerate(df.columns)])
         return
     for r, row in enumerate(df.itertuples(index=False), start=first):
@@ -155,16 +169,17 @@ def fill_data(ws: Any, ex: Explorer, st: Any, bulk: Any = None) -> None:
     ws.fit_to_pages(1, 0)
     ws.write_string(0, 0, "Rows behind the 'explorer' sheet: an index of each group's first row and row count, "
                           "then every group's rows, sorted by group. Do not sort, insert or delete rows.", st.note)
-    ws.write_row(2, 0, list(ex.index.columns), st.header)
+    ws.write_row(2, 0, [cell_text(str(c)) for c in ex.index.columns], st.header)
     _rows(ws, 3, ex.index, bulk)
     h = data_header(ex)
-    ws.write_row(h, 0, list(ex.rows.columns), st.header)
+    ws.write_row(h, 0, [cell_text(str(c)) for c in ex.rows.columns], st.header)
     _rows(ws, h + 1, ex.rows, bulk)
 
 
 def block_headers(ex: Explorer) -> list[str]:
-    """Columns of the explorer block: inputs (the first one is the charts' x), y, fitted, residual, source row."""
-    return [*ex.sources, ex.y, "fitted", "residual", "source row"]
+    """Columns of the explorer block: inputs (the first one is the charts' x), y, fitted, residual, source row
+    (headers of `ex.rows`)."""
+    return [*(ex.header(c) for c in ex.sources), ex.header(ex.y), "fitted", "residual", "source row"]
 
 
 def _floor(ex: Explorer) -> dict[str, Any]:
@@ -174,7 +189,7 @@ def _floor(ex: Explorer) -> dict[str, Any]:
     zero, which squashes groups whose values lie far from zero; the lowest value over all
     groups keeps every group's points in view.
     """
-    v = pd.to_numeric(pd.concat([ex.rows[ex.y], ex.rows["fitted"]]), errors="coerce").to_numpy(np.float64)
+    v = pd.to_numeric(pd.concat([ex.rows[ex.header(ex.y)], ex.rows["fitted"]]), errors="coerce").to_numpy(np.float64)
     v = v[np.isfinite(v)]
     if not v.size or v.min() <= 0:
         return {}
@@ -300,7 +315,7 @@ def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, in
     r = TOP
     for mtr in [m for m in METRICS if m in ch.columns]:
         v = ch.entry[mtr]
-        fmt = st.number(ex.formats[mtr]) if mtr in ex.formats else None
+        fmt = st.number(ex.figure_formats[mtr]) if mtr in ex.figure_formats else None
         cells.text(r, 0, mtr, st.text if mtr == "reasons" else None)
         text = mtr == "reasons"         # &"" keeps an empty text cell empty instead of showing 0
         cells.formula(r, 1, "=" + ch.pick(mtr) + ('&""' if text else ""), st.wrap if text else fmt,
@@ -327,7 +342,7 @@ def _coefficient_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen, r: int) 
         cells.text(r, 0, t)
         for c, name in enumerate(COEF, start=1):
             v = ch.entry[f"{name}: {t}"]
-            cells.formula(r, c, "=" + ch.pick(f"{name}: {t}"), st.number(ex.formats[name]),
+            cells.formula(r, c, "=" + ch.pick(f"{name}: {t}"), st.number(ex.figure_formats[name]),
                           "" if pd.isna(v) else float(v))
     return r
 
@@ -357,11 +372,6 @@ def _block_cells(cells: Cells, st: Any, ex: Explorer, data: str, ch: Chosen, blo
             cells.formula(rr, c, f"=IF({k}<={cnt},INDEX({rng},{first}+{k - 1}),{empty})", fmts[c], value)
 
 
-def _text(name: str) -> str:
-    """A chart title or axis name as plain text: a leading '=' would make it a cell reference."""
-    return " " + name if name.startswith("=") else name
-
-
 def _charts(ctx: WriteContext, ws: Any, ex: Explorer, spots: Spots) -> None:
     m = len(ex.sources)
     block_top = spots.block_top
@@ -373,17 +383,17 @@ def _charts(ctx: WriteContext, ws: Any, ex: Explorer, spots: Spots) -> None:
         return [sheet, block_top, c, last, c]
 
     one = m == 1
-    fit = ctx.workbook.add_chart({"type": "scatter"})
-    fit.set_title(S.chart_title(_text(f"{ex.y} against {ex.sources[0]}")))
+    fit = ctx.add_chart({"type": "scatter"})
+    fit.set_title(S.chart_title(f"{ex.y} against {ex.sources[0]}"))   # literal text (WriteContext.add_chart)
     fit.add_series({**S.point_series("observations"), "categories": col(x_col), "values": col(y_col)})
     fitted = (S.line_series("fitted") if one else
               {"name": "fitted values", "line": {"none": True},
                "marker": {"type": "x", "size": 6, "border": {"color": S.FITTED, "width": 1.25}}})
     fit.add_series({**fitted, "categories": col(x_col), "values": col(f_col)})
-    fit.set_x_axis(S.axis(_text(ex.sources[0])))
-    fit.set_y_axis(S.axis(_text(ex.y), **_floor(ex)))
+    fit.set_x_axis(S.axis(ex.sources[0]))
+    fit.set_y_axis(S.axis(ex.y, **_floor(ex)))
     fit.set_legend({"position": "bottom", "font": {"size": S.CHART_AXIS_SIZE - 1, "name": S.FONT}})
-    resid = ctx.workbook.add_chart({"type": "scatter"})
+    resid = ctx.add_chart({"type": "scatter"})
     resid.set_title(S.chart_title("residuals against fitted values"))
     resid.add_series({**S.point_series("residuals"), "categories": col(f_col), "values": col(r_col)})
     z = spots.zero_row

@@ -24,27 +24,31 @@ import numpy as np
 import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
+from ..results.headers import CELL_LIMIT, cell_text
+
 THRESHOLD: int | None = 100_000  # blocks with more cells than this take the fast path; None: never
+TEXT_PER_CELL = 20               # …or more than THRESHOLD × this many characters of text
 BLOCK_ROWS = 25_000              # rows turned into XML at a time (bounds memory)
 COMPRESS_LEVEL = 1               # deflate level of the rewritten archive
-MAX_UTF16 = 32_767               # UTF-16 units a cell's text may hold
+MAX_UTF16 = CELL_LIMIT           # UTF-16 units a cell's text may hold
 
 _CTRL_ESCAPED = re.compile("(_x[0-9a-fA-F]{4}_)")
 _CTRL = re.compile(r"([\x00-\x08\x0b-\x1f])")
 _LEAD, _TRAIL = re.compile(r"^\s"), re.compile(r"\s$")
 
 
-def use_fast(rows: int, columns: int) -> bool:
-    """Whether a block of rows × columns cells goes through the fast path under the current THRESHOLD."""
-    return THRESHOLD is not None and rows > 0 and rows * max(columns, 1) > THRESHOLD
+def use_fast(rows: int, columns: int, chars: int = 0) -> bool:
+    """Whether a block of rows × columns cells (holding `chars` characters of text) goes through the
+    fast path under the current THRESHOLD: many cells, or much text (xlsxwriter scans every text
+    cell several times; here each distinct text is escaped once)."""
+    if THRESHOLD is None or rows <= 0:
+        return False
+    return rows * max(columns, 1) > THRESHOLD or chars > TEXT_PER_CELL * THRESHOLD
 
 
 def inline_string(s: str, style: str) -> str:
     """The tail of an inline-string cell after `<c r="..."`: escaped as xlsxwriter escapes it."""
-    if len(s) > MAX_UTF16 // 2:
-        enc = s.encode("utf-16-le")
-        if len(enc) > 2 * MAX_UTF16:
-            s = enc[:2 * MAX_UTF16].decode("utf-16-le", errors="ignore")
+    s = cell_text(s)                  # at most MAX_UTF16 units; a longer text is cut, ending in …
     s = _CTRL_ESCAPED.sub(r"_x005F\1", s)
     s = _CTRL.sub(lambda m: f"_x{ord(m.group(1)):04X}_", s)
     s = s.replace("\ufffe", "_xFFFE_").replace("\uffff", "_xFFFF_")

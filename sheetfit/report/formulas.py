@@ -12,6 +12,8 @@ from typing import Any
 import numpy as np
 from xlsxwriter.utility import quote_sheetname, xl_rowcol_to_cell
 
+from ..results.headers import cell_text
+
 
 class Cells:
     """Cells of one sheet gathered in any order, then written row by row (constant_memory)."""
@@ -52,7 +54,7 @@ class Cells:
             if (r, c) in self._merged:
                 ws.merge_range(r, c, r, self._merged[(r, c)], "", fmt)
             if kind == "text":
-                ws.write_string(r, c, value, fmt)
+                ws.write_string(r, c, cell_text(value), fmt)
             elif kind == "number":
                 ws.write_number(r, c, value, fmt)
             elif kind == "blank":
@@ -69,7 +71,7 @@ def _cached(v: Any) -> Any:
         return "#N/A" if not math.isfinite(float(v)) else float(v)
     if isinstance(v, (np.integer,)):
         return int(v)
-    return v
+    return cell_text(v) if isinstance(v, str) else v
 
 
 def lookup(cell: str, rng: str) -> str:

@@ -28,6 +28,7 @@ from ..results.store_layout import (
     TITLE_ROW,
     StoreLayout,
 )
+from ..results.headers import cell_text
 from . import fastrows
 from .columns import SCIENTIFIC
 
@@ -46,11 +47,11 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any, bulk: Any 
     for i, (name, values) in enumerate(store_settings(store)):
         ws.write_string(lay.first_setting + i, 0, name)
         for j, v in enumerate(values):
-            (ws.write_string if isinstance(v, str) else ws.write_number)(lay.first_setting + i, 1 + j, v)
+            _put(ws, lay.first_setting + i, 1 + j, v)
     ws.write_row(lay.term_header, 0, list(TERM_COLUMNS), st.header)
     for i, row in enumerate(term_rows(store)):
         for j, v in enumerate(row):
-            (ws.write_string if isinstance(v, str) else ws.write_number)(lay.term_header + 1 + i, j, v)
+            _put(ws, lay.term_header + 1 + i, j, v)
     ws.write_row(lay.group_header, 0, group_headers(store), st.header)
     sci = st.number(SCIENTIFIC)
     columns = [(c, sci if c.part in SCIENTIFIC_PARTS else None) for c in group_columns(store, lay)]
@@ -62,11 +63,19 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any, bulk: Any 
     ws.freeze_panes(0, 1)
 
 
+def _put(ws: Any, r: int, c: int, v: Any) -> None:
+    """A settings or terms cell: text as text (cut to what a cell holds), numbers as numbers."""
+    if isinstance(v, str):
+        ws.write_string(r, c, cell_text(v))
+    else:
+        ws.write_number(r, c, v)
+
+
 def _group_row(ws: Any, r: int, g: int, columns: list[tuple[StoreColumn, Any]]) -> None:
     """One group's row of the store: text as text, finite numbers as numbers, the rest left empty."""
     for c, fmt in columns:
         v = c.values[g]
         if isinstance(v, str):
-            ws.write_string(r, c.col, v)
+            ws.write_string(r, c.col, cell_text(v))
         elif math.isfinite(v):
             ws.write_number(r, c.col, v.item() if hasattr(v, "item") else v, fmt)

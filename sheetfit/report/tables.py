@@ -14,7 +14,9 @@ from typing import Any
 import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
-from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
+from ..read.tidy import REASON
+from ..results.headers import CELL_LIMIT, rename_note, renamed
+from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL
 from ..terms import source_columns
 from . import fastrows
 from .book import WriteContext
@@ -29,9 +31,8 @@ COEFFICIENTS = ("term", "estimate", "std error", "t", "p-value", "CI low", "CI h
 COEFFICIENTS_OPTIONAL = ("VIF", "robust std error", "robust p-value", "HAC std error", "HAC p-value",
                          "HAC lag")
 CHECKS = ("check", "statistic", "p-value", "adjusted p-value", "threshold", "verdict", "note")
-OBS_HEAD = (SOURCE_SHEET, SOURCE_ROW)
-OBS_TAIL = ("used", REASON, "fitted", "residual", "studentized residual", "leverage", "Cook's distance",
-            "row flags")
+OBS_HEAD = OBSERVATION_HEAD
+OBS_TAIL = OBSERVATION_TAIL
 PRINT_FIT_WIDTH = 220          # characters of column width that still print legibly on one page width
 WIDE_TEXT = {"reasons": 60, "note": 60, REASON: 45, "row flags": 30}
 
@@ -89,7 +90,8 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
         ws.set_column(j, j, width, fmt)
         head = st.header_number if col.kind == "number" else (st.header_text if indent[j] else st.header)
         ws.write_string(0, j, col.header, head)
-    if fastrows.use_fast(hi - lo, len(columns)):     # same cells, XML built in bulk after the workbook closes
+    chars = sum(c.chars * (hi - lo) // max(c.n_rows, 1) for c in columns)    # text in rows lo..hi, about
+    if fastrows.use_fast(hi - lo, len(columns), chars):   # same cells, XML built in bulk after the workbook closes
         ctx.add_bulk(ws, 1, [(j, c.values(lo, hi), formats[j]) for j, c in enumerate(columns)])
     else:
         write_row = ws.write_row
@@ -133,7 +135,8 @@ def _note_columns(ctx: WriteContext, label: str, columns: list[Column]) -> None:
         ctx.note(label, "undefined values left as empty cells (the figure cannot be computed, e.g. a "
                         "group not fitted, a row not used, no degrees of freedom left): " + _counts(undefined))
     if cut:
-        ctx.note(label, f"texts longer than a cell holds cut to {32_767:,} characters: " + _counts(cut))
+        ctx.note(label, f"texts longer than a cell holds cut to {CELL_LIMIT:,} characters, ending in …: "
+                        + _counts(cut))
     missing = [c.header for c in columns if c.kind == "empty"]
     if missing:
         ctx.note(label, "columns not computed in this run, left empty: " + ", ".join(missing))
@@ -153,10 +156,18 @@ def _freeze(keys: Sequence[str]) -> int:
 
 def _contract_sheet(ctx: WriteContext, label: str, df: pd.DataFrame, required: Sequence[str],
                     optional: Sequence[str] = (), rules: Sequence[Rule] = ()) -> None:
-    """A result table in contract column order, frozen on the group keys."""
-    keys = list(ctx.results.group_columns)
+    """A result table in contract column order, frozen on the group keys (its first columns)."""
+    keys = ctx.results.key_headers(df)
+    _note_renamed(ctx, label, ctx.results.group_columns, keys)
     write_table(ctx, label, df, ordered_columns(df, keys, required, optional),
                 freeze_columns=_freeze(keys), rules=rules)
+
+
+def _note_renamed(ctx: WriteContext, label: str, user: Sequence[str], shown: Sequence[str]) -> None:
+    """An `about` line when a user's column shows under another header on this sheet."""
+    pairs = renamed(user, shown)
+    if pairs:
+        ctx.note(label, rename_note(pairs))
 
 
 def groups_sheet(ctx: WriteContext) -> None:
@@ -192,10 +203,12 @@ def select_observations(obs: pd.DataFrame, mode: str) -> pd.DataFrame:
 
 def observations_sheet(ctx: WriteContext) -> None:
     res = ctx.results
-    keys = list(res.group_columns)
     obs = res.observations
+    keys = res.key_headers(obs)
     mode = res.job.observations
-    data_cols = [res.y, *source_columns(res.terms)]
+    user = [*res.group_columns, *res.number_columns]
+    _note_renamed(ctx, "observations", user, [res.observation_header(c) for c in user])
+    data_cols = [res.observation_header(c) for c in (res.y, *source_columns(res.terms))]
     extra_data = [c for c in obs.columns
                   if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL)]
     order = ordered_columns(obs, keys, [*OBS_HEAD, *data_cols, *extra_data, *OBS_TAIL])

@@ -20,6 +20,7 @@ from scipy import stats
 
 from ..model.engine import design_row
 from ..prediction.compute import predict_cells
+from ..results.headers import cell_text
 from ..results.store import ModelStore, store_from_results, store_layout
 from ..results.store_layout import STORE_SHEET, StoreLayout
 from .book import WriteContext
@@ -28,6 +29,7 @@ from .formulas import Cells, area, lookup, ref
 from .store_sheet import fill_store
 
 MAX_COLUMNS = 16_384
+LITERAL_LABEL = 200    # characters of a term's label quoted inside a formula (text in a formula: ≤ 255)
 BELOW, ABOVE = "below the observed range", "above the observed range"
 TOP_INPUT = 8          # first input row (0-based) on the predict sheet
 GROUP_ROW, LEVEL_ROW, STORE_ROW = 3, 4, 5     # the chosen group, the level, its row in the store
@@ -144,9 +146,9 @@ def _check_formula(store: ModelStore, j: int, x: str, lo: str, hi: str, row: str
     inner = f'IF({x}<{lo},"{BELOW}",IF({x}>{hi},"{ABOVE}",""))'
     for t in store.terms:
         if t.column == col and t.kind == "log":
-            inner = f'IF({x}<=0,"must be above 0 for {_quoted(t.label)}",{inner})'
+            inner = f'IF({x}<=0,"must be above 0 for {_quoted(_short(t.label))}",{inner})'
         elif t.column == col and t.kind == "sqrt":
-            inner = f'IF({x}<0,"must be 0 or more for {_quoted(t.label)}",{inner})'
+            inner = f'IF({x}<0,"must be 0 or more for {_quoted(_short(t.label))}",{inner})'
     return f'=IF(ISNA({row}),"",IF(NOT(ISNUMBER({x})),"needs a number",{inner}))'
 
 
@@ -155,14 +157,19 @@ def _quoted(text: str) -> str:
     return text.replace('"', '""')
 
 
+def _short(label: str) -> str:
+    """A term's label as a formula's text may quote it (a text in a formula holds at most 255 characters)."""
+    return cell_text(label, LITERAL_LABEL)
+
+
 def _check_text(store: ModelStore, g: int, j: int, x: float) -> str:
     """What the check formula of input j shows for value `x` in group g (its cached result)."""
     col = store.sources[j]
     for t in store.terms:
         if t.column == col and t.kind == "log" and x <= 0:
-            return f"must be above 0 for {t.label}"
+            return f"must be above 0 for {_short(t.label)}"
         if t.column == col and t.kind == "sqrt" and x < 0:
-            return f"must be 0 or more for {t.label}"
+            return f"must be 0 or more for {_short(t.label)}"
     if x < store.lo[g, j]:
         return BELOW
     if x > store.hi[g, j]:
@@ -174,7 +181,8 @@ def _predict_cells(ctx: WriteContext, cells: Cells, ps: PredictSheet) -> None:
     """Every cell of the predict sheet: the choice, inputs and range check, results, calculation table."""
     st = ctx.styles
     res = ctx.results
-    y_vals = pd.to_numeric(res.observations.get(res.y, pd.Series(dtype=float)), errors="coerce").to_numpy(np.float64)
+    y_vals = pd.to_numeric(res.observations.get(res.observation_header(res.y), pd.Series(dtype=float)),
+                           errors="coerce").to_numpy(np.float64)
     yf = st.number(number_format("predicted", y_vals))
     _choice_cells(cells, st, ps)
     checks = _input_cells(cells, st, ps)

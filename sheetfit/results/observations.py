@@ -2,13 +2,24 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
 from ..model.engine import EngineFit
-from ..read.tidy import SOURCE_ROW, SOURCE_SHEET, Observations
+from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations
+from .headers import shown_names
+
+# our columns on `observations`, around the user's group keys (first) and number columns (after the source)
+OBSERVATION_HEAD = (SOURCE_SHEET, SOURCE_ROW)
+OBSERVATION_TAIL = ("used", REASON, "fitted", "residual", "studentized residual", "leverage", "Cook's distance",
+                    "row flags")
+
+
+def observation_headers(user: Sequence[str]) -> list[str]:
+    """Headers of the user's columns (group keys, then number columns) on `observations`."""
+    return shown_names(user, (*OBSERVATION_HEAD, *OBSERVATION_TAIL))
 
 
 def observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, codes_all: np.ndarray,
@@ -34,11 +45,13 @@ def observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, c
     table = np.array(["; ".join(w for i, w in enumerate(words) if code >> i & 1) for code in range(16)],
                      dtype=object)
     row_flags = table[bits]
-    cols = [SOURCE_SHEET, SOURCE_ROW, *obs.group_columns]
-    value_cols = [c for c in obs.numeric_columns if c not in cols]
-    out = data[list(obs.group_columns) + [SOURCE_SHEET, SOURCE_ROW] + value_cols].copy()
+    keys = list(obs.group_columns)
+    value_cols = [c for c in obs.numeric_columns if c not in (SOURCE_SHEET, SOURCE_ROW, *keys)]
+    out = data[keys + [SOURCE_SHEET, SOURCE_ROW] + value_cols].copy()
+    shown = observation_headers(keys + value_cols)       # the user's columns never take our names
+    out.columns = shown[:len(keys)] + [SOURCE_SHEET, SOURCE_ROW] + shown[len(keys):]
     out["used"] = np.array(["no", "yes"], dtype=object)[used.astype(np.intp)]   # object: 6× faster into pandas
-    out["reason"] = why
+    out[REASON] = why
     out["fitted"] = fitted
     out["residual"] = resid
     out["studentized residual"] = stud

@@ -20,6 +20,7 @@ import pandas as pd
 
 from ..errors import ResultsWorkbookError
 from ..terms import INTERCEPT, Term, coefficient_labels, source_columns
+from .headers import CELL_LIMIT, cell_text, shown_names
 from .store_layout import (
     GROUP_HEADER,
     SETTING_HEADER,
@@ -72,42 +73,53 @@ class ModelStore:
 
 
 def group_label(keys: Sequence[str]) -> str:
-    """The label a group shows in drop-downs: its key values joined by ' · ' ('all rows' without keys)."""
-    return " · ".join(str(k) for k in keys) if keys else "all rows"
+    """The label a group shows in drop-downs: its key values joined by ' · ' ('all rows' without keys),
+    cut to what a cell holds."""
+    return cell_text(" · ".join(str(k) for k in keys)) if keys else "all rows"
 
 
 def unique_labels(keys: Sequence[tuple[str, ...]]) -> tuple[str, ...]:
-    """Group labels made unique ignoring letter case, as spreadsheet lookups compare them."""
+    """Group labels made unique ignoring letter case, as spreadsheet lookups compare them.
+
+    A repeated label gets ' (2)', ' (3)'…; every label fits a cell (a long one is cut before its suffix).
+    """
     taken: set[str] = set()
+    next_k: dict[str, int] = {}           # per lower-cased base: the next suffix to try (keeps this linear)
     out = []
     for k in keys:
-        base = label = group_label(k)
-        n = 1
+        base = group_label(k)
+        label, low = base, base.lower()
+        n = next_k.get(low, 1)
         while label.lower() in taken:
             n += 1
-            label = f"{base} ({n})"
+            suffix = f" ({n})"
+            label = cell_text(base, CELL_LIMIT - len(suffix)) + suffix
+        next_k[low] = n
         taken.add(label.lower())
         out.append(label)
     return tuple(out)
 
 
-def group_codes(df: pd.DataFrame, keys: Sequence[str], ref: pd.DataFrame) -> np.ndarray:
-    """Position of each row's group among the rows of `ref` (−1 when absent), keys compared as text."""
-    keys = list(keys)
-    if not keys:
+def group_codes(df: pd.DataFrame, ref: pd.DataFrame, k: int) -> np.ndarray:
+    """Position of each row's group among the rows of `ref` (−1 when absent).
+
+    The group keys are the first `k` columns of both tables (whatever their headers), compared as text.
+    """
+    if not k:
         return np.zeros(len(df), dtype=np.int64) if len(ref) else np.full(len(df), -1, dtype=np.int64)
-    if len(keys) == 1:
-        return pd.Index(ref[keys[0]].astype(str)).get_indexer(df[keys[0]].astype(str))
-    return pd.MultiIndex.from_frame(ref[keys].astype(str)).get_indexer(pd.MultiIndex.from_frame(df[keys].astype(str)))
+    if k == 1:
+        return pd.Index(ref.iloc[:, 0].astype(str)).get_indexer(df.iloc[:, 0].astype(str))
+    return pd.MultiIndex.from_frame(ref.iloc[:, :k].astype(str)).get_indexer(
+        pd.MultiIndex.from_frame(df.iloc[:, :k].astype(str)))
 
 
-def _spread(table: pd.DataFrame, keys: list[str], fitted: pd.DataFrame, slots: dict[str, pd.Index],
+def _spread(table: pd.DataFrame, k: int, fitted: pd.DataFrame, slots: dict[str, pd.Index],
             value: str, shape: tuple[int, ...]) -> np.ndarray:
-    """Long rows (group, slot columns…, value) → an array indexed by group then slot positions."""
+    """Long rows (group keys, slot columns…, value) → an array indexed by group then slot positions."""
     out = np.full(shape, np.nan)
     if len(table) == 0 or value not in table.columns:
         return out
-    at = [group_codes(table, keys, fitted)] + [idx.get_indexer(table[c].astype(str)) for c, idx in slots.items()]
+    at = [group_codes(table, fitted, k)] + [idx.get_indexer(table[c].astype(str)) for c, idx in slots.items()]
     ok = np.logical_and.reduce([a >= 0 for a in at])
     out[tuple(a[ok] for a in at)] = pd.to_numeric(table[value], errors="coerce").to_numpy(np.float64)[ok]
     return out
@@ -118,25 +130,25 @@ def store_from_results(results: "FitResults") -> ModelStore:
 
     Groups without a complete set of coefficients and (X'X)⁻¹ are left out.
     """
-    keys = list(results.group_columns)
+    k = len(results.group_columns)
     labels = pd.Index(results.term_labels)
     sources = pd.Index(source_columns(results.terms))
     p, m = len(labels), len(sources)
     g = results.groups
     fitted = (g[g["status"].astype(str).eq("fitted")] if "status" in g.columns else g).reset_index(drop=True)
     G = len(fitted)
-    beta = _spread(results.coefficients, keys, fitted, {"term": labels}, "estimate", (G, p))
-    inv = _spread(results.xtx_inverse, keys, fitted, {"row term": labels, "column term": labels}, "value",
+    beta = _spread(results.coefficients, k, fitted, {"term": labels}, "estimate", (G, p))
+    inv = _spread(results.xtx_inverse, k, fitted, {"row term": labels, "column term": labels}, "value",
                   (G, p, p))
-    lo = _spread(results.input_ranges, keys, fitted, {"column": sources}, "min", (G, m))
-    hi = _spread(results.input_ranges, keys, fitted, {"column": sources}, "max", (G, m))
+    lo = _spread(results.input_ranges, k, fitted, {"column": sources}, "min", (G, m))
+    hi = _spread(results.input_ranges, k, fitted, {"column": sources}, "max", (G, m))
     ok = np.isfinite(beta).all(axis=1) & np.isfinite(inv).reshape(G, -1).all(axis=1)
     sub = fitted[ok]
-    kept = list(zip(*(sub[k].astype(str) for k in keys))) if keys else [()] * len(sub)
+    kept = list(zip(*(sub.iloc[:, j].astype(str) for j in range(k)))) if k else [()] * len(sub)
     n = pd.to_numeric(sub["n"]).to_numpy(np.int64)
     rse = pd.to_numeric(sub["residual std error"]).to_numpy(np.float64)
     return ModelStore(
-        y=results.y, group_columns=tuple(keys), terms=tuple(results.terms),
+        y=results.y, group_columns=tuple(results.group_columns), terms=tuple(results.terms),
         intercept=bool(results.job.intercept), level=float(results.job.level),
         date_columns=tuple(c for c in results.info.date_columns if c in sources),
         labels=unique_labels(kept), keys=tuple(kept), n=n,
@@ -175,14 +187,15 @@ def term_rows(store: ModelStore) -> list[list]:
 
 
 def group_headers(store: ModelStore) -> list[str]:
-    """The header row of the group table."""
+    """The header row of the group table (a group column named like one of ours shows as `NAME (input)`)."""
     labels = store.term_labels
-    head = [GROUP_HEADER, *store.group_columns, "n", "residual df", "residual variance"]
-    head += [f"coefficient: {t}" for t in labels]
-    head += [f"(X'X)⁻¹: {a} × {b}" for a in labels for b in labels]
+    ours = ["n", "residual df", "residual variance"]
+    ours += [f"coefficient: {t}" for t in labels]
+    ours += [f"(X'X)⁻¹: {a} × {b}" for a in labels for b in labels]
     for c in store.sources:
-        head += [f"min: {c}", f"max: {c}"]
-    return head
+        ours += [f"min: {c}", f"max: {c}"]
+    keys = shown_names(store.group_columns, [GROUP_HEADER, *ours])
+    return [cell_text(h) for h in (GROUP_HEADER, *keys, *ours)]
 
 
 def group_columns(store: ModelStore, lay: StoreLayout) -> list[StoreColumn]:

@@ -11,21 +11,35 @@ from scipy import stats
 from ..model.engine import EngineFit, design_row
 from ..model.inference import Inference
 from ..terms import Term, source_columns
+from .headers import shown_names
 
 CURVE_POINTS = 25
 
 
 def with_keys(keys: pd.DataFrame, codes: np.ndarray, body: dict) -> pd.DataFrame:
-    """Group key columns for `codes` followed by the body columns."""
+    """Group key columns for `codes` followed by the body columns (our columns).
+
+    Keys are taken by position; a key whose name is also a body column is shown as `NAME (input)`
+    (see results.headers), so the user's values and ours both stay.
+    """
+    names = shown_names(list(keys.columns), body)
     out = keys.iloc[codes].reset_index(drop=True)
+    out.columns = names
     for k, v in body.items():
         out[k] = v
     return out
 
 
+def empty_table(keys: pd.DataFrame, ours: Sequence[str]) -> pd.DataFrame:
+    """A table without rows: the key columns (named as `with_keys` names them), then `ours`."""
+    return pd.DataFrame(columns=[*shown_names(list(keys.columns), ours), *ours])
+
+
 def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, flags: np.ndarray, reasons: np.ndarray,
-                 dropped: np.ndarray, extra: dict[str, np.ndarray]) -> pd.DataFrame:
+                 rows: tuple[np.ndarray, np.ndarray], extra: dict[str, np.ndarray]) -> pd.DataFrame:
+    """One row per group; `rows` = (rows used, rows not used) per group, as `observations` says."""
     ok = fit.fitted_ok
+    used, dropped = rows
     G = fit.n_groups
 
     def only(v):
@@ -36,7 +50,7 @@ def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, flags: np.n
         "status": np.where(ok, "fitted", "not fitted"),
         "flags": np.where(ok, flags, 0),
         "reasons": reason_text,
-        "n": fit.n,
+        "n": used,
         "rows dropped": dropped,
         "parameters": np.full(G, fit.p),
         "R²": only(inf.r2),
@@ -79,7 +93,7 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequ
     """Fitted line and confidence band of the mean over each group's observed input range."""
     cols = source_columns(terms)
     if len(cols) != 1:
-        return pd.DataFrame(columns=list(keys.columns) + ["x", "fitted", "mean CI low", "mean CI high"])
+        return empty_table(keys, ["x", "fitted", "mean CI low", "mean CI high"])
     col = cols[0]
     lo, hi = ranges[col]
     g_idx = np.flatnonzero(fit.fitted_ok & np.isfinite(lo) & np.isfinite(hi))
@@ -143,10 +157,8 @@ def ranges_table(keys: pd.DataFrame, fit: EngineFit,
     for col, (lo, hi) in ranges.items():
         parts.append(with_keys(keys, g_idx, {"column": col, "min": lo[g_idx], "max": hi[g_idx]}))
     if not parts:
-        return pd.DataFrame(columns=list(keys.columns) + ["column", "min", "max"])
-    out = pd.concat(parts, ignore_index=True)
-    return out
-
+        return empty_table(keys, ["column", "min", "max"])
+    return pd.concat(parts, ignore_index=True)
 
 
 def observed_ranges(columns: dict[str, np.ndarray], codes: np.ndarray, G: int

@@ -13,12 +13,17 @@ import pandas as pd
 
 from ..job import FitJob
 from ..read.tidy import ReadInfo
-from ..terms import Term, coefficient_labels
+from ..terms import Term, coefficient_labels, source_columns
+from .observations import observation_headers
 
 
 @dataclass(frozen=True)
 class FitResults:
     """Everything the results workbook shows; each table uses the workbook's column headers.
+
+    Every keyed table starts with the group key columns (in `group_columns` order): find them by
+    position (`key_headers`). A user's column named like one of ours in the same table is shown as
+    `NAME (input)` (see results.headers); `observation_header` gives the header on observations.
 
     groups        one row per group: keys, status, flags, reasons, n, rows dropped, parameters,
                   R², adjusted R², residual std error, RMSE, CV(RMSE) %, F, F p-value, AIC, BIC, …
@@ -49,6 +54,22 @@ class FitResults:
     input_ranges: pd.DataFrame
     info: ReadInfo
     about: tuple[tuple[str, Any], ...] = field(default_factory=tuple)
+    order: str | None = None              # the column giving the row order within a group, if any
+
+    @property
+    def number_columns(self) -> tuple[str, ...]:
+        """The user's number columns on `observations`: response, inputs, order column (no repeats)."""
+        cols = dict.fromkeys([self.y, *source_columns(self.terms), *([self.order] if self.order else [])])
+        return tuple(c for c in cols if c not in self.group_columns)
+
+    def key_headers(self, table: pd.DataFrame) -> list[str]:
+        """The headers of a result table's group key columns: its first len(group_columns) columns."""
+        return [str(c) for c in table.columns[:len(self.group_columns)]]
+
+    def observation_header(self, column: str) -> str:
+        """The header of a user's column (group key, response, input or order column) on `observations`."""
+        user = [*self.group_columns, *self.number_columns]
+        return observation_headers(user)[user.index(column)] if column in user else column
 
     @property
     def term_labels(self) -> tuple[str, ...]:

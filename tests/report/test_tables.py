@@ -189,8 +189,9 @@ def test_text_longer_than_a_cell_is_cut_with_a_note(make_results, tmp_path):
     res = dataclasses.replace(res, groups=g)
     wb = openpyxl.load_workbook(write_results(res, tmp_path / "long.xlsx"))
     assert len(wb["groups"]["D2"].value) == 32_767         # Excel's limit of characters in a cell
+    assert wb["groups"]["D2"].value.endswith("x…")           # the cut shows
     about = " ".join(str(c.value) for row in wb["about"].iter_rows() for c in row if c.value)
-    assert "cut to 32,767 characters: reasons 1" in about
+    assert "cut to 32,767 characters, ending in …: reasons 1" in about
 
 
 def test_about_holds_provenance_legend_definitions_and_cautions(written):

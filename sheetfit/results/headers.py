@@ -1,0 +1,63 @@
+"""The user's columns beside ours: one rule for every table, sheet and the model store.
+
+Every keyed result table starts with the group key columns, in `FitResults.group_columns` order,
+so code finds them by position, never by name. A user's column (group key, response, input or
+order column) keeps its own name as header unless that name is also the header of one of our
+columns in the same table; then it is shown as `NAME (input)` (`NAME (input 2)`… should that be
+taken too). Our columns always keep their names, so `groups["status"]` is always sheetfit's status.
+
+Text in a cell holds at most CELL_LIMIT UTF-16 units (the spreadsheet limit); `cell_text` cuts
+longer text and ends it with CUT_MARK so the cut shows.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+
+INPUT_MARK = "input"
+CELL_LIMIT = 32_767        # UTF-16 units a spreadsheet cell holds
+CUT_MARK = "…"
+
+
+def shown_names(user: Sequence[str], ours: Iterable[str]) -> list[str]:
+    """The headers of the user's columns `user` in a table that also holds our columns `ours`."""
+    ours = set(map(str, ours))
+    taken = ours | {str(u) for u in user}
+    out = []
+    for name in map(str, user):
+        if name in ours:
+            k = 1
+            shown = f"{name} ({INPUT_MARK})"
+            while shown in taken:
+                k += 1
+                shown = f"{name} ({INPUT_MARK} {k})"
+            taken.add(shown)
+            name = shown
+        out.append(name)
+    return out
+
+
+def renamed(user: Sequence[str], shown: Sequence[str]) -> list[tuple[str, str]]:
+    """(name, header) of the user's columns whose header differs from their name."""
+    return [(str(u), s) for u, s in zip(user, shown) if str(u) != s]
+
+
+def rename_note(pairs: Sequence[tuple[str, str]]) -> str:
+    """The `about` line for user columns shown under another header."""
+    listed = ", ".join(f'"{u}" as "{s}"' for u, s in pairs)
+    return f"input columns shown under another header, because a column of sheetfit's own has their name: {listed}"
+
+
+def utf16_len(text: str) -> int:
+    """Length in UTF-16 units, as spreadsheets count (characters beyond U+FFFF count twice)."""
+    if len(text) * 2 <= CELL_LIMIT:          # cannot pass the limit: skip the encoding
+        return len(text)
+    return len(text.encode("utf-16-le", "surrogatepass")) // 2
+
+
+def cell_text(text: str, limit: int = CELL_LIMIT) -> str:
+    """`text` if a cell holds it, else cut to `limit` UTF-16 units ending in CUT_MARK (linear time)."""
+    if len(text) <= limit // 2 or utf16_len(text) <= limit:
+        return text
+    units = text.encode("utf-16-le", "surrogatepass")[: 2 * (limit - len(CUT_MARK))]
+    return units.decode("utf-16-le", "ignore") + CUT_MARK
