@@ -220,7 +220,11 @@ def _compare(hand, sf) -> dict:
     relative to max(|estimate|, std error), since an estimate near zero has no relative digits to match."""
     import numpy as np
 
-    sf = sf.assign(term=sf["term"].replace({"(intercept)": "const"}))
+    from sheetfit.results.headers import COEFFICIENT, INPUT
+    from sheetfit.terms import INTERCEPT
+
+    sf = sf.rename(columns={INPUT: "term", COEFFICIENT: "estimate"})
+    sf = sf.assign(term=sf["term"].replace({INTERCEPT: "const"}))
     m = hand.merge(sf, on=["g", "term"], suffixes=("", " sf"))
     if len(m) != len(hand):
         return {"diff_estimate": float("nan"), "diff_se": float("nan")}

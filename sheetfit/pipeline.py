@@ -27,6 +27,8 @@ from .provenance import file_sha256
 from .read.tidy import REASON, SOURCE_ROW, Observations
 from .results import tables
 from .results.about import about_rows
+from .results.headers import (CONDITION_NUMBER, FLAGS, HIGH_LEVERAGE_ROWS, INFLUENTIAL_ROWS, OUTLYING_ROWS,
+    STATUS, USED, YES)
 from .results.observations import observations_table
 from .results.types import FitResults
 from .terms import coefficient_labels, source_columns
@@ -135,12 +137,12 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit, i
     check_table = judged.table.copy()
     check_table = tables.with_keys(keys, check_table.pop("_code").to_numpy(), check_table.to_dict("series"))
     group_extra = {
-        "high-leverage rows": np.bincount(codes, weights=highlights["high leverage"], minlength=G),
-        "outlying rows": np.bincount(codes, weights=highlights["outlying"], minlength=G),
-        "influential rows": np.bincount(codes, weights=highlights["influential"], minlength=G),
-        "condition number": condition,
+        HIGH_LEVERAGE_ROWS: np.bincount(codes, weights=highlights["high leverage"], minlength=G),
+        OUTLYING_ROWS: np.bincount(codes, weights=highlights["outlying"], minlength=G),
+        INFLUENTIAL_ROWS: np.bincount(codes, weights=highlights["influential"], minlength=G),
+        CONDITION_NUMBER: condition,
     }
-    # n and rows dropped count the rows `observations` says are used and not used (a group that
+    # rows used and rows not used count the rows `observations` says are used and not used (a group that
     # could not be fitted uses none of its rows)
     used = (rows.reason == "") & fit.fitted_ok[rows.codes_all]
     n_used = np.bincount(rows.codes_all, weights=used, minlength=G).astype(np.int64)
@@ -218,10 +220,10 @@ def with_about(results: FitResults, rows: list) -> FitResults:
 def summary_lines(results: FitResults) -> list[str]:
     """The few lines the CLI prints after a run: groups fitted and flagged, rows used."""
     g = results.groups
-    fitted = int((g["status"] == "fitted").sum())
-    flagged = int((g["flags"] > 0).sum())
+    fitted = int((g[STATUS] == "fitted").sum())
+    flagged = int((g[FLAGS] > 0).sum())
     lines = [f"{len(g)} groups: {fitted} fitted, {len(g) - fitted} not fitted, {flagged} flagged"]
-    used = int((results.observations["used"] == "yes").sum())
+    used = int((results.observations[USED] == YES).sum())
     lines.append(f"{results.info.rows_read} rows read: {used} used, {results.info.rows_read - used} not used "
                  f"(reasons on the observations sheet)")
     return lines
@@ -247,8 +249,8 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
         nothing_predicted,
     )
     from .read import check_path
-    from .report.predictions import output_error, write_predictions
-    from .report.safe import check_output_path
+    from .report.predictions import write_predictions
+    from .report.safe import check_output_path, output_error
     from .results.store import read_store
 
     progress = progress or _no_progress

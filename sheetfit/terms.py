@@ -14,7 +14,7 @@ import numpy as np
 
 from .errors import ColumnNotFoundError, TermSyntaxError, not_found_message
 
-INTERCEPT = "(intercept)"   # the label of the constant term everywhere results show it
+INTERCEPT = "constant"      # the label of the intercept wherever results show it (see intercept_label)
 
 _POWER = re.compile(r"^(?P<col>.+?)\s*\^\s*(?P<k>[0-9]+)$")
 _FUNC = re.compile(r"^(?P<fn>log|sqrt)\s*\(\s*(?P<col>.+?)\s*\)$", re.IGNORECASE)
@@ -132,6 +132,16 @@ def polynomial_family(terms: Sequence[Term], column: str) -> list[int] | None:
     return None
 
 
+def intercept_label(terms: Sequence[Term]) -> str:
+    """INTERCEPT, or `constant (model)`, `constant (model 2)`… when an input term already has that label."""
+    taken = {t.label for t in terms}
+    label, k = INTERCEPT, 1
+    while label in taken:
+        label = f"{INTERCEPT} (model)" if k == 1 else f"{INTERCEPT} (model {k})"
+        k += 1
+    return label
+
+
 def coefficient_labels(terms: Sequence[Term], intercept: bool) -> tuple[str, ...]:
     """Coefficient labels in design order, the intercept first when the model has one."""
-    return ((INTERCEPT,) if intercept else ()) + tuple(t.label for t in terms)
+    return ((intercept_label(terms),) if intercept else ()) + tuple(t.label for t in terms)

@@ -67,5 +67,5 @@ def test_robust_inference_uses_robust_wald_f_and_intervals():
     f_row = res.checks[res.checks["check"] == "model F-test"].iloc[0]
     assert_close(f_row["statistic"], np.squeeze(ref.fvalue), RTOL)
     assert_close(f_row["p-value"], np.squeeze(ref.f_pvalue), 1e-7)
-    assert_close(res.coefficients["CI low"], np.asarray(ref.conf_int(0.05))[:, 0], RTOL)
+    assert_close(res.coefficients["interval low"], np.asarray(ref.conf_int(0.05))[:, 0], RTOL)
     assert (res.coefficients["std error used"] == "HC3").all()

@@ -68,7 +68,7 @@ from tests.combinations import (
 
 RTOL = 1e-9
 SHEETS = ("groups", "coefficients", "checks", "observations")
-OBS_VALUES = ("fitted", "residual", "leverage", "Cook's distance", "studentized residual")
+OBS_VALUES = ("fitted value", "residual", "leverage", "Cook's distance", "studentized residual")
 
 # Sheetfit faults the matrix finds: (which cases, what fails). Each matching case is a strict xfail,
 # so a fix shows up as XPASS(strict) and its entry must then go.
@@ -144,7 +144,7 @@ def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) ->
     assert len(row) == 1, f"{label}: {len(row)} rows on groups"
     row = row.iloc[0]
     assert row["status"] == "fitted", f"{label}: {row['status']} ({row['reasons']})"
-    assert (int(row["n"]), int(row["rows dropped"]), int(row["parameters"])) == (n, gr.dropped, p), label
+    assert (int(row["rows used"]), int(row["rows not used"]), int(row["number of coefficients"])) == (n, gr.dropped, p), label
     for col, want, scale in [("R²", ref.rsquared, 1), ("adjusted R²", ref.rsquared_adj, 1),
                              ("residual std error", np.sqrt(ref.scale), 0), ("RMSE", np.sqrt(ref.ssr / n), 0),
                              ("CV(RMSE) %", 100 * np.sqrt(ref.scale) / y.mean(), 0),
@@ -238,13 +238,13 @@ def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) ->
     coef = of_group(t["coefficients"], gr.key)
     assert len(coef) == p, f"{label}: {len(coef)} coefficient rows for {p} coefficients"
     se = ref.bse
-    close(num(coef["estimate"]), ref.params, f"{label} estimate", se)
+    close(num(coef["coefficient"]), ref.params, f"{label} estimate", se)
     close(num(coef["std error"]), se, f"{label} std error")
     close(num(coef["t"]), chosen.tvalues, f"{label} t", 1)
     close(num(coef["p-value"]), chosen.pvalues, f"{label} p-value", 1)
     ci = np.asarray(chosen.conf_int(0.05))
-    close(num(coef["CI low"]), ci[:, 0], f"{label} CI low", se)
-    close(num(coef["CI high"]), ci[:, 1], f"{label} CI high", se)
+    close(num(coef["interval low"]), ci[:, 0], f"{label} CI low", se)
+    close(num(coef["interval high"]), ci[:, 1], f"{label} CI high", se)
     vif_col = num(coef["VIF"])
     close(vif_col[int(case.intercept):], vifs, f"{label} VIF", 1)
     nan = np.full(p, np.nan)
@@ -265,9 +265,9 @@ def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) ->
     if case.observations == "all" or t.get("_in_memory"):
         assert present.all(), f"{label}: used rows missing from observations"
     at = obs.loc[rows[present]]
-    assert (at["used"] == "yes").all(), f"{label}: used rows marked unused"
+    assert (at["used in fit"] == "yes").all(), f"{label}: used rows marked unused"
     yscale = np.abs(y).max()
-    for col, want_v, scale in [("fitted", ref.fittedvalues, yscale), ("residual", ref.resid, yscale),
+    for col, want_v, scale in [("fitted value", ref.fittedvalues, yscale), ("residual", ref.resid, yscale),
                                ("leverage", infl.hat_matrix_diag, 1),
                                ("Cook's distance", infl.cooks_distance[0], infl.cooks_distance[0].max()),
                                ("studentized residual", infl.resid_studentized_external, 1)]:
@@ -377,7 +377,7 @@ def test_combination_matches_statsmodels(case: Case, tmp_path, xls_inputs, cli):
         tables = {name: read_sheet(book, name) for name in SHEETS}
         book.close()
         if tables["observations"] is None:
-            tables["observations"] = pd.DataFrame(columns=[GROUP, "source row", "used", "row flags", *OBS_VALUES])
+            tables["observations"] = pd.DataFrame(columns=[GROUP, "source row", "used in fit", "row flags", *OBS_VALUES])
     assert len(tables["groups"]) == len(refs), f"{len(tables['groups'])} groups, expected {len(refs)}"
     flagged: set[int] = set()
     for gr in refs:
@@ -391,7 +391,7 @@ def test_combination_matches_statsmodels(case: Case, tmp_path, xls_inputs, cli):
         obs = tables["observations"]
         rows = num(obs["source row"]).astype(int)
         assert sorted(rows) == list(file_rows), "observations table does not list every input row once"
-        marked = dict(zip(rows, obs["used"]))
+        marked = dict(zip(rows, obs["used in fit"]))
         assert {r for r, u in marked.items() if u == "no"} == unusable, "rows marked unused"
         reasons = dict(zip(rows, obs["reason"]))
         assert all(str(reasons[r] or "").strip() for r in unusable), "an unusable row without a reason"

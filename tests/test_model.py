@@ -23,20 +23,20 @@ def test_every_group_matches_statsmodels(k, intercept):
         coef = res.coefficients[res.coefficients["grp"] == g]
         obs = res.observations[res.observations["grp"] == g]
         assert row["status"] == "fitted"
-        assert_close(coef["estimate"], ref.params, what="params")
+        assert_close(coef["coefficient"], ref.params, what="params")
         assert_close(coef["std error"], ref.bse, what="bse")
         assert_close(coef["t"], ref.tvalues, what="t")
         assert_close(coef["p-value"], ref.pvalues, what="p")
         ci = ref.conf_int(0.05)
-        assert_close(coef["CI low"], ci[:, 0], what="ci low")
-        assert_close(coef["CI high"], ci[:, 1], what="ci high")
+        assert_close(coef["interval low"], ci[:, 0], what="ci low")
+        assert_close(coef["interval high"], ci[:, 1], what="ci high")
         for ours, theirs in [("R²", ref.rsquared), ("adjusted R²", ref.rsquared_adj), ("F", ref.fvalue),
                              ("F p-value", ref.f_pvalue), ("AIC", ref.aic), ("BIC", ref.bic),
                              ("residual std error", np.sqrt(ref.scale)),
                              ("RMSE", np.sqrt(ref.ssr / ref.nobs))]:
             assert_close(row[ours], theirs, what=ours)
         infl = OLSInfluence(ref)                                            # statsmodels influence
-        assert_close(obs["fitted"], ref.fittedvalues, what="fitted")
+        assert_close(obs["fitted value"], ref.fittedvalues, what="fitted value")
         assert_close(obs["residual"], ref.resid, rtol=1e-8, atol=1e-12 * np.abs(sub["y"]).max(), what="resid")
         assert_close(obs["leverage"], infl.hat_matrix_diag, what="leverage")
         assert_close(obs["Cook's distance"], infl.cooks_distance[0], rtol=1e-8, what="cooks")
@@ -50,7 +50,7 @@ def test_residuals_sum_to_zero_and_line_passes_through_means():
     for g, sub in frame.groupby("grp"):
         obs = res.observations[res.observations["grp"] == g]
         assert abs(obs["residual"].sum()) < 1e-9 * np.abs(sub["y"]).sum()
-        b = res.coefficients[res.coefficients["grp"] == g]["estimate"].to_numpy()
+        b = res.coefficients[res.coefficients["grp"] == g]["coefficient"].to_numpy()
         assert b[0] + b[1] * sub["x1"].mean() == pytest.approx(sub["y"].mean(), rel=1e-12, abs=1e-12)
 
 
@@ -71,7 +71,7 @@ def test_groups_that_cannot_be_fitted_get_reasons_and_the_run_goes_on():
     assert "input a takes the same value" in reasons["const"]
     assert "exact collinearity" in reasons["coll"]
     unused = res.observations[res.observations["grp"] != "ok"]
-    assert (unused["used"] == "no").all() and unused["reason"].str.startswith("group not fitted").all()
+    assert (unused["used in fit"] == "no").all() and unused["reason"].str.startswith("group not fitted").all()
 
 
 def test_integer_inputs_do_not_overflow_in_powers():
@@ -101,8 +101,8 @@ def test_a_collinear_group_in_a_batch_with_fittable_groups():
     alone = sheetfit.fit_frame(frame[frame["grp"] != "coll"], y="y", x=["a", "b"], group="grp")
     status = dict(zip(res.groups["grp"], res.groups["status"]))
     assert status == {"coll": "not fitted", "ok0": "fitted", "ok1": "fitted"}
-    ours = res.coefficients[res.coefficients["grp"] != "coll"]["estimate"].to_numpy()
-    np.testing.assert_array_equal(ours, alone.coefficients["estimate"].to_numpy())
+    ours = res.coefficients[res.coefficients["grp"] != "coll"]["coefficient"].to_numpy()
+    np.testing.assert_array_equal(ours, alone.coefficients["coefficient"].to_numpy())
     for g, sub in frame[frame["grp"] != "coll"].groupby("grp"):
         ref = statsmodels_fit(sub, "y", ["a", "b"], True)                  # statsmodels OLS
-        assert_close(res.coefficients[res.coefficients["grp"] == g]["estimate"], ref.params, what="params")
+        assert_close(res.coefficients[res.coefficients["grp"] == g]["coefficient"], ref.params, what="params")

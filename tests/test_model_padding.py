@@ -60,7 +60,7 @@ def test_log_term_with_groups_of_different_sizes_fits(x):
         cols = [np.log(sub["x"])] + ([np.sqrt(sub["z"])] if len(x) == 2 else [])
         ref = sm.OLS(sub["y"].to_numpy(), sm.add_constant(np.column_stack(cols))).fit()   # statsmodels
         coef = res.coefficients[res.coefficients["grp"] == g]
-        assert_close(coef["estimate"], ref.params, what="params")
+        assert_close(coef["coefficient"], ref.params, what="params")
         assert_close(coef["std error"], ref.bse, what="bse")
         assert_close(res.groups.loc[res.groups["grp"] == g, "R²"], ref.rsquared, what="R²")
 

@@ -56,7 +56,7 @@ def test_huge_and_tiny_data_fit_as_the_unscaled_data(s):
     assert row["status"] == "fitted", row["reasons"]
     unit = np.array([s, 1.0, 1.0])        # intercept in units of y; slopes are ratios y/x
     coef = res.coefficients
-    assert_close(coef["estimate"], ref.params.to_numpy() * unit, what="estimates")
+    assert_close(coef["coefficient"], ref.params.to_numpy() * unit, what="estimates")
     assert_close(coef["std error"], ref.bse.to_numpy() * unit, what="std errors")
     assert_close(coef["t"], ref.tvalues, what="t")
     assert_close(coef["p-value"], ref.pvalues, what="p")
@@ -67,7 +67,7 @@ def test_huge_and_tiny_data_fit_as_the_unscaled_data(s):
     assert_close(row["residual std error"], np.sqrt(ref.scale) * s, what="residual std error")
     assert_close(row["condition number"], plain.groups["condition number"].iloc[0], what="condition number")
     obs = res.observations
-    assert_close(obs["fitted"], ref.fittedvalues * s, what="fitted")
+    assert_close(obs["fitted value"], ref.fittedvalues * s, what="fitted value")
     assert_close(obs["leverage"], plain.observations["leverage"], what="leverage")
     assert_close(obs["studentized residual"], plain.observations["studentized residual"], what="studentized")
     # Every check is scale-free: the same statistics and p-values as on the unscaled data.
@@ -118,7 +118,7 @@ def test_subnormal_data_are_fitted_not_called_collinear():
     with no_warnings():
         res = sheetfit.fit_frame(scaled(frame, 1e-310), y="y", x=["x1", "x2"])
     assert res.groups["status"].iloc[0] == "fitted", res.groups["reasons"].iloc[0]
-    assert_close(res.coefficients["estimate"], ref.params.to_numpy() * [1e-310, 1.0, 1.0], rtol=1e-6)
+    assert_close(res.coefficients["coefficient"], ref.params.to_numpy() * [1e-310, 1.0, 1.0], rtol=1e-6)
     assert_close(res.groups["R²"].iloc[0], ref.rsquared, rtol=1e-8)
 
 
@@ -130,7 +130,7 @@ def test_quadratic_of_a_large_input_keeps_its_digits():
     with no_warnings():
         res = sheetfit.fit_frame(data, y="y", x=["x1", "x1^2"])
     # y·1e300 = b0·1e300 + b1·1e150·(x·1e150) + b2·(x·1e150)²  (statsmodels, unscaled)
-    assert_close(res.coefficients["estimate"], ref.params * np.array([1e300, 1e150, 1.0]))
+    assert_close(res.coefficients["coefficient"], ref.params * np.array([1e300, 1e150, 1.0]))
     assert_close(res.groups["R²"].iloc[0], ref.rsquared)
 
 
@@ -159,7 +159,7 @@ def test_robust_errors_and_wald_test_at_extreme_scales(s):
         res = sheetfit.fit_frame(scaled(frame, s), y="y", x=["x1", "x2"], inference="robust", adjust="none")
     assert (res.coefficients["std error used"] == "HC3").all()
     assert_close(res.coefficients["robust std error (HC3)"], ref.bse.to_numpy() * [s, 1.0, 1.0])
-    assert_close(res.coefficients["CI low"], np.asarray(ref.conf_int(0.05))[:, 0] * [s, 1.0, 1.0])
+    assert_close(res.coefficients["interval low"], np.asarray(ref.conf_int(0.05))[:, 0] * [s, 1.0, 1.0])
     f_row = res.checks[res.checks["check"] == "model F-test"].iloc[0]
     assert_close(f_row["statistic"], np.squeeze(ref.fvalue), 1e-8)
     assert_close(f_row["statistic"], plain.checks.loc[plain.checks["check"] == "model F-test", "statistic"].iloc[0])

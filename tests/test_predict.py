@@ -34,8 +34,8 @@ from sheetfit.results.store import (
 )
 from tests.oracle import curved_groups
 
-ORACLE = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
-          "mean CI high": "mean_ci_upper", "prediction low": "obs_ci_lower", "prediction high": "obs_ci_upper"}
+ORACLE = {"predicted value": "mean", "std error of the fitted mean": "mean_se", "range for the average, low": "mean_ci_lower",
+          "range for the average, high": "mean_ci_upper", "range for one new row, low": "obs_ci_lower", "range for one new row, high": "obs_ci_upper"}
 X_TERMS = ["x", "x^2", "log(z)"]
 
 
@@ -110,7 +110,7 @@ def test_model_store_round_trip_from_the_results_workbook(results, data, tmp_pat
 
 
 def test_store_cells_sit_where_the_shared_layout_says(tmp_path):
-    # One layout places the store's numbers, points the predict sheet's formulas at them and reads them
+    # One layout places the store's numbers, points the live prediction sheet's formulas at them and reads them
     # back; two group columns and no intercept move every column from where the usual case puts it.
     rng = np.random.default_rng(5)
     data = pd.DataFrame({"a": rng.choice(["p", "q"], 90), "b": rng.choice([1, 2], 90),
@@ -135,7 +135,7 @@ def test_store_cells_sit_where_the_shared_layout_says(tmp_path):
         assert cell(r, lay.col_coef(1)) == pytest.approx(direct.beta[g, 1], rel=1e-15)
         assert cell(r, lay.col_inv(1, 0)) == pytest.approx(direct.xtx_inv[g, 1, 0], rel=1e-15)
         assert cell(r, lay.col_max(1)) == pytest.approx(direct.hi[g, 1], rel=1e-15)
-    assert f",{lay.col_min(0) + 1})" in book["predict"]["C9"].value
+    assert f",{lay.col_min(0) + 1})" in book["live prediction"]["C9"].value
     back = read_store(path)
     assert back.keys == direct.keys and not back.intercept and back.group_columns == ("a", "b")
     for name in ("n", "df", "sigma2", "beta", "xtx_inv", "lo", "hi"):
@@ -158,20 +158,20 @@ def test_rows_that_cannot_be_predicted_keep_a_reason(results):
                         "z": [1.0, 1.0, 1.0, 1.0, 2.0, -1.0]})
     pred = sheetfit.predict(results, new)
     why = pred["reason"].tolist()
-    assert why[0] == "" and np.isfinite(pred["predicted"][0])
+    assert why[0] == "" and np.isfinite(pred["predicted value"][0])
     assert 'no fitted model for group "Q"' in why[1]
     assert why[2] == "x: empty cell"
     assert why[3] == 'x: text "abc" is not a number'
     assert why[4] == ""                              # numbers stored as text are read as numbers
     assert why[5] == "z is zero or negative, so log(z) is undefined"
-    assert pred["predicted"][1:4].isna().all() and pred["predicted"][5:].isna().all()
+    assert pred["predicted value"][1:4].isna().all() and pred["predicted value"][5:].isna().all()
     assert pred["extrapolation"][1:4].eq("").all()
 
 
 def test_missing_columns_are_reasons_not_crashes(results):
     pred = sheetfit.predict(results, pd.DataFrame({"x": [2.0], "Z": [1.0]}))
     assert pred["reason"][0] == 'no group column "g" in the new rows; no input column "z" in the new rows'
-    assert pred["predicted"].isna().all()
+    assert pred["predicted value"].isna().all()
 
 
 def test_numeric_group_keys_match_their_text_labels():
@@ -260,7 +260,7 @@ def test_inputs_too_large_to_compute_get_a_reason(results):
     pred = sheetfit.predict(results, new)
     why = pred["reason"].tolist()
     assert why[0].startswith("x^2 at these inputs is too large to compute")
-    assert why[1] == "" and np.isfinite(pred["predicted"][1])
+    assert why[1] == "" and np.isfinite(pred["predicted value"][1])
     for r in (0, 2, 3):
         assert why[r], r
         assert pred.loc[r, list(ORACLE)].isna().all() and pred["extrapolation"][r] == ""
@@ -272,7 +272,7 @@ def test_inputs_too_large_to_compute_get_a_reason(results):
     line["y"] = 1 + 2 * line["x"] + rng.normal(0, 0.1, 20)
     pred = sheetfit.predict(fit_frame(line, y="y", x="x"), pd.DataFrame({"x": [1e308, 1.0]}))
     assert pred["reason"][0].startswith("the prediction or its interval at these inputs is too large to compute")
-    assert pred["predicted"].isna().tolist() == [True, False]
+    assert pred["predicted value"].isna().tolist() == [True, False]
 
 
 def summary_of(*args, **kwargs):
@@ -376,3 +376,56 @@ def test_a_full_disk_or_a_too_long_name_is_one_line(results, tmp_path, monkeypat
         predict_workbook(fit_path, new_path, None, tmp_path / "p.xlsx", False)
     assert str(err.value).startswith(f'no space left on the disk while writing "{tmp_path / "p.xlsx"}"')
     assert sorted(p.name for p in tmp_path.iterdir()) == ["fit.xlsx", "new.xlsx"]     # no temporary file
+
+
+def test_a_column_named_like_one_of_ours_shows_as_input(tmp_path):
+    # the user's columns and ours meet by name in sheetfit.predict and on the predictions sheet: a user
+    # column named like one of ours is shown as `NAME (input)` (results.headers.shown_names), so each
+    # name appears once and the highlight rules find our columns
+    from openpyxl.utils import get_column_letter
+
+    df = frame().rename(columns={"g": "predicted value"})
+    res = fit_frame(df, group="predicted value", y="y", x=X_TERMS)
+    got = sheetfit.predict(res, pd.DataFrame({"predicted value": ["A", "X"], "x": [2.0, 2.0], "z": [5.0, 5.0]}))
+    assert list(got.columns) == ["predicted value (input)", "x", "z", *RESULT_COLUMNS]
+    assert got["predicted value (input)"].tolist() == ["A", "X"]
+    assert np.isfinite(got["predicted value"][0]) and got["reason"][1].startswith('no fitted model for group "X"')
+
+    fit_path = write_results(res, tmp_path / "fit.xlsx")
+    new_path = tmp_path / "new.xlsx"
+    write_new_rows(new_path, [["A", "mine", 7, 2.0, 5.0], ["X", "mine too", 8, 2.0, 5.0]],
+                   header=("predicted value", "reason", "source row", "x", "z"))
+    out = predict_workbook(fit_path, new_path, "new", None, False)
+    wb = openpyxl.load_workbook(out)
+    ws = wb["predictions"]
+    head = [c.value for c in ws[1]]
+    assert head == ["source row", "predicted value (input)", "reason (input)", "source row (input)", "x", "z",
+                    *RESULT_COLUMNS]
+    body = [dict(zip(head, (c.value for c in row))) for row in ws.iter_rows(min_row=2)]
+    assert [b["reason (input)"] for b in body] == ["mine", "mine too"]
+    assert [b["source row"] for b in body] == [2, 3] and [b["source row (input)"] for b in body] == [7, 8]
+    assert isinstance(body[0]["predicted value"], float) and body[1]["predicted value"] is None
+    ours = get_column_letter(head.index("reason") + 1)
+    rules = [r.formula[0] for cf in ws.conditional_formatting for r in cf.rules]
+    assert any(f.startswith("LEN(") and f"${ours}2" in f for f in rules), rules
+    about = dict(wb["about"].iter_rows(values_only=True))
+    assert '"reason" as "reason (input)"' in about["renamed columns"]
+    wb.close()
+
+
+def test_results_written_with_the_old_intercept_label_are_still_read(results, data, tmp_path):
+    # workbooks written before the intercept was labelled `constant` call it `(intercept)` on the store
+    # sheet; the store finds the intercept by its kind, so they predict the same
+    fit_path = write_results(results, tmp_path / "fit.xlsx")
+    wb = openpyxl.load_workbook(fit_path)
+    ws = wb["model store"]
+    for row in ws.iter_rows():
+        for cell in row:
+            if isinstance(cell.value, str) and "constant" in cell.value:
+                cell.value = cell.value.replace("constant", "(intercept)")
+    old = tmp_path / "old-fit.xlsx"
+    wb.save(old)
+    store = read_store(old)
+    assert store.intercept and store.term_labels[0] == "constant"
+    new = pd.DataFrame({"g": ["A", "B"], "x": [2.0, 7.5], "z": [5.0, 1.5]})
+    pd.testing.assert_frame_equal(sheetfit.predict(old, new), sheetfit.predict(results, new), rtol=1e-12)

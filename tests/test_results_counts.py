@@ -16,12 +16,12 @@ import sheetfit
 def agree(res) -> None:
     keys = res.key_headers(res.observations)
     key = keys[0]
-    counts = res.observations.groupby(key, sort=False)["used"].value_counts().unstack(fill_value=0)
+    counts = res.observations.groupby(key, sort=False)["used in fit"].value_counts().unstack(fill_value=0)
     g = res.groups.set_index(res.key_headers(res.groups)[0])
     for label, row in g.iterrows():
         used = int(counts.loc[label].get("yes", 0))
         unused = int(counts.loc[label].get("no", 0))
-        assert (row["n"], row["rows dropped"]) == (used, unused), label
+        assert (row["rows used"], row["rows not used"]) == (used, unused), label
 
 
 def test_a_group_whose_responses_are_all_text(tmp_path, cli):
@@ -39,15 +39,15 @@ def test_a_group_whose_responses_are_all_text(tmp_path, cli):
     res = sheetfit.fit_workbook(book, sheet="Data", group="site", y="y", x="x")
     g = res.groups.set_index("site")
     assert g.loc["b", "status"] == "not fitted"
-    assert (g.loc["b", "n"], g.loc["b", "rows dropped"]) == (0, 36)
-    assert (g.loc["a", "n"], g.loc["a", "rows dropped"]) == (36, 0)
+    assert (g.loc["b", "rows used"], g.loc["b", "rows not used"]) == (0, 36)
+    assert (g.loc["a", "rows used"], g.loc["a", "rows not used"]) == (36, 0)
     agree(res)
     done = cli("fit", book, "--sheet", "Data", "--group", "site", "--y", "y", "--x", "x")
     assert done.returncode == 0, done.stderr
     sheet = list(openpyxl.load_workbook(tmp_path / "in-fit.xlsx", read_only=True)["groups"].iter_rows(values_only=True))
     head = list(sheet[0])
     b = next(r for r in sheet[1:] if r[0] == "b")
-    assert (b[head.index("n")], b[head.index("rows dropped")]) == (0, 36)
+    assert (b[head.index("rows used")], b[head.index("rows not used")]) == (0, 36)
 
 
 def test_groups_not_fitted_for_other_reasons_use_none_of_their_rows():
@@ -60,8 +60,8 @@ def test_groups_not_fitted_for_other_reasons_use_none_of_their_rows():
     res = sheetfit.fit_frame(df, y="y", x="x", group="site")
     g = res.groups.set_index("site")
     assert list(g["status"]) == ["fitted", "not fitted", "fitted", "not fitted"]
-    assert g.loc["flat", "n"] == 0 and g.loc["flat", "rows dropped"] == 36
-    assert g.loc["tiny", "n"] == 0 and g.loc["tiny", "rows dropped"] == 2
-    assert g.loc["c", "n"] == 35 and g.loc["c", "rows dropped"] == 1
-    assert (g["n"] + g["rows dropped"]).tolist() == [36, 36, 36, 2]
+    assert g.loc["flat", "rows used"] == 0 and g.loc["flat", "rows not used"] == 36
+    assert g.loc["tiny", "rows used"] == 0 and g.loc["tiny", "rows not used"] == 2
+    assert g.loc["c", "rows used"] == 35 and g.loc["c", "rows not used"] == 1
+    assert (g["rows used"] + g["rows not used"]).tolist() == [36, 36, 36, 2]
     agree(res)

@@ -21,17 +21,20 @@ import pytest
 import sheetfit
 from sheetfit.read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 from sheetfit.report.tables import CHECKS, COEFFICIENTS, COEFFICIENTS_OPTIONAL, GROUPS, OBS_HEAD, OBS_TAIL
-from sheetfit.results.headers import shown_names
-from sheetfit.results.store import read_store
+from sheetfit.results.headers import (AVERAGE_HIGH, AVERAGE_LOW, FITTED, GROUP_EXTRA_HEADERS, NEW_ROW_STD_ERROR,
+                                      PREDICTED, PREDICTION_HEADERS, shown_names)
+from sheetfit.results.store import STORE_NUMBERS, read_store
+from sheetfit.terms import INTERCEPT
 from sheetfit.results.store_layout import GROUP_HEADER, SETTING_HEADER, TERM_COLUMNS
 
 # every header sheetfit gives its own columns
-OURS = sorted(set(GROUPS) | {"high-leverage rows", "outlying rows", "influential rows", "condition number"}
+OURS = sorted(set(GROUPS) | set(GROUP_EXTRA_HEADERS)
               | set(COEFFICIENTS) | set(COEFFICIENTS_OPTIONAL) | {"robust std error (HC3)", "robust p-value (HC3)"}
               | set(CHECKS) | set(OBS_HEAD) | set(OBS_TAIL)
-              | {GROUP_HEADER, "n", "residual df", "residual variance", *SETTING_HEADER, *TERM_COLUMNS}
-              | {"x", "mean CI low", "mean CI high", "normal quantile", "standardized residual", "row term",
-                 "column term", "value", "column", "min", "max", "first row", "rows"})
+              | {GROUP_HEADER, *STORE_NUMBERS, *SETTING_HEADER, *TERM_COLUMNS}
+              | {"x", FITTED, AVERAGE_LOW, AVERAGE_HIGH, "normal quantile", "standardized residual", "row term",
+                 "column term", "value", "column", "min", "max", "first row", "rows", INTERCEPT}
+              | set(PREDICTION_HEADERS) | {NEW_ROW_STD_ERROR})
 # the reader keeps these three in the same table as the user's columns (sheetfit/read/tidy.py): a file
 # naming them is refused there, and a data frame's column is overwritten; not this stage's to fix
 READER_NAMES = {SOURCE_SHEET, SOURCE_ROW, REASON}
@@ -64,10 +67,11 @@ def check_workbook(path: Path, res, df: pd.DataFrame, group: str, y: str, x: str
     head, rows = sheet_table(wb, "groups")
     assert column(head, rows, key_groups) == ["north", "south", "east"]
     assert column(head, rows, "status") == ["fitted"] * 3
-    assert column(head, rows, "n") == [ROWS] * 3
+    assert column(head, rows, "rows used") == [ROWS] * 3
     head, rows = sheet_table(wb, "coefficients")
     assert column(head, rows, res.key_headers(res.coefficients)[0]) == list(np.repeat(["north", "south", "east"], 2))
-    assert column(head, rows, "term") == ["(intercept)", x] * 3
+    assert column(head, rows, "input") == list(res.term_labels) * 3
+    assert res.term_labels[0] == (INTERCEPT if x != INTERCEPT else f"{INTERCEPT} (model)")
     head, rows = sheet_table(wb, "checks")
     assert set(column(head, rows, res.key_headers(res.checks)[0])) == {"north", "south", "east"}
     assert "model F-test" in column(head, rows, "check")
@@ -75,8 +79,8 @@ def check_workbook(path: Path, res, df: pd.DataFrame, group: str, y: str, x: str
     assert column(head, rows, res.observation_header(group)) == df[group].tolist()
     assert np.allclose(column(head, rows, res.observation_header(y)), df[y], rtol=1e-15, atol=0)
     assert np.allclose(column(head, rows, res.observation_header(x)), df[x], rtol=1e-15, atol=0)
-    assert np.allclose(column(head, rows, "fitted"), res.observations["fitted"], rtol=1e-15)
-    assert column(head, rows, "used") == ["yes"] * len(df)
+    assert np.allclose(column(head, rows, "fitted value"), res.observations["fitted value"], rtol=1e-15)
+    assert column(head, rows, "used in fit") == ["yes"] * len(df)
     store = read_store(path)                                   # the model store read back
     assert store.group_columns == (group,) and store.y == y and store.sources == (x,)
     assert store.keys == (("north",), ("south",), ("east",))
@@ -94,11 +98,10 @@ def check_predictions(path: Path, res, df: pd.DataFrame) -> None:
     direct = sheetfit.predict(res, new)
     back = sheetfit.predict(path, new)
     for got in (direct, back):
-        predicted = got.loc[:, [c == "predicted" for c in got.columns]].iloc[:, -1]
-        assert np.isfinite(predicted.to_numpy(dtype=float)).all()
-    a = direct.loc[:, [c == "predicted" for c in direct.columns]].iloc[:, -1].to_numpy(dtype=float)
-    b = back.loc[:, [c == "predicted" for c in back.columns]].iloc[:, -1].to_numpy(dtype=float)
-    assert np.allclose(a, b, rtol=1e-12)
+        assert len(set(got.columns)) == len(got.columns)            # a given column never takes our name
+        assert list(got.columns[-len(PREDICTION_HEADERS):]) == list(PREDICTION_HEADERS)
+        assert np.isfinite(got[PREDICTED].to_numpy(dtype=float)).all()
+    assert np.allclose(direct[PREDICTED].to_numpy(dtype=float), back[PREDICTED].to_numpy(dtype=float), rtol=1e-12)
 
 
 @pytest.mark.parametrize("i", range(len(NAMES)), ids=NAMES)
@@ -114,7 +117,7 @@ def test_each_of_our_names_as_response_input_and_group(i, tmp_path):
     assert res.groups[keys[0]].tolist() == ["north", "south", "east"]
     obs = res.observations
     assert np.array_equal(obs[res.observation_header(y)].to_numpy(), df[y].to_numpy())
-    assert not np.allclose(obs["fitted"].to_numpy(), df[y].to_numpy())  # ours are the fitted values
+    assert not np.allclose(obs["fitted value"].to_numpy(), df[y].to_numpy())  # ours are the fitted values
     path = sheetfit.write_results(res, tmp_path / "results.xlsx")
     check_workbook(path, res, df, group, y, x)
     check_predictions(path, res, df)
@@ -143,22 +146,22 @@ def test_all_our_names_as_group_columns_at_once(tmp_path):
 
 def test_all_our_names_as_inputs_at_once(tmp_path):
     rng = np.random.default_rng(5)
-    inputs = [n for n in NAMES if n not in ("fitted",)][:12]
+    inputs = [n for n in NAMES if n not in ("fitted value",)][:12]
     n = 60
     X = rng.uniform(0, 10, (2 * n, len(inputs)))
     df = pd.DataFrame(X, columns=inputs)
     df["site"] = np.repeat(["a", "b"], n)
-    df["fitted"] = X @ np.arange(1.0, len(inputs) + 1) + rng.normal(0, 1, 2 * n)     # the response
-    res = sheetfit.fit_frame(df, y="fitted", x=inputs, group="site")
+    df["fitted value"] = X @ np.arange(1.0, len(inputs) + 1) + rng.normal(0, 1, 2 * n)     # the response
+    res = sheetfit.fit_frame(df, y="fitted value", x=inputs, group="site")
     assert (res.groups["status"] == "fitted").all()
     obs = res.observations
-    for name in [*inputs, "fitted"]:
+    for name in [*inputs, "fitted value"]:
         assert np.array_equal(obs[res.observation_header(name)].to_numpy(), df[name].to_numpy())
     path = sheetfit.write_results(res, tmp_path / "results.xlsx")
     wb = openpyxl.load_workbook(path, read_only=True)
     head, rows = sheet_table(wb, "observations")
     assert len(set(head)) == len(head)
-    assert np.allclose(column(head, rows, "fitted (input)"), df["fitted"], rtol=1e-15, atol=0)
+    assert np.allclose(column(head, rows, "fitted value (input)"), df["fitted value"], rtol=1e-15, atol=0)
     wb.close()
     assert read_store(path).sources == tuple(inputs)
     check_predictions(path, res, df)
@@ -177,13 +180,13 @@ def test_the_cli_on_a_workbook_whose_headers_are_ours(tmp_path, cli):
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.title = "Data"
-    ws.append(["status", "term", "leverage", "fitted"])
+    ws.append(["status", "input", "leverage", "fitted value"])
     for g in ("open", "closed"):
         for _ in range(ROWS):
             x = float(rng.uniform(0, 10))
             ws.append([g, "t1", x, 4 + 1.5 * x + float(rng.normal())])
     wb.save(book)
-    done = cli("fit", book, "--sheet", "Data", "--group", "status", "--group", "term", "--y", "fitted",
+    done = cli("fit", book, "--sheet", "Data", "--group", "status", "--group", "input", "--y", "fitted value",
                "--x", "leverage")
     assert done.returncode == 0, done.stderr
     out = tmp_path / "ours-fit.xlsx"
@@ -192,16 +195,16 @@ def test_the_cli_on_a_workbook_whose_headers_are_ours(tmp_path, cli):
     assert column(head, rows, "status (input)") == ["open", "closed"]
     assert column(head, rows, "status") == ["fitted", "fitted"]
     head, rows = sheet_table(res, "coefficients")
-    assert column(head, rows, "term (input)") == ["t1"] * 4
-    assert column(head, rows, "term") == ["(intercept)", "leverage"] * 2
+    assert column(head, rows, "input (input)") == ["t1"] * 4
+    assert column(head, rows, "input") == ["constant", "leverage"] * 2
     head, rows = sheet_table(res, "observations")
-    assert math.isclose(column(head, rows, "fitted (input)")[0], ws.cell(row=2, column=4).value, rel_tol=1e-15)
-    assert all(math.isfinite(v) for v in column(head, rows, "fitted"))
+    assert math.isclose(column(head, rows, "fitted value (input)")[0], ws.cell(row=2, column=4).value, rel_tol=1e-15)
+    assert all(math.isfinite(v) for v in column(head, rows, "fitted value"))
     assert math.isclose(column(head, rows, "leverage (input)")[0], ws.cell(row=2, column=3).value, rel_tol=1e-15)
     res.close()
     new = tmp_path / "new.xlsx"
     nb = openpyxl.Workbook()
-    nb.active.append(["status", "term", "leverage"])
+    nb.active.append(["status", "input", "leverage"])
     nb.active.append(["open", "t1", 5.0])
     nb.active.append(["closed", "t1", 2.5])
     nb.save(new)
@@ -209,5 +212,5 @@ def test_the_cli_on_a_workbook_whose_headers_are_ours(tmp_path, cli):
     assert done.returncode == 0, done.stderr
     pred = openpyxl.load_workbook(tmp_path / "new-predicted.xlsx", read_only=True)
     head, rows = sheet_table(pred, "predictions")
-    assert all(isinstance(v, float) and math.isfinite(v) for v in column(head, rows, "predicted"))
+    assert all(isinstance(v, float) and math.isfinite(v) for v in column(head, rows, "predicted value"))
     pred.close()

@@ -127,7 +127,7 @@ def test_every_text_cell_fits_and_cuts_show(tmp_path):
     assert len(set(s.lower() for s in store.labels)) == len(store) == 4
     new = pd.DataFrame({"site": [a, "short"], "x": [5.0, 5.0]})
     got = sheetfit.predict(path, new)
-    assert np.isfinite(got["predicted"].to_numpy(dtype=float)).all()
+    assert np.isfinite(got["predicted value"].to_numpy(dtype=float)).all()
 
 
 def test_cut_text_counts_utf16_units_and_shows_the_cut():

@@ -20,6 +20,8 @@ import pandas as pd
 from ..job import check_setting
 from ..model.engine import design_row
 from ..read.cells import cell_number, label
+from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, EXTRAPOLATION, MEAN_STD_ERROR, NEW_ROW_HIGH,
+    NEW_ROW_LOW, PREDICTED, PREDICTION_REASON, shown_names)
 from ..results.store import (
     RESULT_COLUMNS,
     ModelStore,
@@ -40,7 +42,8 @@ def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: p
     `level` (default: the fit's confidence level) and a t quantile with the group's residual degrees
     of freedom. Rows that cannot be predicted (unknown group, missing or non-numeric input, log/sqrt
     of a bad value, an input so large that a term or the prediction is not a finite number) keep
-    empty results and a reason. Columns: the group keys and inputs given, then RESULT_COLUMNS.
+    empty results and a reason. Columns: the group keys and inputs given, then RESULT_COLUMNS; a
+    given column named like one of ours is shown as `NAME (input)` (see results.headers).
     """
     store = at_level(_store(results_or_path), level)
     if not isinstance(new_rows, pd.DataFrame):
@@ -50,6 +53,7 @@ def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: p
            if c in given}
     out = predict_cells(store, raw, len(new_rows))
     front = pd.DataFrame({c: new_rows.iloc[:, given.index(c)].to_numpy() for c in raw}, index=new_rows.index)
+    front.columns = shown_names(list(raw), out.columns)
     out.index = new_rows.index
     return pd.concat([front, out], axis=1)
 
@@ -88,8 +92,8 @@ def predict_cells(store: ModelStore, raw: dict[str, list], n_rows: int) -> pd.Da
     extrap = np.full(n_rows, "", dtype=object)
     for r in np.flatnonzero(ok):
         extrap[r] = _extrapolation(store, gidx[r], X[r])
-    out["extrapolation"] = extrap
-    out["reason"] = ["; ".join(r) for r in reasons]
+    out[EXTRAPOLATION] = extrap
+    out[PREDICTION_REASON] = ["; ".join(r) for r in reasons]
     return out
 
 
@@ -163,9 +167,9 @@ def _intervals(store: ModelStore, gidx: np.ndarray, X: np.ndarray, rows: np.ndar
         se = np.sqrt(np.maximum(s2 * quad, 0.0))
         se_obs = np.sqrt(np.maximum(s2 * (1.0 + quad), 0.0))
         t_q = stats.t.ppf(0.5 + store.level / 2.0, store.df[g])
-        found = {"predicted": pred, "std error of mean": se,
-                 "mean CI low": pred - t_q * se, "mean CI high": pred + t_q * se,
-                 "prediction low": pred - t_q * se_obs, "prediction high": pred + t_q * se_obs}
+        found = {PREDICTED: pred, MEAN_STD_ERROR: se,
+                 AVERAGE_LOW: pred - t_q * se, AVERAGE_HIGH: pred + t_q * se,
+                 NEW_ROW_LOW: pred - t_q * se_obs, NEW_ROW_HIGH: pred + t_q * se_obs}
     too_large = _not_finite(store, D, np.column_stack(list(found.values())), rows)
     keep = np.array([r not in too_large for r in rows], dtype=bool)
     for name, values in found.items():

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import NoUsableDataError
+from ..results.headers import PREDICTED, PREDICTION_REASON
 
 
 @dataclass(frozen=True)
@@ -37,12 +38,12 @@ class PredictionSummary:
 
 def count_predicted(preds: pd.DataFrame) -> int:
     """Rows with a predicted value."""
-    return int(preds["predicted"].notna().sum())
+    return int(preds[PREDICTED].notna().sum())
 
 
 def nothing_predicted(preds: pd.DataFrame, source_rows: np.ndarray, where: str) -> NoUsableDataError:
     """The error when no row has a prediction: how many rows, and the first row's reason."""
-    reasons = preds["reason"].tolist()
+    reasons = preds[PREDICTION_REASON].tolist()
     first = next((i for i, r in enumerate(reasons) if r), 0)
     why = reasons[first] if reasons else "no rows"
     return NoUsableDataError(f"none of the {len(preds)} new rows in {where} can be predicted; row "

@@ -43,10 +43,10 @@ def core_sheets() -> list[SheetBuilder]:
 
 
 def _extra_sheets() -> list[SheetBuilder]:
-    """Add-on sheets written after the core ones (explorer, predict…), in this order."""
+    """Add-on sheets written after the core ones (explorer, live prediction…), in this order."""
     from .explorer import explorer_sheet
-    from .whatif import whatif_sheet
-    return [explorer_sheet, whatif_sheet]
+    from .live_prediction import live_prediction_sheet
+    return [explorer_sheet, live_prediction_sheet]
 
 
 def write_results(results: "FitResults", path: Path | None = None, overwrite: bool = False, *,

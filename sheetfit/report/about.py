@@ -6,15 +6,18 @@ import datetime as _dt
 import math
 from typing import Any
 
-from ..results.headers import cell_text
+from ..results.headers import (COEFFICIENT, COEFFICIENT_COUNT, FITTED, INTERVAL_HIGH, INTERVAL_LOW, ROWS_USED,
+    cell_text)
+from ..terms import INTERCEPT
 from .book import WriteContext
 from .styles import CHART_LEGEND, HIGHLIGHTS
 
 VALUE_WIDTH = 110   # characters
 
 DEFINITIONS: tuple[tuple[str, str], ...] = (
-    ("p", "number of estimated coefficients (the intercept counts when fitted)"),
-    ("n", "observations used in the group's fit"),
+    ("p", f"{COEFFICIENT_COUNT}: estimated coefficients (the {INTERCEPT} counts when fitted)"),
+    ("n", f"{ROWS_USED}: observations used in the group's fit"),
+    (INTERCEPT, "the intercept: the fitted value when every input term is 0"),
     ("RSS", "residual sum of squares: Σ residual²"),
     ("RMSE", "√(RSS / n)"),
     ("residual std error", "√(RSS / (n − p))"),
@@ -25,8 +28,10 @@ DEFINITIONS: tuple[tuple[str, str], ...] = (
           "distribution"),
     ("AIC", "−2 log L + 2p, with the Gaussian log-likelihood log L = −n/2 · (ln(2π · RSS/n) + 1)"),
     ("BIC", "−2 log L + p · ln n"),
-    ("t", "estimate / std error; p-value two-sided from the t distribution with n − p degrees of freedom"),
-    ("CI low, CI high", "estimate ∓ t quantile · std error at the chosen confidence level"),
+    ("t", f"{COEFFICIENT} / std error; p-value two-sided from the t distribution with n − p degrees of freedom"),
+    (f"{INTERVAL_LOW}, {INTERVAL_HIGH}", f"{COEFFICIENT} ∓ t quantile · std error: the confidence interval of "
+                                         "the coefficient at the chosen confidence level (setting level)"),
+    (FITTED, "Σ coefficient × term value at the row's inputs"),
     ("leverage", "diagonal of the hat matrix X(X'X)⁻¹X'"),
     ("studentized residual", "residual divided by its standard error with the row left out (externally "
                              "studentized)"),

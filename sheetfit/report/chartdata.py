@@ -13,7 +13,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..results.headers import cell_text
+from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, COEFFICIENT, FITTED, FLAGS, INPUT, R2, REASONS,
+    RESIDUAL, ROW_FLAGS, ROWS_USED, STATUS, USED, YES, cell_text)
 from ..results.store import group_label
 from ..results.types import FitResults
 from ..terms import INTERCEPT, source_columns
@@ -21,8 +22,8 @@ from . import fastrows
 
 MAX_POINTS = 5_000      # points per group plotted; beyond that, flagged rows plus an even sample
 
-BLOCK_HEADERS = ("group", "x", "y", "fitted", "residual", "grid x", "grid fitted", "mean CI low",
-                 "mean CI high", "normal quantile", "standardized residual", "y = x (fit)",
+BLOCK_HEADERS = ("group", "x", "y", FITTED, RESIDUAL, "grid x", "grid fitted value", AVERAGE_LOW,
+                 AVERAGE_HIGH, "normal quantile", "standardized residual", "y = x (fit)",
                  "zero line x", "zero line y", "y = x (quantiles)")
 (C_GROUP, C_X, C_Y, C_FIT, C_RES, C_GX, C_GF, C_LO, C_HI, C_Q, C_SR, C_REF_FIT, C_ZX, C_ZY,
  C_REF_Q) = range(len(BLOCK_HEADERS))
@@ -100,13 +101,13 @@ def fmt_number(v: float) -> str:
     return text.replace("-", "−")
 
 
-def equation(y: str, terms: list[tuple[str, float]]) -> str:
-    """'y = 3.2 + 0.41·x' from (term, estimate) pairs; the intercept has the term '(intercept)'."""
+def equation(y: str, terms: list[tuple[str, float]], constant: str | None = INTERCEPT) -> str:
+    """'y = 3.2 + 0.41·x' from (term label, coefficient) pairs; the intercept's label is `constant`."""
     parts: list[str] = []
     for term, est in terms:
         if not math.isfinite(est):
             continue
-        body = fmt_number(abs(est)) if term == INTERCEPT else f"{fmt_number(abs(est))}·{term}"
+        body = fmt_number(abs(est)) if term == constant else f"{fmt_number(abs(est))}·{term}"
         if not parts:
             parts.append(("−" if est < 0 else "") + body)
         else:
@@ -118,9 +119,9 @@ def plan_charts(res: FitResults) -> ChartPlan:
     """Choose the charted groups (flagged first, capped) and gather their chart data."""
     k = len(res.group_columns)
     g = res.groups
-    fitted_mask = g["status"].astype(str).eq("fitted").to_numpy() if "status" in g.columns else np.ones(len(g), bool)
-    flags = pd.to_numeric(g.get("flags", pd.Series(0, index=g.index)), errors="coerce").fillna(0).to_numpy()
-    r2_all = pd.to_numeric(g.get("R²", pd.Series(np.nan, index=g.index)), errors="coerce").to_numpy()
+    fitted_mask = g[STATUS].astype(str).eq("fitted").to_numpy() if STATUS in g.columns else np.ones(len(g), bool)
+    flags = pd.to_numeric(g.get(FLAGS, pd.Series(0, index=g.index)), errors="coerce").fillna(0).to_numpy()
+    r2_all = pd.to_numeric(g.get(R2, pd.Series(np.nan, index=g.index)), errors="coerce").to_numpy()
     key_rows = list(zip(*(g.iloc[:, j].tolist() for j in range(k)))) if k else [()] * len(g)
     fitted = [i for i in range(len(g)) if fitted_mask[i]]
 
@@ -134,21 +135,22 @@ def plan_charts(res: FitResults) -> ChartPlan:
     srcs = source_columns(res.terms)
     one_source = len(srcs) == 1
     plan.x_name = srcs[0] if one_source else ""
+    constant = res.term_labels[0] if res.job.intercept else None
     obs, cur, qq, coef = res.observations, res.curves, res.quantiles, res.coefficients
     obs_at, cur_at, qq_at, coef_at = _indices(obs, k), _indices(cur, k), _indices(qq, k), _indices(coef, k)
     y_col = res.observation_header(res.y)
     x_col = res.observation_header(plan.x_name) if one_source else ""
-    used_all = obs["used"].astype(str).eq("yes").to_numpy() if "used" in obs.columns else np.ones(len(obs), bool)
-    flagged_rows = (obs["row flags"].fillna("").astype(str).str.len().gt(0).to_numpy()
-                    if "row flags" in obs.columns else np.zeros(len(obs), bool))
-    reasons = g["reasons"].fillna("").astype(str).tolist() if "reasons" in g.columns else [""] * len(g)
-    ns = pd.to_numeric(g.get("n", pd.Series(0, index=g.index)), errors="coerce").fillna(0).astype(int).tolist()
+    used_all = obs[USED].astype(str).eq(YES).to_numpy() if USED in obs.columns else np.ones(len(obs), bool)
+    flagged_rows = (obs[ROW_FLAGS].fillna("").astype(str).str.len().gt(0).to_numpy()
+                    if ROW_FLAGS in obs.columns else np.zeros(len(obs), bool))
+    reasons = g[REASONS].fillna("").astype(str).tolist() if REASONS in g.columns else [""] * len(g)
+    ns = pd.to_numeric(g.get(ROWS_USED, pd.Series(0, index=g.index)), errors="coerce").fillna(0).astype(int).tolist()
 
     for i in chosen:
         key = key_rows[i]
         rows = obs_at.get(key, np.empty(0, dtype=np.intp))
         rows = rows[used_all[rows]] if len(rows) else rows
-        fit = _floats(obs, "fitted", rows)
+        fit = _floats(obs, FITTED, rows)
         rows = rows[np.isfinite(fit)]
         sampled_from = 0
         if len(rows) > MAX_POINTS:
@@ -159,22 +161,22 @@ def plan_charts(res: FitResults) -> ChartPlan:
             if room and len(rest):
                 keep[rest[np.linspace(0, len(rest) - 1, min(room, len(rest))).astype(int)]] = True
             rows = rows[keep]
-        y, fit, res_ = _floats(obs, y_col, rows), _floats(obs, "fitted", rows), _floats(obs, "residual", rows)
+        y, fit, res_ = _floats(obs, y_col, rows), _floats(obs, FITTED, rows), _floats(obs, RESIDUAL, rows)
         crow = cur_at.get(key, np.empty(0, dtype=np.intp))
         one_input = one_source and len(crow) > 0
         qrow = qq_at.get(key, np.empty(0, dtype=np.intp))
         qv, sr = _floats(qq, "normal quantile", qrow), _floats(qq, "standardized residual", qrow)
         krow = coef_at.get(key, np.empty(0, dtype=np.intp))
-        eq_terms = list(zip(coef["term"].astype(str).to_numpy()[krow].tolist(), _floats(coef, "estimate", krow)))
+        eq_terms = list(zip(coef[INPUT].astype(str).to_numpy()[krow].tolist(), _floats(coef, COEFFICIENT, krow)))
 
         b = GroupBlock(label=group_label(key), flagged=bool(flags[i] > 0), reasons=reasons[i],
-                       r2=float(r2_all[i]), n=ns[i], equation=equation(res.y, eq_terms), one_input=one_input, x_name=plan.x_name,
+                       r2=float(r2_all[i]), n=ns[i], equation=equation(res.y, eq_terms, constant), one_input=one_input, x_name=plan.x_name,
                        n_points=len(rows), n_grid=len(crow), n_quantiles=len(qrow), sampled_from=sampled_from)
         c = b.cols
         c[C_X] = _cells(_floats(obs, x_col, rows)) if one_input else []
         c[C_Y], c[C_FIT], c[C_RES] = _cells(y), _cells(fit), _cells(res_)
         if one_input:
-            for col, name in ((C_GX, "x"), (C_GF, "fitted"), (C_LO, "mean CI low"), (C_HI, "mean CI high")):
+            for col, name in ((C_GX, "x"), (C_GF, FITTED), (C_LO, AVERAGE_LOW), (C_HI, AVERAGE_HIGH)):
                 c[col] = _cells(_floats(cur, name, crow))
         c[C_Q], c[C_SR] = _cells(qv), _cells(sr)
         c[C_REF_FIT] = _span(np.concatenate([y, fit]))

@@ -82,7 +82,7 @@ def _charts_header(ctx: WriteContext, ws: Any, plan: ChartPlan, cap: int) -> Non
     fit = ("the fit (points, fitted line, dashed 95% band of the mean)" if plan.blocks and plan.blocks[0].one_input
            else "actual against fitted (grey line: y = x)")
     ws.write_string(1, 0, f"Each row: {fit}, residuals against fitted values, normal quantile plot. "
-                          "Amber name = flagged group; not-fitted groups have no charts.", st.note)
+                          "Teal name = flagged group; not-fitted groups have no charts.", st.note)
 
 
 def _rng(sheet: str, first: int, count: int, col: int) -> list:
@@ -151,7 +151,7 @@ def _fit_chart(ctx: WriteContext, data: str, b: GroupBlock) -> Any:
         return chart
     r2 = f", R² = {b.r2:.3f}" if math.isfinite(b.r2) else ""
     both = nice_bounds(c[C_Y] + c[C_FIT])
-    chart = _new_chart(ctx, f"actual against fitted{r2}", "fitted", res.y, both, both)
+    chart = _new_chart(ctx, f"actual against fitted{r2}", "fitted value", res.y, both, both)
     return _points_and_reference(chart, data, b, ("observations", b.n_points, C_FIT, C_Y),
                                  ("y = x", C_REF_FIT, C_REF_FIT))
 
@@ -172,7 +172,7 @@ def _points_and_reference(chart: Any, data: str, b: GroupBlock, points: tuple[st
 def _residual_chart(ctx: WriteContext, data: str, b: GroupBlock) -> Any:
     c = b.cols
     res_vals = c[C_RES] + [0.0]
-    chart = _new_chart(ctx, "residuals against fitted", "fitted", "residual",
+    chart = _new_chart(ctx, "residuals against fitted", "fitted value", "residual",
                        nice_bounds(c[C_FIT]), nice_bounds(res_vals, symmetric=True))
     return _points_and_reference(chart, data, b, ("residuals", b.n_points, C_FIT, C_RES), ("zero", C_ZX, C_ZY))
 
@@ -194,8 +194,8 @@ def _overview(ctx: WriteContext, ws: Any, data: str, plan: ChartPlan) -> None:
     flagged = sum(1 for _, _, f in plan.overview if f)
     ws.set_landscape()
     ws.fit_to_pages(1, 0)
-    ws.write_string(0, 0, f"R² of every fitted group ({n:,}), lowest first; amber = flagged "
-                          f"({flagged:,}), pale steel = no flags", st.title)
+    ws.write_string(0, 0, f"R² of every fitted group ({n:,}), lowest first; deep teal = flagged "
+                          f"({flagged:,}), warm grey = no flags", st.title)
     s0 = plan.overview_start
     r2s = [r for _, r, _ in plan.overview]
     low = min(0.0, min(r2s))

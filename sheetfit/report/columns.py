@@ -11,16 +11,18 @@ import math
 import numpy as np
 import pandas as pd
 
-from ..results.headers import CELL_LIMIT, cell_text
+from ..results.headers import (ADJUSTED_R2, CELL_LIMIT, CONDITION_NUMBER, COEFFICIENT_COUNT, CV_RMSE, FLAGS,
+    HIGH_LEVERAGE_ROWS, INFLUENTIAL_ROWS, LEVERAGE, OUTLYING_ROWS, R2, ROWS_NOT_USED, ROWS_USED, STUDENTIZED,
+    cell_text)
 
 MAX_TEXT = CELL_LIMIT  # UTF-16 units a cell's text can hold; longer text is cut, ending in …
 
-COUNT_COLUMNS = {"flags", "n", "rows dropped", "parameters", "source row", "HAC lag",
-                 "high-leverage rows", "outlying rows", "influential rows", "rows read", "rows used"}
+COUNT_COLUMNS = {FLAGS, ROWS_USED, ROWS_NOT_USED, COEFFICIENT_COUNT, "source row", "HAC lag",
+                 HIGH_LEVERAGE_ROWS, OUTLYING_ROWS, INFLUENTIAL_ROWS, "rows read"}
 FIXED_FORMATS = {
-    "R²": "0.0000", "adjusted R²": "0.0000", "leverage": "0.0000", "CV(RMSE) %": "0.00",
-    "studentized residual": "0.000", "standardized residual": "0.000", "normal quantile": "0.000",
-    "VIF": "0.00", "condition number": "0.0",
+    R2: "0.0000", ADJUSTED_R2: "0.0000", LEVERAGE: "0.0000", CV_RMSE: "0.00",
+    STUDENTIZED: "0.000", "standardized residual": "0.000", "normal quantile": "0.000",
+    "VIF": "0.00", CONDITION_NUMBER: "0.0",
 }
 P_VALUE_FORMAT = "[<0.0001]0.00E+00;0.0000"   # small p-values in powers of ten, the rest as 0.0123
 SCIENTIFIC = "0.000E+00"

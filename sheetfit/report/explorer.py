@@ -15,7 +15,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..results.headers import cell_text, shown_names
+from ..results.headers import (ADJUSTED_R2, COEFFICIENT, CV_RMSE, F_P_VALUE, FITTED, FLAGS, INPUT,
+    INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, R2, REASONS, RESIDUAL, RESIDUAL_STD_ERROR, RMSE, ROWS_USED, STATUS,
+    STD_ERROR, USED, YES, cell_text, shown_names)
 from ..results.store import group_codes, unique_labels
 from ..terms import source_columns
 from . import fastrows
@@ -27,8 +29,9 @@ from .formulas import Cells, area, lookup, ref
 MAX_BLOCK = 500             # rows the block shows; larger groups show an even sample of this many
 MAX_ROWS = 100_000          # rows on the data sheet at most: with many groups, fewer rows per group…
 MIN_PER_GROUP = 20          # …but not fewer than this; groups beyond the total are left out
-METRICS = ("n", "R²", "adjusted R²", "residual std error", "RMSE", "CV(RMSE) %", "F p-value", "flags", "reasons")
-COEF = ("estimate", "std error", "p-value", "CI low", "CI high")
+METRICS = (R2, ADJUSTED_R2, F_P_VALUE, RESIDUAL_STD_ERROR, RMSE, CV_RMSE, ROWS_USED, FLAGS, REASONS)
+COEF = (COEFFICIENT, INTERVAL_LOW, INTERVAL_HIGH, STD_ERROR, P_VALUE)
+LOWEST, HIGHEST = f"lowest {FITTED}", f"highest {FITTED}"
 CHART_W, CHART_H = 440, 300
 TOP = 9                     # first metric row (0-based)
 
@@ -60,17 +63,17 @@ def plan_explorer(res: Any) -> Explorer:
     """Every fitted group's used rows, sorted by group, first input and source row, with an index."""
     k = len(res.group_columns)
     g = res.groups
-    fitted = (g[g["status"].astype(str).eq("fitted")] if "status" in g.columns else g).reset_index(drop=True)
+    fitted = (g[g[STATUS].astype(str).eq("fitted")] if STATUS in g.columns else g).reset_index(drop=True)
     G = len(fitted)
     sources = list(source_columns(res.terms))
     user = [*sources, res.y]
-    headers = dict(zip(user, shown_names(user, ("group", "source row", "fitted", "residual"))))
-    cols = ["source row", *(headers[c] for c in user), "fitted", "residual"]
-    where = {"source row": "source row", "fitted": "fitted", "residual": "residual",
+    headers = dict(zip(user, shown_names(user, ("group", "source row", FITTED, RESIDUAL))))
+    cols = ["source row", *(headers[c] for c in user), FITTED, RESIDUAL]
+    where = {"source row": "source row", FITTED: FITTED, RESIDUAL: RESIDUAL,
              **{headers[c]: res.observation_header(c) for c in user}}      # column of `rows` → of observations
     obs = res.observations
-    used = obs["used"].astype(str).eq("yes") if "used" in obs.columns else pd.Series(True, index=obs.index)
-    fit = pd.to_numeric(obs.get("fitted", pd.Series(np.nan, index=obs.index)), errors="coerce")
+    used = obs[USED].astype(str).eq(YES) if USED in obs.columns else pd.Series(True, index=obs.index)
+    fit = pd.to_numeric(obs.get(FITTED, pd.Series(np.nan, index=obs.index)), errors="coerce")
     obs = obs.loc[used & fit.notna()]
     code = group_codes(obs, fitted, k)
     obs, code = obs[code >= 0], code[code >= 0]
@@ -100,17 +103,17 @@ def plan_explorer(res: Any) -> Explorer:
                         "rows": n_shown})
     for mtr in METRICS:
         idx[mtr] = fitted[mtr].to_numpy()[gi] if mtr in fitted.columns else np.nan
-    fv = table["fitted"].to_numpy()
+    fv = table[FITTED].to_numpy()
     at = np.concatenate(([0], np.cumsum(n_shown)[:-1])).astype(np.intp)
-    idx["lowest fitted"] = np.minimum.reduceat(fv, at) if len(fv) else np.empty(0)
-    idx["highest fitted"] = np.maximum.reduceat(fv, at) if len(fv) else np.empty(0)
+    idx[LOWEST] = np.minimum.reduceat(fv, at) if len(fv) else np.empty(0)
+    idx[HIGHEST] = np.maximum.reduceat(fv, at) if len(fv) else np.empty(0)
     terms = list(res.term_labels)
     coef = res.coefficients
     c_code = np.full(G, -1, dtype=np.int64)
     c_code[gi] = np.arange(len(gi))
     cc = group_codes(coef, fitted, k) if len(coef) else np.empty(0, dtype=np.int64)
     rows_of = np.where(cc >= 0, c_code[np.maximum(cc, 0)], -1)
-    term_at = pd.Index(terms).get_indexer(coef["term"].astype(str)) if len(coef) else np.empty(0, dtype=np.int64)
+    term_at = pd.Index(terms).get_indexer(coef[INPUT].astype(str)) if len(coef) else np.empty(0, dtype=np.int64)
     ok = (rows_of >= 0) & (term_at >= 0)
     for t_i, t in enumerate(terms):
         for c in COEF:
@@ -125,11 +128,11 @@ def plan_explorer(res: Any) -> Explorer:
     for c in cols[1:]:
         ex.formats[c] = number_format(c, table[c].to_numpy(np.float64))
     for mtr in METRICS:
-        if mtr != "reasons" and mtr in fitted.columns:
+        if mtr != REASONS and mtr in fitted.columns:
             ex.figure_formats[mtr] = number_format(mtr, pd.to_numeric(idx[mtr], errors="coerce").to_numpy(np.float64))
     for c in COEF:
         vals = pd.to_numeric(coef[c], errors="coerce").to_numpy(np.float64) if c in coef.columns else np.empty(0)
-        fmt = P_VALUE_FORMAT if c == "p-value" else number_format(c, vals)
+        fmt = P_VALUE_FORMAT if c == P_VALUE else number_format(c, vals)
         ex.figure_formats[c] = SCIENTIFIC if fmt == "General" else fmt     # General overflows narrow cells
     return ex
 
@@ -179,7 +182,7 @@ def fill_data(ws: Any, ex: Explorer, st: Any, bulk: Any = None) -> None:
 def block_headers(ex: Explorer) -> list[str]:
     """Columns of the explorer block: inputs (the first one is the charts' x), y, fitted, residual, source row
     (headers of `ex.rows`)."""
-    return [*(ex.header(c) for c in ex.sources), ex.header(ex.y), "fitted", "residual", "source row"]
+    return [*(ex.header(c) for c in ex.sources), ex.header(ex.y), FITTED, RESIDUAL, "source row"]
 
 
 def _floor(ex: Explorer) -> dict[str, Any]:
@@ -189,7 +192,7 @@ def _floor(ex: Explorer) -> dict[str, Any]:
     zero, which squashes groups whose values lie far from zero; the lowest value over all
     groups keeps every group's points in view.
     """
-    v = pd.to_numeric(pd.concat([ex.rows[ex.header(ex.y)], ex.rows["fitted"]]), errors="coerce").to_numpy(np.float64)
+    v = pd.to_numeric(pd.concat([ex.rows[ex.header(ex.y)], ex.rows[FITTED]]), errors="coerce").to_numpy(np.float64)
     v = v[np.isfinite(v)]
     if not v.size or v.min() <= 0:
         return {}
@@ -222,7 +225,7 @@ def explorer_sheet(ctx: WriteContext, group: str | None = None, cache: bool = Tr
     spots = _layout(ctx, cells, ex, data, g)
     block_top = spots.block_top
     for c, h in enumerate(block_headers(ex)):
-        coef = (["term", *COEF][c] if c <= len(COEF) else "")
+        coef = ([INPUT, *COEF][c] if c <= len(COEF) else "")
         ws.set_column(c, c, 30 if c == 0 else min(max(15, len(h) + 3, len(coef) + 3), 32))
     ws.hide_gridlines(2)
     ws.set_landscape()
@@ -297,10 +300,10 @@ def _choice_cells(cells: Cells, st: Any, ex: Explorer, data: str, g: int, ch: Ch
     cells.text(3, 2, "(list of fitted groups)", st.note)
     cells.text(4, 0, "rows shown", st.group_label)
     cells.formula(4, 1, f"=IF(ISNA({pos}),0,{ch.pick('rows')})", st.number("0"), int(chosen["rows"]))
-    n_all = int(chosen["n"]) if "n" in chosen and pd.notna(chosen["n"]) else int(chosen["rows"])
+    n_all = int(chosen[ROWS_USED]) if ROWS_USED in chosen and pd.notna(chosen[ROWS_USED]) else int(chosen["rows"])
     sample_note = (f"an even sample of the {n_all} rows used" if n_all > int(chosen["rows"]) else "")
     cells.formula(4, 2, f'=IF(ISNA({pos}),"choose a fitted group from the list in cell B4",'
-                        f'IF({ref(None, 4, 1)}<{ch.pick("n")},"an even sample of the "&{ch.pick("n")}&" rows used",""))',
+                        f'IF({ref(None, 4, 1)}<{ch.pick(ROWS_USED)},"an even sample of the "&{ch.pick(ROWS_USED)}&" rows used",""))',
                   st.note, sample_note)
     cells.text(5, 0, "position in the list", st.note)
     cells.formula(5, 1, "=" + lookup(ref(None, 3, 1), area(data, 3, 0, 2 + len(ex.labels), 0)), st.note, g + 1)
@@ -316,17 +319,17 @@ def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, in
     for mtr in [m for m in METRICS if m in ch.columns]:
         v = ch.entry[mtr]
         fmt = st.number(ex.figure_formats[mtr]) if mtr in ex.figure_formats else None
-        cells.text(r, 0, mtr, st.text if mtr == "reasons" else None)
-        text = mtr == "reasons"         # &"" keeps an empty text cell empty instead of showing 0
+        cells.text(r, 0, mtr, st.text if mtr == REASONS else None)
+        text = mtr == REASONS         # &"" keeps an empty text cell empty instead of showing 0
         cells.formula(r, 1, "=" + ch.pick(mtr) + ('&""' if text else ""), st.wrap if text else fmt,
                       "" if pd.isna(v) else (str(v) if text else v))
         if text:
             cells.merge(r, 1, len(COEF), height=48)
         r += 1
     zero = st.number(";;;")
-    for label in ("lowest fitted", "highest fitted"):
-        cells.text(r, 0, f"{label} value")
-        cells.formula(r, 1, "=" + ch.pick(label), st.number(ex.formats.get("fitted", "General")), ch.entry[label])
+    for label in (LOWEST, HIGHEST):
+        cells.text(r, 0, label)
+        cells.formula(r, 1, "=" + ch.pick(label), st.number(ex.formats.get(FITTED, "General")), ch.entry[label])
         cells.number(r, 2, 0.0, zero)       # the residual chart's zero line runs through these cells
         r += 1
     return r, r - 2
@@ -334,7 +337,7 @@ def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, in
 
 def _coefficient_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen, r: int) -> int:
     """The coefficient table with its header at row `r`; returns its last row."""
-    cells.text(r, 0, "term", st.header)
+    cells.text(r, 0, INPUT, st.header)
     for c, name in enumerate(COEF, start=1):
         cells.text(r, c, name, st.header)
     for t in ex.terms:
@@ -399,7 +402,7 @@ def _charts(ctx: WriteContext, ws: Any, ex: Explorer, spots: Spots) -> None:
     z = spots.zero_row
     resid.add_series({**S.line_series("zero", colour=S.REFERENCE, width=1.0),
                       "categories": [sheet, z, 1, z + 1, 1], "values": [sheet, z, 2, z + 1, 2]})
-    resid.set_x_axis(S.axis("fitted"))
+    resid.set_x_axis(S.axis(FITTED))
     resid.set_y_axis(S.axis("residual"))
     resid.set_legend({"none": True})
     top = spots.chart_row

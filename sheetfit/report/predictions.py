@@ -7,27 +7,30 @@ tables do (report.tables).
 
 from __future__ import annotations
 
-import errno
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from ..errors import OutputError
+from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, EXTRAPOLATION, MEAN_STD_ERROR, NEW_ROW_HIGH,
+    NEW_ROW_LOW, PREDICTED, PREDICTION_REASON, cell_text, rename_note, renamed, shown_names)
 from ..results.store import ModelStore
 from . import tables
 from .book import WORKBOOK_OPTIONS
 from .columns import Column
-from .safe import atomic_output
+from .safe import atomic_output, output_error, scratch_folder
+from .styles import HIGHLIGHTS as PALETTE
 from .styles import Styles
 from .tables import Rule, highlight_rows
 
 SHEET = "predictions"
 MAX_DATA_ROWS = tables.MAX_DATA_ROWS            # data rows per sheet (a sheet holds 1,048,576 rows)
 ZIP64_CELLS = 40_000_000                          # beyond this many cells the archive may pass 4 GB
-WIDTHS = {"extrapolation": 50, "reason": 60}      # these columns hold sentences
-HIGHLIGHTS = (Rule("reason", 'LEN({c})>0', "left_out"), Rule("extrapolation", 'LEFT({c},3)="yes"', "check_failed"))
+SOURCE_ROW = "source row"
+WIDTHS = {EXTRAPOLATION: 50, PREDICTION_REASON: 60}      # these columns hold sentences
+HIGHLIGHTS = (Rule(PREDICTION_REASON, 'LEN({c})>0', "left_out"),
+              Rule(EXTRAPOLATION, 'LEFT({c},3)="yes"', "check_failed"))
 
 
 def write_predictions(target: Path, overwrite: bool, store: ModelStore, frame: pd.DataFrame,
@@ -40,36 +43,26 @@ def write_predictions(target: Path, overwrite: bool, store: ModelStore, frame: p
     import xlsxwriter
     from xlsxwriter.exceptions import FileCreateError, FileSizeError
 
-    table = pd.concat([pd.DataFrame({"source row": src_rows}), frame.reset_index(drop=True),
-                       preds.reset_index(drop=True)], axis=1)
+    user = [str(c) for c in frame.columns]
+    shown = shown_names(user, [SOURCE_ROW, *preds.columns])    # a user column never takes one of our names
+    given = frame.reset_index(drop=True).set_axis(shown, axis=1)
+    table = pd.concat([pd.DataFrame({SOURCE_ROW: src_rows}), given, preds.reset_index(drop=True)], axis=1)
+    pairs = renamed(user, shown)
+    about = (*about, *((("renamed columns", rename_note(pairs)),) if pairs else ()))
     try:
-        with atomic_output(target, overwrite) as tmp:
-            wb = xlsxwriter.Workbook(str(tmp), WORKBOOK_OPTIONS)
+        with scratch_folder() as scratch, atomic_output(target, overwrite) as tmp:
+            wb = xlsxwriter.Workbook(str(tmp), {**WORKBOOK_OPTIONS, "tmpdir": str(scratch)})
             if len(table) * max(len(table.columns), 1) > ZIP64_CELLS:
                 wb.use_zip64()
             st = Styles(wb)
             names = _predictions_sheets(wb, st, table)
-            done = int(preds["predicted"].notna().sum())
+            done = int(preds[PREDICTED].notna().sum())
             _about_sheet(wb.add_worksheet("about"), st,
                          [*about, *_about_lines(store, len(table), done), *_split_lines(names)])
             wb.close()
     except (OSError, FileCreateError, FileSizeError) as exc:
         raise output_error(target, exc) from None
     return names
-
-
-def output_error(target: Path, exc: BaseException) -> OutputError:
-    """The one-line error for an OS failure writing `target` (xlsxwriter wraps the OSError it met)."""
-    cause = exc if isinstance(exc, OSError) else next((a for a in exc.args if isinstance(a, OSError)), None)
-    code = getattr(cause, "errno", None)
-    if code == errno.ENAMETOOLONG:
-        return OutputError(f'output "{target}": the name is too long for the file system; choose a shorter '
-                           f'name with --out')
-    if code in (errno.ENOSPC, errno.EDQUOT):
-        return OutputError(f'no space left on the disk while writing "{target}"; free some space or choose '
-                           f'another --out on another disk (nothing was written)')
-    why = getattr(cause, "strerror", None) or " ".join(str(exc).split())[:160]
-    return OutputError(f'could not write "{target}" ({why}); choose another --out')
 
 
 def _predictions_sheets(wb: Any, st: Styles, table: pd.DataFrame) -> list[str]:
@@ -114,15 +107,22 @@ def _about_lines(store: ModelStore, n: int, done: int) -> list[tuple[str, str]]:
     return [("response", store.y), ("terms", ", ".join(store.term_labels)),
             ("confidence level", f"{store.level:g}"),
             ("rows", f"{n}: {done} predicted, {n - done} with a reason instead"),
-            ("predicted", "Σ coefficient × term value at the row's inputs"),
-            ("std error of mean", "√(residual variance × x'(X'X)⁻¹x), x the row's term values"),
-            ("mean CI low, mean CI high", "predicted ∓ t · std error of mean: where the group's mean lies"),
-            ("prediction low, prediction high", "predicted ∓ t · √(residual variance + std error of mean²): "
-             "where one new observation lies"),
+            (PREDICTED, "Σ coefficient × term value at the row's inputs"),
+            (MEAN_STD_ERROR, "√(residual variance × x'(X'X)⁻¹x), x the row's term values"),
+            (f"{AVERAGE_LOW} / high", f"{PREDICTED} ∓ t · {MEAN_STD_ERROR}: where the group's average lies at "
+             "the row's inputs (the confidence interval of the mean)"),
+            (f"{NEW_ROW_LOW} / high", f"{PREDICTED} ∓ t · √(residual variance + {MEAN_STD_ERROR}²): where one "
+             "new row lies (the prediction interval)"),
             ("t", "t quantile at the confidence level with the group's residual degrees of freedom"),
-            ("extrapolation", "yes when an input lies outside the group's observed range: "
+            (EXTRAPOLATION, "yes when an input lies outside the group's observed range: "
              "the model was not fitted there, so trust the numbers less"),
-            ("colours", "amber rows extrapolate; slate rows could not be predicted (see reason)")]
+            ("colours", f"{_colour('check_failed')} rows extrapolate; {_colour('left_out')} rows could not be "
+             f"predicted (see {PREDICTION_REASON})")]
+
+
+def _colour(key: str) -> str:
+    """The legend's name of a highlight colour."""
+    return next(h.colour_name for h in PALETTE if h.key == key)
 
 
 def _about_sheet(ws: Any, st: Styles, lines: list[tuple[str, str]]) -> None:
@@ -131,5 +131,5 @@ def _about_sheet(ws: Any, st: Styles, lines: list[tuple[str, str]]) -> None:
     ws.set_column(1, 1, 100, st.wrap)
     ws.write_row(0, 0, ["item", "value"], st.header)
     for r, (item, text) in enumerate(lines, start=1):
-        ws.write_string(r, 0, item)
-        ws.write_string(r, 1, str(text))
+        ws.write_string(r, 0, cell_text(str(item)))
+        ws.write_string(r, 1, cell_text(str(text)))

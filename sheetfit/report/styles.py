@@ -9,7 +9,9 @@ from dataclasses import dataclass
 from typing import Any
 
 # Cell highlights (conditional formatting): fill, text.
-CHECK_FAILED_FILL, CHECK_FAILED_TEXT = "#F4DCA6", "#5A3E00"      # muted amber
+# pale teal (hue about 185°): far from the green, red and yellow-amber of spreadsheet applications'
+# built-in good / bad / neutral cell styles, and from the slate and violet below
+CHECK_FAILED_FILL, CHECK_FAILED_TEXT = "#CCEBEE", "#0C4A50"      # pale teal
 LEFT_OUT_FILL, LEFT_OUT_TEXT = "#D8DEE6", "#3E4856"              # slate
 UNUSUAL_ROW_FILL, UNUSUAL_ROW_TEXT = "#E5D9F2", "#3F2A5C"        # soft violet
 
@@ -23,8 +25,8 @@ INPUT_FILL, INPUT_RULE = "#FFF6D8", "#B8A66A"   # pale straw: cells that take th
 POINTS = "#2D6A86"          # steel blue: observations
 FITTED = "#A8512A"          # rust: fitted line and its band
 REFERENCE = "#808080"       # grey: zero line, y = x line
-OVERVIEW_OK = "#6E9BB0"     # pale steel: groups without flags
-OVERVIEW_FLAGGED = "#D19A2A"  # deep amber: flagged groups (same meaning as the amber cells)
+OVERVIEW_OK = "#B5ADA0"     # warm grey: groups without flags
+OVERVIEW_FLAGGED = "#1B8A94"  # deep teal: flagged groups (same meaning as the pale teal cells)
 
 FONT = "Calibri"
 CHART_TITLE_SIZE = 10
@@ -43,7 +45,7 @@ class Highlight:
 
 
 HIGHLIGHTS: tuple[Highlight, ...] = (
-    Highlight("check_failed", "muted amber", CHECK_FAILED_FILL, CHECK_FAILED_TEXT,
+    Highlight("check_failed", "pale teal", CHECK_FAILED_FILL, CHECK_FAILED_TEXT,
               "groups: at least one check failed (see reasons); checks: the check failed"),
     Highlight("left_out", "slate", LEFT_OUT_FILL, LEFT_OUT_TEXT,
               "groups: the group could not be fitted; observations: the row was not used (see reason)"),
@@ -55,7 +57,7 @@ CHART_LEGEND: tuple[tuple[str, str], ...] = (
     ("steel-blue points", "observations used in the fit"),
     ("rust line", "fitted values; dashed rust lines: 95% confidence band of the mean"),
     ("grey line", "reference: zero residual, or y = x"),
-    ("overview: amber", "flagged groups; pale steel: groups without flags"),
+    ("overview: deep teal", "flagged groups; warm grey: groups without flags"),
 )
 
 
@@ -93,7 +95,7 @@ class Styles:
                                                       "font_color": CHECK_FAILED_TEXT})}
         self.label_tail = {False: workbook.add_format({"font_color": NOTE_TEXT}),
                            True: workbook.add_format({"font_color": CHECK_FAILED_TEXT})}
-        # Input cells of the explorer and predict sheets; `quiet` hides #N/A in chart-only cells.
+        # Input cells of the explorer and live prediction sheets; `quiet` hides #N/A in chart-only cells.
         shaded = {"bg_color": INPUT_FILL, "border": 1, "border_color": INPUT_RULE, "bold": True}
         self.input = workbook.add_format(shaded)
         self.input_percent = workbook.add_format({**shaded, "num_format": "0.0%"})

@@ -15,7 +15,8 @@ import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
 from ..read.tidy import REASON
-from ..results.headers import CELL_LIMIT, rename_note, renamed
+from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, NO, REASONS, ROW_FLAGS,
+    STATUS, USED, rename_note, renamed)
 from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL
 from ..terms import source_columns
 from . import fastrows
@@ -25,16 +26,15 @@ from .columns import Column
 MAX_DATA_ROWS = 1_048_575      # a sheet holds 1,048,576 rows, one of them the header
 BLOCK_ROWS = 50_000            # rows converted to Python values at a time
 
-GROUPS = ("status", "flags", "reasons", "n", "rows dropped", "parameters", "R²", "adjusted R²",
-          "residual std error", "RMSE", "CV(RMSE) %", "F", "F p-value", "AIC", "BIC")
-COEFFICIENTS = ("term", "estimate", "std error", "t", "p-value", "CI low", "CI high")
+GROUPS = GROUP_HEADERS
+COEFFICIENTS = COEFFICIENT_HEADERS
 COEFFICIENTS_OPTIONAL = ("VIF", "robust std error", "robust p-value", "HAC std error", "HAC p-value",
                          "HAC lag")
 CHECKS = ("check", "statistic", "p-value", "adjusted p-value", "threshold", "verdict", "note")
 OBS_HEAD = OBSERVATION_HEAD
 OBS_TAIL = OBSERVATION_TAIL
 PRINT_FIT_WIDTH = 220          # characters of column width that still print legibly on one page width
-WIDE_TEXT = {"reasons": 60, "note": 60, REASON: 45, "row flags": 30}
+WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30}
 
 
 @dataclass(frozen=True)
@@ -172,8 +172,8 @@ def _note_renamed(ctx: WriteContext, label: str, user: Sequence[str], shown: Seq
 
 def groups_sheet(ctx: WriteContext) -> None:
     _contract_sheet(ctx, "groups", ctx.results.groups, GROUPS, rules=(
-        Rule("status", '{c}="not fitted"', "left_out"),
-        Rule("flags", "{c}>0", "check_failed"),
+        Rule(STATUS, '{c}="not fitted"', "left_out"),
+        Rule(FLAGS, "{c}>0", "check_failed"),
     ))
 
 
@@ -193,10 +193,10 @@ def select_observations(obs: pd.DataFrame, mode: str) -> pd.DataFrame:
         return obs.iloc[0:0]
     if mode == "flagged":
         keep = pd.Series(False, index=obs.index)
-        if "used" in obs.columns:
-            keep |= obs["used"].astype(str).eq("no")
-        if "row flags" in obs.columns:
-            keep |= obs["row flags"].fillna("").astype(str).str.len().gt(0)
+        if USED in obs.columns:
+            keep |= obs[USED].astype(str).eq(NO)
+        if ROW_FLAGS in obs.columns:
+            keep |= obs[ROW_FLAGS].fillna("").astype(str).str.len().gt(0)
         return obs.loc[keep]
     return obs
 
@@ -212,7 +212,7 @@ def observations_sheet(ctx: WriteContext) -> None:
     extra_data = [c for c in obs.columns
                   if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL)]
     order = ordered_columns(obs, keys, [*OBS_HEAD, *data_cols, *extra_data, *OBS_TAIL])
-    rules = (Rule("used", '{c}="no"', "left_out"), Rule("row flags", 'LEN({c})>0', "unusual_row"))
+    rules = (Rule(USED, f'{{c}}="{NO}"', "left_out"), Rule(ROW_FLAGS, 'LEN({c})>0', "unusual_row"))
     total = len(obs)
     if mode == "none":
         ws = ctx.add_sheet("observations")

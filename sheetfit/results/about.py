@@ -15,6 +15,7 @@ from ..job import FitJob
 from ..model.engine import EngineFit
 from ..provenance import __version__, installed_version
 from ..read.tidy import ReadInfo
+from .headers import FLAGS
 
 
 def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit) -> list[tuple[str, Any]]:
@@ -30,7 +31,7 @@ def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit
          if info.date_columns else "(none)"),
         ("groups", len(groups)), ("groups fitted", int(fit.fitted_ok.sum())),
         ("groups not fitted", int((~fit.fitted_ok).sum())),
-        ("groups flagged", int((groups["flags"] > 0).sum())),
+        ("groups flagged", int((groups[FLAGS] > 0).sum())),
         ("response", job.y), ("terms", ", ".join(job.x)),
         ("intercept", "yes" if job.intercept else "no"),
         ("collinearity check", COLLINEARITY_MEASURE), ("Durbin–Watson p-value", DW_METHOD),

@@ -14,6 +14,42 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
 
+# --- our headers, one place for the writer, the readers of results and the tests -------------------
+# `groups`: which checks failed, how good the fit is, how large the error is, sizes, then the rest.
+STATUS, FLAGS, REASONS = "status", "flags", "reasons"
+R2, ADJUSTED_R2, F_STAT, F_P_VALUE = "R²", "adjusted R²", "F", "F p-value"
+RESIDUAL_STD_ERROR, RMSE, CV_RMSE = "residual std error", "RMSE", "CV(RMSE) %"
+ROWS_USED, ROWS_NOT_USED, COEFFICIENT_COUNT = "rows used", "rows not used", "number of coefficients"
+AIC, BIC = "AIC", "BIC"
+HIGH_LEVERAGE_ROWS, OUTLYING_ROWS, INFLUENTIAL_ROWS = "high-leverage rows", "outlying rows", "influential rows"
+CONDITION_NUMBER = "condition number"
+GROUP_HEADERS = (STATUS, FLAGS, REASONS, R2, ADJUSTED_R2, F_STAT, F_P_VALUE, RESIDUAL_STD_ERROR, RMSE, CV_RMSE,
+                 ROWS_USED, ROWS_NOT_USED, COEFFICIENT_COUNT, AIC, BIC)
+GROUP_EXTRA_HEADERS = (HIGH_LEVERAGE_ROWS, OUTLYING_ROWS, INFLUENTIAL_ROWS, CONDITION_NUMBER)
+
+# `coefficients`: the coefficient and its interval first, then how sure we are of it.
+INPUT, COEFFICIENT = "input", "coefficient"
+INTERVAL_LOW, INTERVAL_HIGH = "interval low", "interval high"
+STD_ERROR, T_STAT, P_VALUE = "std error", "t", "p-value"
+COEFFICIENT_HEADERS = (INPUT, COEFFICIENT, INTERVAL_LOW, INTERVAL_HIGH, STD_ERROR, T_STAT, P_VALUE)
+
+# `observations` (after the source and the user's columns): use, then what is unusual, then the fit.
+USED, ROW_FLAGS = "used in fit", "row flags"
+FITTED, RESIDUAL, STUDENTIZED, LEVERAGE, COOKS = ("fitted value", "residual", "studentized residual", "leverage",
+                                                  "Cook's distance")
+YES, NO = "yes", "no"
+
+# predictions (`sheetfit predict`, `sheetfit.predict`, the live prediction sheet) and the chart curves
+PREDICTED = "predicted value"
+MEAN_STD_ERROR = "std error of the fitted mean"
+NEW_ROW_STD_ERROR = "std error for one new row"
+AVERAGE_LOW, AVERAGE_HIGH = "range for the average, low", "range for the average, high"
+NEW_ROW_LOW, NEW_ROW_HIGH = "range for one new row, low", "range for one new row, high"
+EXTRAPOLATION = "extrapolation"
+PREDICTION_REASON = "reason"          # the same word as the reason of an unusable row on `observations`
+PREDICTION_HEADERS = (PREDICTED, MEAN_STD_ERROR, AVERAGE_LOW, AVERAGE_HIGH, NEW_ROW_LOW, NEW_ROW_HIGH,
+                      EXTRAPOLATION, PREDICTION_REASON)
+
 INPUT_MARK = "input"
 CELL_LIMIT = 32_767        # UTF-16 units a spreadsheet cell holds
 CUT_MARK = "…"

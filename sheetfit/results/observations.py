@@ -9,12 +9,11 @@ import pandas as pd
 
 from ..model.engine import EngineFit
 from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations
-from .headers import shown_names
+from .headers import COOKS, FITTED, LEVERAGE, NO, RESIDUAL, ROW_FLAGS, STUDENTIZED, USED, YES, shown_names
 
 # our columns on `observations`, around the user's group keys (first) and number columns (after the source)
 OBSERVATION_HEAD = (SOURCE_SHEET, SOURCE_ROW)
-OBSERVATION_TAIL = ("used", REASON, "fitted", "residual", "studentized residual", "leverage", "Cook's distance",
-                    "row flags")
+OBSERVATION_TAIL = (USED, REASON, ROW_FLAGS, FITTED, RESIDUAL, STUDENTIZED, LEVERAGE, COOKS)
 
 
 def observation_headers(user: Sequence[str]) -> list[str]:
@@ -50,12 +49,12 @@ def observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, c
     out = data[keys + [SOURCE_SHEET, SOURCE_ROW] + value_cols].copy()
     shown = observation_headers(keys + value_cols)       # the user's columns never take our names
     out.columns = shown[:len(keys)] + [SOURCE_SHEET, SOURCE_ROW] + shown[len(keys):]
-    out["used"] = np.array(["no", "yes"], dtype=object)[used.astype(np.intp)]   # object: 6× faster into pandas
+    out[USED] = np.array([NO, YES], dtype=object)[used.astype(np.intp)]   # object: 6× faster into pandas
     out[REASON] = why
-    out["fitted"] = fitted
-    out["residual"] = resid
-    out["studentized residual"] = stud
-    out["leverage"] = lev
-    out["Cook's distance"] = cooks
-    out["row flags"] = row_flags
+    out[ROW_FLAGS] = row_flags
+    out[FITTED] = fitted
+    out[RESIDUAL] = resid
+    out[STUDENTIZED] = stud
+    out[LEVERAGE] = lev
+    out[COOKS] = cooks
     return out

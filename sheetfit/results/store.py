@@ -1,4 +1,4 @@
-"""The stored models of a results workbook: what `sheetfit predict` and the what-if sheet need.
+"""The stored models of a results workbook: what `sheetfit predict` and the live prediction sheet need.
 
 A results workbook carries every fitted model on its `model store` sheet (terms, coefficients,
 (X'X)⁻¹, residual variance and degrees of freedom, observed input ranges), so predictions need
@@ -19,8 +19,9 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ResultsWorkbookError
-from ..terms import INTERCEPT, Term, coefficient_labels, source_columns
-from .headers import CELL_LIMIT, cell_text, shown_names
+from ..terms import Term, coefficient_labels, source_columns
+from .headers import (CELL_LIMIT, COEFFICIENT, COEFFICIENT_COUNT, INPUT, PREDICTION_HEADERS,
+    RESIDUAL_STD_ERROR, ROWS_USED, STATUS, cell_text, shown_names)
 from .store_layout import (
     GROUP_HEADER,
     SETTING_HEADER,
@@ -35,9 +36,10 @@ from .store_layout import (
 if TYPE_CHECKING:
     from .types import FitResults
 
-RESULT_COLUMNS = ("predicted", "std error of mean", "mean CI low", "mean CI high", "prediction low",
-                  "prediction high", "extrapolation", "reason")
+RESULT_COLUMNS = PREDICTION_HEADERS
 MAX_UNPACKED = 2 * 1024**3
+# the store sheet's numbers of each group, before its coefficients
+STORE_NUMBERS = (ROWS_USED, "residual degrees of freedom", "residual variance")
 
 
 @dataclass(frozen=True)
@@ -135,9 +137,9 @@ def store_from_results(results: "FitResults") -> ModelStore:
     sources = pd.Index(source_columns(results.terms))
     p, m = len(labels), len(sources)
     g = results.groups
-    fitted = (g[g["status"].astype(str).eq("fitted")] if "status" in g.columns else g).reset_index(drop=True)
+    fitted = (g[g[STATUS].astype(str).eq("fitted")] if STATUS in g.columns else g).reset_index(drop=True)
     G = len(fitted)
-    beta = _spread(results.coefficients, k, fitted, {"term": labels}, "estimate", (G, p))
+    beta = _spread(results.coefficients, k, fitted, {INPUT: labels}, COEFFICIENT, (G, p))
     inv = _spread(results.xtx_inverse, k, fitted, {"row term": labels, "column term": labels}, "value",
                   (G, p, p))
     lo = _spread(results.input_ranges, k, fitted, {"column": sources}, "min", (G, m))
@@ -145,14 +147,14 @@ def store_from_results(results: "FitResults") -> ModelStore:
     ok = np.isfinite(beta).all(axis=1) & np.isfinite(inv).reshape(G, -1).all(axis=1)
     sub = fitted[ok]
     kept = list(zip(*(sub.iloc[:, j].astype(str) for j in range(k)))) if k else [()] * len(sub)
-    n = pd.to_numeric(sub["n"]).to_numpy(np.int64)
-    rse = pd.to_numeric(sub["residual std error"]).to_numpy(np.float64)
+    n = pd.to_numeric(sub[ROWS_USED]).to_numpy(np.int64)
+    rse = pd.to_numeric(sub[RESIDUAL_STD_ERROR]).to_numpy(np.float64)
     return ModelStore(
         y=results.y, group_columns=tuple(results.group_columns), terms=tuple(results.terms),
         intercept=bool(results.job.intercept), level=float(results.job.level),
         date_columns=tuple(c for c in results.info.date_columns if c in sources),
         labels=unique_labels(kept), keys=tuple(kept), n=n,
-        df=(n - pd.to_numeric(sub["parameters"]).to_numpy(np.int64)).astype(np.float64), sigma2=rse**2,
+        df=(n - pd.to_numeric(sub[COEFFICIENT_COUNT]).to_numpy(np.int64)).astype(np.float64), sigma2=rse**2,
         beta=beta[ok], xtx_inv=inv[ok], lo=lo[ok], hi=hi[ok])
 
 
@@ -163,7 +165,7 @@ class StoreColumn:
     """One column of the store's group rows: its position, what it holds, one value per group."""
 
     col: int
-    part: str             # "group", "key", "n", "residual df", "residual variance", "coefficient",
+    part: str             # "group", "key", "rows used", "residual df", "residual variance", "coefficient",
     values: np.ndarray    # "(X'X)⁻¹", "min" or "max"
 
 
@@ -182,14 +184,14 @@ def store_settings(store: ModelStore) -> list[tuple[str, list]]:
 
 def term_rows(store: ModelStore) -> list[list]:
     """The rows of the terms table: label, source column, kind, power (the intercept first)."""
-    rows: list[list] = [[INTERCEPT, "", "intercept", 0]] if store.intercept else []
+    rows: list[list] = [[store.term_labels[0], "", "intercept", 0]] if store.intercept else []
     return rows + [[t.label, t.column, t.kind, t.power] for t in store.terms]
 
 
 def group_headers(store: ModelStore) -> list[str]:
     """The header row of the group table (a group column named like one of ours shows as `NAME (input)`)."""
     labels = store.term_labels
-    ours = ["n", "residual df", "residual variance"]
+    ours = list(STORE_NUMBERS)
     ours += [f"coefficient: {t}" for t in labels]
     ours += [f"(X'X)⁻¹: {a} × {b}" for a in labels for b in labels]
     for c in store.sources:
@@ -204,7 +206,7 @@ def group_columns(store: ModelStore, lay: StoreLayout) -> list[StoreColumn]:
     cols = [StoreColumn(0, "group", np.array(store.labels, dtype=object))]
     keys = np.array(store.keys, dtype=object).reshape(G, lay.k)
     cols += [StoreColumn(lay.col_key(j), "key", keys[:, j]) for j in range(lay.k)]
-    cols += [StoreColumn(lay.col_n(), "n", np.asarray(store.n, dtype=np.int64)),
+    cols += [StoreColumn(lay.col_n(), "rows used", np.asarray(store.n, dtype=np.int64)),
              StoreColumn(lay.col_df(), "residual df", np.asarray(store.df, dtype=np.float64)),
              StoreColumn(lay.col_s2(), "residual variance", np.asarray(store.sigma2, dtype=np.float64))]
     cols += [StoreColumn(c, "coefficient", store.beta[:, j]) for j, c in enumerate(lay.coef_columns())]

@@ -1,7 +1,7 @@
 """Where everything sits on the `model store` sheet: its names, header rows and column positions.
 
 One layout for both directions: the report places the store's cells at these positions (and the
-predict sheet's formulas point at them), and `sheetfit.results.store.read_store` reads them back
+live prediction sheet's formulas point at them), and `sheetfit.results.store.read_store` reads them back
 from the same positions. All rows and columns are 0-based.
 """
 
@@ -12,8 +12,8 @@ from dataclasses import dataclass
 STORE_SHEET = "model store"
 STORE_TITLE = "sheetfit model store"
 STORE_FORMAT = 1
-STORE_NOTE = ("The fitted models, one row per group: the predict sheet and `sheetfit predict` read them from "
-              "here. Do not edit, sort, insert or delete cells.")
+STORE_NOTE = ("The fitted models, one row per group: the live prediction sheet and `sheetfit predict` read "
+              "them from here. Do not edit, sort, insert or delete cells.")
 SETTING_HEADER = ("setting", "value")
 TERM_HEADER = "coefficient"
 TERM_COLUMNS = (TERM_HEADER, "source column", "kind", "power")

@@ -11,7 +11,9 @@ from scipy import stats
 from ..model.engine import EngineFit, design_row
 from ..model.inference import Inference
 from ..terms import Term, source_columns
-from .headers import shown_names
+from .headers import (ADJUSTED_R2, AIC, AVERAGE_HIGH, AVERAGE_LOW, BIC, COEFFICIENT, COEFFICIENT_COUNT,
+    CV_RMSE, F_P_VALUE, F_STAT, FITTED, FLAGS, INPUT, INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, R2, REASONS,
+    RESIDUAL_STD_ERROR, RMSE, ROWS_NOT_USED, ROWS_USED, STATUS, STD_ERROR, T_STAT, shown_names)
 
 CURVE_POINTS = 25
 
@@ -46,22 +48,22 @@ def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, flags: np.n
         return np.where(ok, v, np.nan)
 
     reason_text = np.where(ok, reasons, fit.not_fitted_reason).astype(object)
-    body = {
-        "status": np.where(ok, "fitted", "not fitted"),
-        "flags": np.where(ok, flags, 0),
-        "reasons": reason_text,
-        "n": used,
-        "rows dropped": dropped,
-        "parameters": np.full(G, fit.p),
-        "R²": only(inf.r2),
-        "adjusted R²": only(inf.adj_r2),
-        "residual std error": only(inf.residual_std_error),
-        "RMSE": only(inf.rmse),
-        "CV(RMSE) %": only(inf.cv_rmse),
-        "F": only(inf.f),
-        "F p-value": only(inf.f_p_value),
-        "AIC": only(inf.aic),
-        "BIC": only(inf.bic),
+    body = {                       # in the order of results.headers.GROUP_HEADERS
+        STATUS: np.where(ok, "fitted", "not fitted"),
+        FLAGS: np.where(ok, flags, 0),
+        REASONS: reason_text,
+        R2: only(inf.r2),
+        ADJUSTED_R2: only(inf.adj_r2),
+        F_STAT: only(inf.f),
+        F_P_VALUE: only(inf.f_p_value),
+        RESIDUAL_STD_ERROR: only(inf.residual_std_error),
+        RMSE: only(inf.rmse),
+        CV_RMSE: only(inf.cv_rmse),
+        ROWS_USED: used,
+        ROWS_NOT_USED: dropped,
+        COEFFICIENT_COUNT: np.full(G, fit.p),
+        AIC: only(inf.aic),
+        BIC: only(inf.bic),
     }
     body.update({k: only(v) for k, v in extra.items()})
     return with_keys(keys, np.arange(G), body)
@@ -74,14 +76,14 @@ def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, label
     p = fit.p
     codes = np.repeat(g_idx, p)
     sel = (codes, np.tile(np.arange(p), len(g_idx)))
-    body = {
-        "term": np.tile(np.asarray(labels, dtype=object), len(g_idx)),
-        "estimate": fit.beta[sel],
-        "std error": fit.se[sel],
-        "t": inf.t[sel],
-        "p-value": inf.p_value[sel],
-        "CI low": inf.ci_low[sel],
-        "CI high": inf.ci_high[sel],
+    body = {                       # in the order of results.headers.COEFFICIENT_HEADERS
+        INPUT: np.tile(np.asarray(labels, dtype=object), len(g_idx)),
+        COEFFICIENT: fit.beta[sel],
+        INTERVAL_LOW: inf.ci_low[sel],
+        INTERVAL_HIGH: inf.ci_high[sel],
+        STD_ERROR: fit.se[sel],
+        T_STAT: inf.t[sel],
+        P_VALUE: inf.p_value[sel],
     }
     for name, arr in extra.items():
         body[name] = np.asarray(arr)[sel]
@@ -93,7 +95,7 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequ
     """Fitted line and confidence band of the mean over each group's observed input range."""
     cols = source_columns(terms)
     if len(cols) != 1:
-        return empty_table(keys, ["x", "fitted", "mean CI low", "mean CI high"])
+        return empty_table(keys, ["x", FITTED, AVERAGE_LOW, AVERAGE_HIGH])
     col = cols[0]
     lo, hi = ranges[col]
     g_idx = np.flatnonzero(fit.fitted_ok & np.isfinite(lo) & np.isfinite(hi))
@@ -104,9 +106,9 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequ
     var = np.einsum("gkp,gpq,gkq->gk", D, fit.xtx_inv[g_idx], D) * fit.sigma2[g_idx, None]
     half = inf.t_quantile[g_idx, None] * np.sqrt(np.maximum(var, 0.0))
     codes = np.repeat(g_idx, CURVE_POINTS)
-    return with_keys(keys, codes, {"x": xs.ravel(), "fitted": yhat.ravel(),
-                                   "mean CI low": (yhat - half).ravel(),
-                                   "mean CI high": (yhat + half).ravel()})
+    return with_keys(keys, codes, {"x": xs.ravel(), FITTED: yhat.ravel(),
+                                   AVERAGE_LOW: (yhat - half).ravel(),
+                                   AVERAGE_HIGH: (yhat + half).ravel()})
 
 
 def quantiles_table(keys: pd.DataFrame, fit: EngineFit, codes: np.ndarray) -> pd.DataFrame:

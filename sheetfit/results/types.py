@@ -25,15 +25,17 @@ class FitResults:
     position (`key_headers`). A user's column named like one of ours in the same table is shown as
     `NAME (input)` (see results.headers); `observation_header` gives the header on observations.
 
-    groups        one row per group: keys, status, flags, reasons, n, rows dropped, parameters,
-                  R², adjusted R², residual std error, RMSE, CV(RMSE) %, F, F p-value, AIC, BIC, …
-    coefficients  group × term: keys, term, estimate, std error, t, p-value, CI low, CI high, VIF,
-                  robust std error columns when computed
+    groups        one row per group: keys, then results.headers.GROUP_HEADERS (status, flags, reasons,
+                  R², adjusted R², F, F p-value, residual std error, RMSE, CV(RMSE) %, rows used,
+                  rows not used, number of coefficients, AIC, BIC), then GROUP_EXTRA_HEADERS
+    coefficients  group × term: keys, input, coefficient, interval low, interval high, std error, t,
+                  p-value, VIF, robust std error columns when computed
     checks        group × check: keys, check, statistic, p-value, adjusted p-value, threshold,
                   verdict (pass / fail / n/a), note
-    observations  input row: keys, source sheet, source row, y and source x columns, used, reason,
-                  fitted, residual, studentized residual, leverage, Cook's distance, row flags
-    curves        one-source-column models: keys, x, fitted, mean CI low, mean CI high (grid)
+    observations  input row: keys, source sheet, source row, y and source x columns, used in fit,
+                  reason, row flags, fitted value, residual, studentized residual, leverage,
+                  Cook's distance
+    curves        one-source-column models: keys, x, fitted value, range for the average, low/high (grid)
     quantiles     keys, normal quantile, standardized residual (sorted; for quantile plots)
     xtx_inverse   keys, row term, column term, value: (X'X)^-1 of each fitted group
     input_ranges  keys, column, min, max: observed range of each source column per group

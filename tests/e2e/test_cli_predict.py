@@ -50,12 +50,12 @@ def test_fit_then_predict(tmp_path):
         sub = frame[frame["Site"] == row["Site"]]
         ref = sm.OLS(sub["y"], sm.add_constant(sub["x"])).fit()          # statsmodels
         sf = ref.get_prediction(np.array([[1.0, row["x"]]])).summary_frame(0.05)
-        np.testing.assert_allclose(row["predicted"], sf["mean"].iloc[0], rtol=1e-9)
-        np.testing.assert_allclose(row["prediction low"], sf["obs_ci_lower"].iloc[0], rtol=1e-9)
-        np.testing.assert_allclose(row["mean CI high"], sf["mean_ci_upper"].iloc[0], rtol=1e-9)
+        np.testing.assert_allclose(row["predicted value"], sf["mean"].iloc[0], rtol=1e-9)
+        np.testing.assert_allclose(row["range for one new row, low"], sf["obs_ci_lower"].iloc[0], rtol=1e-9)
+        np.testing.assert_allclose(row["range for the average, high"], sf["mean_ci_upper"].iloc[0], rtol=1e-9)
     assert str(body[0]["extrapolation"]).startswith("no")
     assert str(body[1]["extrapolation"]).startswith("yes")
-    assert body[2]["predicted"] is None and "East" in body[2]["reason"]
+    assert body[2]["predicted value"] is None and "East" in body[2]["reason"]
 
 
 def test_predict_with_missing_results_workbook_is_one_line(tmp_path):
@@ -99,13 +99,13 @@ def test_predict_summary_level_and_quiet(tmp_path):
     body = list(openpyxl.load_workbook(out, read_only=True)["predictions"].values)
     head = list(body[0])
     row = dict(zip(head, body[1]))
-    wide = row["mean CI high"] - row["mean CI low"]
+    wide = row["range for the average, high"] - row["range for the average, low"]
     assert "too large to compute" in dict(zip(head, body[3]))["reason"]      # 1e308 gets a reason
     quiet = run("predict", results, new, "--level", "0.5", "--quiet", "--overwrite", cwd=tmp_path)
     assert quiet.returncode == 0, quiet.stderr
     assert quiet.stdout.splitlines() == [f"predictions: {out}"]
     row = dict(zip(head, list(openpyxl.load_workbook(out, read_only=True)["predictions"].values)[1]))
-    assert row["mean CI high"] - row["mean CI low"] < wide / 2                # 50 % against 95 %
+    assert row["range for the average, high"] - row["range for the average, low"] < wide / 2                # 50 % against 95 %
     for bad in ("nan", "1", "inf", "0.2"):
         err = one_error_line(run("predict", results, new, "--level", bad, "--overwrite", cwd=tmp_path))
         assert "--level" in err

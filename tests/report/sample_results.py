@@ -47,11 +47,11 @@ def build_results(folder: Path, labels: Sequence[str] = ("North", "South", "East
         base = {"site": label}
         if label in not_fitted:
             g_rows.append({**base, "status": "not fitted", "flags": 0,
-                           "reasons": "too few rows: 2 usable rows for 2 coefficients", "n": m,
-                           "rows dropped": 1, "parameters": X.shape[1]})
+                           "reasons": "too few rows: 2 usable rows for 2 coefficients", "rows used": m,
+                           "rows not used": 1, "number of coefficients": X.shape[1]})
             for i in range(m):
                 o_rows.append({**base, "source sheet": "Data", "source row": row_no, Y: yv[i],
-                               **{s: data[s][i] for s in srcs}, "used": "no",
+                               **{s: data[s][i] for s in srcs}, "used in fit": "no",
                                "reason": "group not fitted: too few rows", "row flags": ""})
                 row_no += 1
             continue
@@ -64,7 +64,7 @@ def build_results(folder: Path, labels: Sequence[str] = ("North", "South", "East
                        "reasons": ("spread of residuals grows with the fitted value (Breusch–Pagan, adjusted "
                                    "p = 0.003); one row dominates the fit (Cook's distance 1.9)")
                        if is_flagged else "",
-                       "n": m, "rows dropped": 0, "parameters": X.shape[1], "R²": fit.rsquared,
+                       "rows used": m, "rows not used": 0, "number of coefficients": X.shape[1], "R²": fit.rsquared,
                        "adjusted R²": fit.rsquared_adj, "residual std error": np.sqrt(fit.scale),
                        "RMSE": np.sqrt(fit.ssr / m), "CV(RMSE) %": 100 * np.sqrt(fit.scale) / yv.mean(),
                        "F": np.inf if label in perfect else fit.fvalue,
@@ -72,9 +72,9 @@ def build_results(folder: Path, labels: Sequence[str] = ("North", "South", "East
                        "AIC": fit.aic, "BIC": fit.bic, "influential rows": 1 if is_flagged else 0})
         ci = fit.conf_int()
         for j, term in enumerate([INTERCEPT] + [t.label for t in terms]):
-            c_rows.append({**base, "term": term, "estimate": fit.params[j], "std error": fit.bse[j],
-                           "t": fit.tvalues[j], "p-value": fit.pvalues[j], "CI low": ci[j, 0],
-                           "CI high": ci[j, 1]})
+            c_rows.append({**base, "input": term, "coefficient": fit.params[j], "std error": fit.bse[j],
+                           "t": fit.tvalues[j], "p-value": fit.pvalues[j], "interval low": ci[j, 0],
+                           "interval high": ci[j, 1]})
         for check, p in (("model F-test", fit.f_pvalue), ("Breusch–Pagan", 0.003 if is_flagged else 0.4)):
             k_rows.append({**base, "check": check, "statistic": 12.5, "p-value": p, "adjusted p-value": p,
                            "threshold": 0.05, "verdict": "fail" if (is_flagged and check != "model F-test")
@@ -83,8 +83,8 @@ def build_results(folder: Path, labels: Sequence[str] = ("North", "South", "East
         for i in range(m):
             flags = "influential" if (is_flagged and i == 0) else ""
             o_rows.append({**base, "source sheet": "Data", "source row": row_no, Y: yv[i],
-                           **{s: data[s][i] for s in srcs}, "used": "yes", "reason": "",
-                           "fitted": fit.fittedvalues[i], "residual": fit.resid[i],
+                           **{s: data[s][i] for s in srcs}, "used in fit": "yes", "reason": "",
+                           "fitted value": fit.fittedvalues[i], "residual": fit.resid[i],
                            "studentized residual": stud[i], "leverage": infl.hat_matrix_diag[i],
                            "Cook's distance": infl.cooks_distance[0][i], "row flags": flags})
             row_no += 1
@@ -93,9 +93,9 @@ def build_results(folder: Path, labels: Sequence[str] = ("North", "South", "East
             Xg = np.column_stack([np.ones(25)] + [t.values(grid) for t in terms])
             pred = fit.get_prediction(Xg).summary_frame(alpha=0.05)
             for i in range(25):
-                cur_rows.append({**base, "x": grid[i], "fitted": pred["mean"].iloc[i],
-                                 "mean CI low": pred["mean_ci_lower"].iloc[i],
-                                 "mean CI high": pred["mean_ci_upper"].iloc[i]})
+                cur_rows.append({**base, "x": grid[i], "fitted value": pred["mean"].iloc[i],
+                                 "range for the average, low": pred["mean_ci_lower"].iloc[i],
+                                 "range for the average, high": pred["mean_ci_upper"].iloc[i]})
         sr = np.sort(infl.resid_studentized_internal)
         q = stats.norm.ppf((np.arange(1, m + 1) - 0.375) / (m + 0.25))
         q_rows += [{**base, "normal quantile": q[i], "standardized residual": sr[i]} for i in range(m)]
@@ -110,11 +110,11 @@ def build_results(folder: Path, labels: Sequence[str] = ("North", "South", "East
     return FitResults(
         job=job, group_columns=("site",), y=Y, terms=terms,
         groups=pd.DataFrame(g_rows),
-        coefficients=frame(c_rows, ["site", "term", "estimate", "std error", "t", "p-value", "CI low", "CI high"]),
+        coefficients=frame(c_rows, ["site", "input", "coefficient", "std error", "t", "p-value", "interval low", "interval high"]),
         checks=frame(k_rows, ["site", "check", "statistic", "p-value", "adjusted p-value", "threshold",
                               "verdict", "note"]),
         observations=pd.DataFrame(o_rows),
-        curves=frame(cur_rows, ["site", "x", "fitted", "mean CI low", "mean CI high"]),
+        curves=frame(cur_rows, ["site", "x", "fitted value", "range for the average, low", "range for the average, high"]),
         quantiles=frame(q_rows, ["site", "normal quantile", "standardized residual"]),
         xtx_inverse=pd.DataFrame(columns=["site", "row term", "column term", "value"]),
         input_ranges=pd.DataFrame(columns=["site", "column", "min", "max"]),

@@ -72,8 +72,8 @@ def test_one_input_fit_chart_has_points_line_band_and_equation(make_results, tmp
     res = make_results(labels=["North"], flagged=[], max_charts=5)
     path = write_results(res, tmp_path / "one.xlsx")
     fit, resid, qq, overview = chart_xml(path)
-    coef = res.coefficients.set_index("term")["estimate"]
-    eq = equation(Y, [("(intercept)", coef["(intercept)"]), ("CDD", coef["CDD"])])
+    coef = res.coefficients.set_index("input")["coefficient"]
+    eq = equation(Y, [("constant", coef["constant"]), ("CDD", coef["CDD"])])
     assert eq in fit and "R² = " in fit
     assert fit.count("<c:ser>") == 4                       # points, fitted line, two band lines
     assert fit.count('val="dash"') == 2                    # the band is dashed
@@ -120,8 +120,8 @@ def test_overview_uses_points_when_there_are_many_groups(make_results, tmp_path,
 
 def test_equation_text():
     # plain algebra: signs folded into the operators, four significant digits
-    assert equation("y", [("(intercept)", 3.2), ("x", 0.41)]) == "y = 3.2 + 0.41·x"
-    assert equation("y", [("(intercept)", -3.2), ("x", -0.000123456)]) == "y = −3.2 − 0.0001235·x"
+    assert equation("y", [("constant", 3.2), ("x", 0.41)]) == "y = 3.2 + 0.41·x"
+    assert equation("y", [("constant", -3.2), ("x", -0.000123456)]) == "y = −3.2 − 0.0001235·x"
     assert equation("kWh", [("x", 2.0), ("x^2", -1.5)]) == "kWh = 2·x − 1.5·x^2"
 
 

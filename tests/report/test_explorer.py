@@ -58,7 +58,7 @@ def test_sheets_validation_and_formulas(book):
     dv = [d for d in ws.data_validations.dataValidation if "B4" in str(d.sqref)]
     assert dv and dv[0].type == "list" and dv[0].formula1 == "'explorer data'!$A$4:$A$6"
     top, head, rows = block(ws)
-    assert head == ["x", "w", "y", "fitted", "residual", "source row"]
+    assert head == ["x", "w", "y", "fitted value", "residual", "source row"]
     assert len(rows) == 30                               # the largest group's size
     assert rows[0][0] == "=IF(1<=$B$5,INDEX('explorer data'!$C$9:$C$57,$B$7+0),NA())"
     assert rows[29][5] == "=IF(30<=$B$5,INDEX('explorer data'!$B$9:$B$57,$B$7+29),\"\")"
@@ -80,7 +80,7 @@ def test_data_sheet_is_sorted_with_first_rows_and_counts(book, results):
         assert xs == sorted(xs)                          # sorted by the first input within the group
         mine = obs[obs["grp"] == label].sort_values("x")
         np.testing.assert_allclose([r[4] for r in rows], mine["y"], rtol=1e-15)
-        np.testing.assert_allclose([r[5] for r in rows], mine["fitted"], rtol=1e-15)
+        np.testing.assert_allclose([r[5] for r in rows], mine["fitted value"], rtol=1e-15)
 
 
 def test_cached_block_shows_the_default_group(book, results):

@@ -2,7 +2,7 @@
 
 Small results workbooks are written with the explorer and predict input cells preset and with no
 cached formula results, converted by soffice with a profile that recalculates on load, and read
-back. Oracles: statsmodels OLS get_prediction (and sheetfit.predict) for the what-if cells; the
+back. Oracles: statsmodels OLS get_prediction (and sheetfit.predict) for the live prediction cells; the
 observations table for the explorer block. A probe formula with a deliberately wrong cached value
 proves the recalculation happened.
 """
@@ -26,7 +26,7 @@ from sheetfit.api import fit_frame
 from sheetfit.pipeline import predict_workbook
 from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet
-from sheetfit.report.whatif import whatif_sheet
+from sheetfit.report.live_prediction import live_prediction_sheet
 from tests.lo import SKIP_REASON, SOFFICE, convert, make_profile
 from tests.oracle import curved_groups
 
@@ -41,8 +41,8 @@ LABELS = {"A": "A", "A*": "A*", "a": "a (2)"}
 CASES = [("A*", {"x": 4.0, "z": 6.0}, 0.95),
          ("a", {"x": 11.5, "z": 0.8}, 0.90),
          ("A", {"x": 1.9, "z": 18.9}, 0.99)]
-RESULTS = {"predicted": "mean", "std error of mean": "mean_se", "mean CI low": "mean_ci_lower",
-           "mean CI high": "mean_ci_upper", "prediction low": "obs_ci_lower", "prediction high": "obs_ci_upper"}
+RESULTS = {"predicted value": "mean", "std error of the fitted mean": "mean_se", "range for the average, low": "mean_ci_lower",
+           "range for the average, high": "mean_ci_upper", "range for one new row, low": "obs_ci_lower", "range for one new row, high": "obs_ci_upper"}
 TIMES: dict[str, float] = {}
 
 
@@ -73,7 +73,7 @@ def converted(results, tmp_path_factory) -> list[openpyxl.Workbook]:
     for i, (group, inputs, level) in enumerate(CASES):
         label = LABELS[group]
         builders = [functools.partial(explorer_sheet, group=label, cache=False),
-                    functools.partial(whatif_sheet, group=label, inputs=inputs, level=level, cache=False), probe]
+                    functools.partial(live_prediction_sheet, group=label, inputs=inputs, level=level, cache=False), probe]
         with pytest.MonkeyPatch.context() as mp:
             mp.setattr(report, "_extra_sheets", lambda b=builders: b)
             paths.append(write_results(results, folder / f"case{i}.xlsx"))
@@ -127,9 +127,9 @@ def test_recalculation_happened(converted):
 
 
 @pytest.mark.parametrize("case", range(len(CASES)))
-def test_whatif_cells_equal_predict_and_statsmodels(converted, results, data, predicted_file, case):
+def test_live_prediction_cells_equal_predict_and_statsmodels(converted, results, data, predicted_file, case):
     group, inputs, level = CASES[case]
-    ws = converted[case]["predict"]
+    ws = converted[case]["live prediction"]
     rows = label_rows(ws)
     assert ws["B4"].value == LABELS[group] and ws["B5"].value == level
     expected = oracle(data, group, inputs, level)
@@ -142,7 +142,7 @@ def test_whatif_cells_equal_predict_and_statsmodels(converted, results, data, pr
         if level == results.job.level:
             assert cell == pytest.approx(predicted_file[label], rel=1e-9), label
     d = data[data["g"] == group]
-    assert ws.cell(rows["residual df"], 2).value == len(d) - 4
+    assert ws.cell(rows["residual degrees of freedom"], 2).value == len(d) - 4
     warning = ws.cell(rows["range check"], 2).value
     if case == 1:
         assert warning == "caution, extrapolation: x above the observed range; z below the observed range"
@@ -157,19 +157,19 @@ def test_explorer_block_follows_the_chosen_group(converted, results, case):
     group = CASES[case][0]
     ws = converted[case]["explorer"]
     obs = results.observations
-    mine = obs[(obs["g"] == group) & (obs["used"] == "yes")].sort_values(["x", "source row"])
+    mine = obs[(obs["g"] == group) & (obs["used in fit"] == "yes")].sort_values(["x", "source row"])
     top = next(r[0].row for r in ws.iter_rows() if "source row" in [c.value for c in r])
     head = [c.value for c in ws[top] if c.value is not None]
     rows = [[c.value for c in ws[r]][:len(head)] for r in range(top + 1, top + 1 + 26)]
     n = len(mine)
     assert ws["B4"].value == LABELS[group] and ws["B5"].value == n
     assert [r[head.index("source row")] for r in rows[:n]] == mine["source row"].tolist()
-    for col in ("x", "z", "y", "fitted", "residual"):
+    for col in ("x", "z", "y", "fitted value", "residual"):
         # LibreOffice saves results with 15 significant digits
         np.testing.assert_allclose([r[head.index(col)] for r in rows[:n]], mine[col], rtol=1e-14)
     assert all(r[head.index("y")] == "#N/A" and r[head.index("source row")] in ("", None) for r in rows[n:])
     coef = results.coefficients
-    est = coef[(coef["g"] == group) & (coef["term"] == "x^2")]["estimate"].iloc[0]
+    est = coef[(coef["g"] == group) & (coef["input"] == "x^2")]["coefficient"].iloc[0]
     labels = label_rows(ws)
     assert ws.cell(labels["x^2"], 2).value == pytest.approx(est, rel=1e-14)
 

@@ -18,12 +18,12 @@ from sheetfit.report.book import SheetNames
 from sheetfit.report.columns import P_VALUE_FORMAT
 
 CORE = ["groups", "coefficients", "checks", "observations", "charts", "overview", "about", "chart data"]
-GROUPS = ["site", "status", "flags", "reasons", "n", "rows dropped", "parameters", "R²", "adjusted R²",
-          "residual std error", "RMSE", "CV(RMSE) %", "F", "F p-value", "AIC", "BIC"]
-COEFS = ["site", "term", "estimate", "std error", "t", "p-value", "CI low", "CI high"]
+GROUPS = ["site", "status", "flags", "reasons", "R²", "adjusted R²", "F", "F p-value", "residual std error", "RMSE",
+          "CV(RMSE) %", "rows used", "rows not used", "number of coefficients", "AIC", "BIC"]
+COEFS = ["site", "input", "coefficient", "interval low", "interval high", "std error", "t", "p-value"]
 CHECKS = ["site", "check", "statistic", "p-value", "adjusted p-value", "threshold", "verdict", "note"]
-OBS = ["site", "source sheet", "source row", Y, "CDD", "used", "reason", "fitted", "residual",
-       "studentized residual", "leverage", "Cook's distance", "row flags"]
+OBS = ["site", "source sheet", "source row", Y, "CDD", "used in fit", "reason", "row flags", "fitted value", "residual",
+       "studentized residual", "leverage", "Cook's distance"]
 
 
 def header(ws) -> list:
@@ -103,7 +103,7 @@ def test_number_formats_show_sensible_digits(written):
     ws = wb["groups"]
     assert ws.cell(2, GROUPS.index("R²") + 1).number_format == "0.0000"
     assert ws.cell(2, GROUPS.index("F p-value") + 1).number_format == P_VALUE_FORMAT
-    assert ws.cell(2, GROUPS.index("n") + 1).number_format == "0"
+    assert ws.cell(2, GROUPS.index("rows used") + 1).number_format == "0"
     ws = wb["observations"]
     assert ws.cell(2, OBS.index("leverage") + 1).number_format == "0.0000"
 
@@ -135,7 +135,7 @@ def test_conditional_formats_cover_whole_rows_anchored_on_the_first_data_row(wri
     n = len(res.checks) + 1
     assert rules(wb["checks"]) == {f"A2:H{n}": ['$G2="fail"']}
     n = len(res.observations) + 1
-    assert rules(wb["observations"]) == {f"A2:M{n}": ['$F2="no"', "LEN($M2)>0"]}
+    assert rules(wb["observations"]) == {f"A2:M{n}": ['$F2="no"', "LEN($H2)>0"]}
 
 
 def test_highlight_colours_are_our_own_not_the_builtin_good_bad_neutral(written):
@@ -151,7 +151,7 @@ def test_observation_mode_flagged_keeps_unusable_and_flagged_rows(make_results, 
     path = write_results(res, tmp_path / "flagged.xlsx")
     wb = openpyxl.load_workbook(path)
     obs = res.observations
-    keep = obs["used"].eq("no") | obs["row flags"].ne("")
+    keep = obs["used in fit"].eq("no") | obs["row flags"].ne("")
     rows = data_rows(wb["observations"])
     assert len(rows) == keep.sum() and 0 < keep.sum() < len(obs)
     assert sorted(r[OBS.index("source row")] for r in rows) == sorted(obs.loc[keep, "source row"])
@@ -200,7 +200,7 @@ def test_about_holds_provenance_legend_definitions_and_cautions(written):
     assert cells["input file"] == "input.xlsx"
     assert cells["rows read"] == len(res.observations) and cells["groups"] == 10
     assert cells["a figure that is not finite"] is None
-    for colour in ("muted amber", "slate", "soft violet"):
+    for colour in ("pale teal", "slate", "soft violet"):
         assert colour in cells
     assert cells["RMSE"] == "√(RSS / n)" and cells["residual std error"] == "√(RSS / (n − p))"
     assert cells["CV(RMSE) %"] == "100 · residual std error / mean(y)"

@@ -1,8 +1,8 @@
-"""The `predict` sheet: live what-if predictions in cell formulas over the `model store` sheet.
+"""The `live prediction` sheet: predictions for typed-in inputs, computed by cell formulas over `model store`.
 
 The store holds one row per fitted group (see sheetfit.results.store_layout for where each number
 sits; report.store_sheet writes it and sheetfit.results.store.read_store reads it back for
-`sheetfit predict`). The predict sheet finds the chosen group's row once with MATCH and takes
+`sheetfit predict`). The live prediction sheet finds the chosen group's row once with MATCH and takes
 every number from that row with INDEX, so it works in any common spreadsheet application.
 """
 
@@ -20,7 +20,8 @@ from scipy import stats
 
 from ..model.engine import design_row
 from ..prediction.compute import predict_cells
-from ..results.headers import cell_text
+from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, COEFFICIENT, INPUT, MEAN_STD_ERROR, NEW_ROW_HIGH,
+    NEW_ROW_LOW, NEW_ROW_STD_ERROR, PREDICTED, cell_text)
 from ..results.store import ModelStore, store_from_results, store_layout
 from ..results.store_layout import STORE_SHEET, StoreLayout
 from .book import WriteContext
@@ -31,13 +32,14 @@ from .store_sheet import fill_store
 MAX_COLUMNS = 16_384
 LITERAL_LABEL = 200    # characters of a term's label quoted inside a formula (text in a formula: ≤ 255)
 BELOW, ABOVE = "below the observed range", "above the observed range"
-TOP_INPUT = 8          # first input row (0-based) on the predict sheet
+SHEET = "live prediction"
+TOP_INPUT = 8          # first input row (0-based) on the live prediction sheet
 GROUP_ROW, LEVEL_ROW, STORE_ROW = 3, 4, 5     # the chosen group, the level, its row in the store
 
 
 @dataclass(frozen=True)
 class PredictSheet:
-    """The preset state of the predict sheet and where its formulas find the stored numbers."""
+    """The preset state of the live prediction sheet and where its formulas find the stored numbers."""
 
     store: ModelStore
     lay: StoreLayout
@@ -57,9 +59,9 @@ class PredictSheet:
         return f"INDEX({table},{self.row},{col + 1})"
 
 
-def whatif_sheet(ctx: WriteContext, group: str | None = None, inputs: Mapping[str, float] | None = None,
+def live_prediction_sheet(ctx: WriteContext, group: str | None = None, inputs: Mapping[str, float] | None = None,
                  level: float | None = None, cache: bool = True) -> None:
-    """The `predict` sheet plus the `model store` data sheet.
+    """The `live prediction` sheet plus the `model store` data sheet.
 
     `group`, `inputs` (source column → value) and `level` preset the input cells (default: the
     first fitted group at the middle of its observed ranges, the fit's level); `cache=False` leaves
@@ -68,14 +70,14 @@ def whatif_sheet(ctx: WriteContext, group: str | None = None, inputs: Mapping[st
     res = ctx.results
     st = ctx.styles
     store = store_from_results(res)
-    ws = ctx.add_sheet("predict")
+    ws = ctx.add_sheet(SHEET)
     lay = store_layout(store)
     if len(store) == 0 or lay.width > MAX_COLUMNS:
         why = ("no group has a stored model (coefficients and (X'X)⁻¹)" if len(store) == 0
                else f"the model has too many terms to store one group per row ({lay.p} coefficients)")
         ws.set_column(0, 0, 110)
-        ws.write_string(0, 0, f"No what-if predictions: {why}.", st.title)
-        ctx.note("predict", f"not written: {why}")
+        ws.write_string(0, 0, f"No live predictions: {why}.", st.title)
+        ctx.note(SHEET, f"not written: {why}")
         return
     name = ctx.reserve_data_sheet(STORE_SHEET, lambda sheet: fill_store(sheet, store, lay, st, ctx.add_bulk))
     g = store.labels.index(group) if group is not None else 0
@@ -94,13 +96,13 @@ def whatif_sheet(ctx: WriteContext, group: str | None = None, inputs: Mapping[st
     ws.hide_gridlines(2)
     cells.flush(ws)
     _input_rules(ws, st, lay, name)
-    ctx.note("predict", f"what-if predictions for {len(store)} fitted groups: pale straw cells take your input, "
-                        f"every other cell is a formula over the stored models on sheet '{name}'; an amber "
-                        "range check means an input lies outside the group's observed range")
+    ctx.note(SHEET, f"predictions for typed-in inputs, {len(store)} fitted groups: pale straw cells take your "
+                    f"input, every other cell is a formula over the stored models on sheet '{name}'; a highlighted "
+                    "range check means an input lies outside the group's observed range")
 
 
 def _input_rules(ws: Any, st: Any, lay: StoreLayout, name: str) -> None:
-    """Drop-down and level validation on the input cells; amber checks and range-check warnings."""
+    """Drop-down and level validation on the input cells; highlighted checks and range-check warnings."""
     ws.data_validation(GROUP_ROW, 1, GROUP_ROW, 1, {
         "validate": "list", "source": "=" + area(name, lay.first, 0, lay.last, 0),
         "error_title": "not a fitted group", "error_message": "Choose one of the fitted groups from the list."})
@@ -178,12 +180,12 @@ def _check_text(store: ModelStore, g: int, j: int, x: float) -> str:
 
 
 def _predict_cells(ctx: WriteContext, cells: Cells, ps: PredictSheet) -> None:
-    """Every cell of the predict sheet: the choice, inputs and range check, results, calculation table."""
+    """Every cell of the live prediction sheet: the choice, inputs and range check, results, calculation table."""
     st = ctx.styles
     res = ctx.results
     y_vals = pd.to_numeric(res.observations.get(res.observation_header(res.y), pd.Series(dtype=float)),
                            errors="coerce").to_numpy(np.float64)
-    yf = st.number(number_format("predicted", y_vals))
+    yf = st.number(number_format(PREDICTED, y_vals))
     _choice_cells(cells, st, ps)
     checks = _input_cells(cells, st, ps)
     w = TOP_INPUT + ps.lay.m
@@ -197,7 +199,7 @@ def _predict_cells(ctx: WriteContext, cells: Cells, ps: PredictSheet) -> None:
 def _choice_cells(cells: Cells, st: Any, ps: PredictSheet) -> None:
     """Title, note, the group drop-down, the confidence level and the group's row in the store."""
     store, g = ps.store, ps.g
-    cells.text(0, 0, f"What-if prediction of {store.y}", st.title)
+    cells.text(0, 0, f"Live prediction of {store.y}", st.title)
     cells.text(1, 0, "Choose a group and type input values in the shaded cells; every other cell is a formula "
                      f"over the stored models on sheet '{ps.name}'.", st.note)
     cells.text(GROUP_ROW, 0, "group", st.group_label)
@@ -255,21 +257,23 @@ def _result_cells(cells: Cells, st: Any, ps: PredictSheet, yf: Any, top: int, ca
     pre = _preset_predictions(ps)
     # cached results for the preset state: the half-widths of the intervals give t and the new-row std error
     t_val = stats.t.ppf(0.5 + ps.level / 2, float(store.df[g]))
-    se_obs = (pre["prediction high"] - pre["predicted"]) / t_val
+    se_obs = (pre[NEW_ROW_HIGH] - pre[PREDICTED]) / t_val
     lines = [
-        ("predicted", f"=SUMPRODUCT({b_rng},{d_rng})", pre["predicted"], yf, "Σ coefficient × term value"),
-        ("std error of mean", f"=SQRT({r_s2}*{quad})", pre["std error of mean"], yf,
+        (PREDICTED, f"=SUMPRODUCT({b_rng},{d_rng})", pre[PREDICTED], yf, "Σ coefficient × term value"),
+        (MEAN_STD_ERROR, f"=SQRT({r_s2}*{quad})", pre[MEAN_STD_ERROR], yf,
          "√(residual variance × x'(X'X)⁻¹x)"),
-        ("std error of a new observation", f"=SQRT({r_s2}*(1+{quad}))", se_obs, yf,
+        (NEW_ROW_STD_ERROR, f"=SQRT({r_s2}*(1+{quad}))", se_obs, yf,
          "√(residual variance × (1 + x'(X'X)⁻¹x))"),
-        ("mean CI low", f"={r_pred}-{r_t}*{r_se}", pre["mean CI low"], yf, "where the group's mean lies"),
-        ("mean CI high", f"={r_pred}+{r_t}*{r_se}", pre["mean CI high"], yf, ""),
-        ("prediction low", f"={r_pred}-{r_t}*{r_seo}", pre["prediction low"], yf,
-         "where one new observation lies"),
-        ("prediction high", f"={r_pred}+{r_t}*{r_seo}", pre["prediction high"], yf, ""),
-        ("residual df", "=" + ps.pick(lay.col_df()), float(store.df[g]), st.number("0"), "n − number of coefficients"),
+        (AVERAGE_LOW, f"={r_pred}-{r_t}*{r_se}", pre[AVERAGE_LOW], yf,
+         "where the group's average lies at these inputs (confidence interval of the mean)"),
+        (AVERAGE_HIGH, f"={r_pred}+{r_t}*{r_se}", pre[AVERAGE_HIGH], yf, ""),
+        (NEW_ROW_LOW, f"={r_pred}-{r_t}*{r_seo}", pre[NEW_ROW_LOW], yf,
+         "where one new row lies (prediction interval)"),
+        (NEW_ROW_HIGH, f"={r_pred}+{r_t}*{r_seo}", pre[NEW_ROW_HIGH], yf, ""),
+        ("residual degrees of freedom", "=" + ps.pick(lay.col_df()), float(store.df[g]), st.number("0"),
+         "rows used − number of coefficients"),
         ("residual variance", "=" + ps.pick(lay.col_s2()), float(store.sigma2[g]), st.number(SCIENTIFIC),
-         "RSS / residual df"),
+         "RSS / residual degrees of freedom"),
         ("t quantile", f"=T.INV.2T(1-{ref(None, LEVEL_ROW, 1)},{r_df})", t_val, st.number("0.0000"),
          "two-sided, at the confidence level"),
     ]
@@ -301,7 +305,7 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
     d_vals = design_row(store.terms, store.intercept, dict(zip(store.sources, ps.values)))[0]
     inv = store.xtx_inv[g]
     cells.text(calc - 1, 0, "calculation for the chosen group", st.section)
-    head = ["term", "term value x", "coefficient", *[f"(X'X)⁻¹: {t}" for t in labels], "(X'X)⁻¹·x"]
+    head = [INPUT, "input value x", COEFFICIENT, *[f"(X'X)⁻¹: {t}" for t in labels], "(X'X)⁻¹·x"]
     for c, h in enumerate(head):
         cells.text(calc, c, h, st.header)
     src_cell = {c: ref(None, TOP_INPUT + j, 1) for j, c in enumerate(store.sources)}

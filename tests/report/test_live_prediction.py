@@ -1,6 +1,6 @@
 """The `predict` sheet and the `model store` sheet, read back with openpyxl.
 
-Oracles: statsmodels OLS get_prediction for the cached results of the default what-if state;
+Oracles: statsmodels OLS get_prediction for the cached results of the default state of the live prediction sheet;
 the FitResults tables for the stored numbers. Recalculation in a real spreadsheet application is
 tested in test_libreoffice.py.
 """
@@ -19,7 +19,7 @@ import sheetfit.report as report
 from sheetfit.api import fit_frame
 from sheetfit.report import write_results
 from sheetfit.report.explorer import explorer_sheet
-from sheetfit.report.whatif import whatif_sheet
+from sheetfit.report.live_prediction import live_prediction_sheet
 
 
 def demo_frame(seed: int = 8) -> pd.DataFrame:
@@ -61,8 +61,8 @@ def label_rows(ws) -> dict[str, int]:
 
 def test_sheets_and_formulas_present(book):
     wb, _ = book
-    assert {"predict", "model store"} <= set(wb.sheetnames)
-    ws = wb["predict"]
+    assert {"live prediction", "model store"} <= set(wb.sheetnames)
+    ws = wb["live prediction"]
     rows = label_rows(ws)
     assert ws["B4"].value == "north" and ws["B5"].value == 0.95
     assert ws["B6"].value.startswith('=MATCH(SUBSTITUTE(SUBSTITUTE(SUBSTITUTE($B$4,"~","~~"),"*","~*"),"?","~?"),'
@@ -72,7 +72,7 @@ def test_sheets_and_formulas_present(book):
     for fn in ("MATCH(", "INDEX(", "SUMPRODUCT(", "T.INV.2T(", "SQRT(", "LN("):
         assert fn in joined, fn
     assert "_xlfn.T.INV.2T" in joined          # written as a future function, so LibreOffice knows it
-    assert ws.cell(rows["predicted"], 2).value.startswith("=SUMPRODUCT(")
+    assert ws.cell(rows["predicted value"], 2).value.startswith("=SUMPRODUCT(")
     dv = [d for d in ws.data_validations.dataValidation if "B4" in str(d.sqref)]
     assert dv and dv[0].type == "list" and dv[0].formula1.startswith("'model store'!$A$")
 
@@ -80,18 +80,18 @@ def test_sheets_and_formulas_present(book):
 def test_cached_results_match_statsmodels(book, data):
     """The default state (first group, mid-range inputs) carries correct cached results."""
     wb, vals = book
-    ws = vals["predict"]
+    ws = vals["live prediction"]
     rows = label_rows(ws)
     x, z = ws.cell(rows["x"], 2).value, ws.cell(rows["z"], 2).value
     d = data[data["site"] == "north"]
     design = lambda f: np.column_stack([np.ones(len(f)), f["x"], f["x"] ** 2, np.log(f["z"])])  # noqa: E731
     fit = sm.OLS(d["y"].to_numpy(), design(d)).fit()
     exp = fit.get_prediction(design(pd.DataFrame({"x": [x], "z": [z]}))).summary_frame(alpha=0.05).iloc[0]
-    for label, col in (("predicted", "mean"), ("std error of mean", "mean_se"), ("mean CI low", "mean_ci_lower"),
-                       ("mean CI high", "mean_ci_upper"), ("prediction low", "obs_ci_lower"),
-                       ("prediction high", "obs_ci_upper")):
+    for label, col in (("predicted value", "mean"), ("std error of the fitted mean", "mean_se"), ("range for the average, low", "mean_ci_lower"),
+                       ("range for the average, high", "mean_ci_upper"), ("range for one new row, low", "obs_ci_lower"),
+                       ("range for one new row, high", "obs_ci_upper")):
         assert ws.cell(rows[label], 2).value == pytest.approx(exp[col], rel=1e-9), label
-    assert ws.cell(rows["residual df"], 2).value == len(d) - 4
+    assert ws.cell(rows["residual degrees of freedom"], 2).value == len(d) - 4
     assert ws.cell(rows["range check"], 2).value == "all inputs lie within the group's observed range"
 
 
@@ -105,40 +105,40 @@ def test_store_holds_the_fit(book, results):
     head = [c.value for c in ws[rows["group"]]]
     south = [c.value for c in ws[rows["group"] + 2]]
     rec = dict(zip(head, south))
-    coef = results.coefficients[results.coefficients["site"] == "south"].set_index("term")["estimate"]
+    coef = results.coefficients[results.coefficients["site"] == "south"].set_index("input")["coefficient"]
     for term, value in coef.items():
         assert rec[f"coefficient: {term}"] == pytest.approx(value, rel=1e-15)
     g = results.groups.set_index("site").loc["south"]
     assert rec["residual variance"] == pytest.approx(g["residual std error"] ** 2, rel=1e-15)
-    assert rec["residual df"] == g["n"] - g["parameters"]
+    assert rec["residual degrees of freedom"] == g["rows used"] - g["number of coefficients"]
     rng = results.input_ranges
     assert rec["max: z"] == pytest.approx(rng[(rng["site"] == "south") & (rng["column"] == "z")]["max"].iloc[0],
                                           rel=1e-15)   # xlsxwriter writes 16 significant digits
 
 
 def test_preset_state_and_extrapolation_warning(results, tmp_path, monkeypatch):
-    builder = functools.partial(whatif_sheet, group="south", inputs={"x": 20.0, "z": 0.5}, level=0.9)
+    builder = functools.partial(live_prediction_sheet, group="south", inputs={"x": 20.0, "z": 0.5}, level=0.9)
     monkeypatch.setattr(report, "_extra_sheets", lambda: [explorer_sheet, builder])
     path = write_results(results, tmp_path / "preset.xlsx")
-    ws = openpyxl.load_workbook(path, data_only=True)["predict"]
+    ws = openpyxl.load_workbook(path, data_only=True)["live prediction"]
     rows = label_rows(ws)
     assert ws["B4"].value == "south" and ws["B5"].value == 0.9
     warning = ws.cell(rows["range check"], 2).value
     assert warning == "caution, extrapolation: x above the observed range; z below the observed range"
     pred = __import__("sheetfit").predict(results, pd.DataFrame({"site": ["south"], "x": [20.0], "z": [0.5]}))
-    assert ws.cell(rows["predicted"], 2).value == pytest.approx(pred["predicted"][0], rel=1e-12)
+    assert ws.cell(rows["predicted value"], 2).value == pytest.approx(pred["predicted value"][0], rel=1e-12)
 
 
 def test_without_cache_formula_cells_are_empty_until_recalculated(results, tmp_path, monkeypatch):
-    monkeypatch.setattr(report, "_extra_sheets", lambda: [functools.partial(whatif_sheet, cache=False)])
+    monkeypatch.setattr(report, "_extra_sheets", lambda: [functools.partial(live_prediction_sheet, cache=False)])
     path = write_results(results, tmp_path / "nocache.xlsx")
-    ws = openpyxl.load_workbook(path, data_only=True)["predict"]
-    assert ws.cell(label_rows(ws)["predicted"], 2).value is None
+    ws = openpyxl.load_workbook(path, data_only=True)["live prediction"]
+    assert ws.cell(label_rows(ws)["predicted value"], 2).value is None
 
 
 def test_results_without_stored_models_still_write(make_results, tmp_path):
-    """Hand-built results without (X'X)⁻¹ get a predict sheet that says why it is empty."""
+    """Hand-built results without (X'X)⁻¹ get a live prediction sheet that says why it is empty."""
     path = write_results(make_results(), tmp_path / "bare.xlsx")
     wb = openpyxl.load_workbook(path)
     assert "model store" not in wb.sheetnames
-    assert wb["predict"]["A1"].value.startswith("No what-if predictions: no group has a stored model")
+    assert wb["live prediction"]["A1"].value.startswith("No live predictions: no group has a stored model")
