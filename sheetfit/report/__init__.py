@@ -1,6 +1,6 @@
 """The results workbook: formats FitResults into sheets; computes no statistics.
 
-Sheets, in order: groups, coefficients, checks, observations, charts, overview, about, then
+Sheets, in order: attention, groups, coefficients, checks, observations, charts, overview, about, then
 add-on sheets (`_extra_sheets()`), then the data sheets that charts and formulas read.
 
 Adding a sheet: write a function `build(ctx: WriteContext) -> None` that calls
@@ -32,6 +32,7 @@ ZIP64_CELLS = 40_000_000   # beyond this many observation cells the archive may 
 def core_sheets() -> list[SheetBuilder]:
     """The contract's sheets, in order."""
     from .about import about_sheet
+    from .attention import attention_sheet
     from .charts import charts_sheets
     from .tables import (
         checks_sheet,
@@ -39,7 +40,7 @@ def core_sheets() -> list[SheetBuilder]:
         groups_sheet,
         observations_sheet,
     )
-    return [groups_sheet, coefficients_sheet, checks_sheet, observations_sheet, charts_sheets, about_sheet]
+    return [attention_sheet, groups_sheet, coefficients_sheet, checks_sheet, observations_sheet, charts_sheets, about_sheet]
 
 
 def _extra_sheets() -> list[SheetBuilder]:

@@ -50,6 +50,28 @@ class SheetNames:
         return name
 
 
+MAX_TITLE_NAME = 120   # characters of the input file name in a page header (the header holds 255)
+
+
+def header_text(text: str) -> str:
+    """`text` as literal page-header text: every `&` doubled, so no part of it is a header code."""
+    text = str(text)
+    if len(text) > MAX_TITLE_NAME:
+        text = text[:MAX_TITLE_NAME - 1] + "…"
+    return text.replace("&", "&&")
+
+
+def print_title(ws: Any, input_name: str) -> None:
+    """A printed page's header: the sheet's name (`&A`) left, the input file's name right.
+
+    Set on the worksheet directly: xlsxwriter's `set_header` counts `&G` in the text as image
+    placeholders and drops a header whose (escaped, literal) file name contains `&G` or `&[Picture]`.
+    """
+    ws.header = "&L&A" + ("&R" + header_text(input_name) if input_name else "")
+    ws.margin_header = 0.3
+    ws.header_footer_changed = True
+
+
 SheetBuilder = Callable[["WriteContext"], None]
 
 
@@ -98,7 +120,14 @@ class WriteContext:
         name = self.names.add(label)
         ws = self.workbook.add_worksheet(name)
         self.sheets[name] = ws
+        print_title(ws, self.input_name())
         return ws
+
+    def input_name(self) -> str:
+        """The input file's name, for page headers ('' when there is none)."""
+        job = getattr(self.results, "job", None)
+        workbook = getattr(job, "workbook", None)
+        return getattr(workbook, "name", "") or ""
 
     def add_chart(self, options: dict[str, Any]) -> Any:
         """A new chart whose title, axis titles and series names are always literal text (`literal_names`)."""
@@ -106,8 +135,11 @@ class WriteContext:
         literal_names(chart)
         return chart
 
-    def reserve_data_sheet(self, label: str, fill: Callable[[Any], None], hidden: bool = False) -> str:
-        """Name a data sheet now; it is created after all builders and `fill(worksheet)` writes it."""
+    def reserve_data_sheet(self, label: str, fill: Callable[[Any], None], hidden: bool = True) -> str:
+        """Name a data sheet now; it is created after all builders and `fill(worksheet)` writes it.
+
+        Data sheets are hidden by default: charts, formulas and `sheetfit predict` read them, a
+        reader need not (they stay listed under the spreadsheet's "unhide sheets")."""
         name = self.names.add(label)
         self._data_sheets.append((name, fill, hidden))
         return name
@@ -130,6 +162,7 @@ class WriteContext:
         for name, fill, hidden in self._data_sheets:
             ws = self.workbook.add_worksheet(name)
             self.sheets[name] = ws
+            print_title(ws, self.input_name())
             fill(ws)
             if hidden:
                 ws.hide()

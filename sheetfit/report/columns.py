@@ -36,7 +36,7 @@ def number_format(header: str, values: np.ndarray) -> str:
         return FIXED_FORMATS[header]
     if header in COUNT_COLUMNS:
         return "0"
-    if header.endswith("p-value"):
+    if "p-value" in header:           # also `robust p-value (HC3)`, `HAC p-value`
         return P_VALUE_FORMAT
     v = np.abs(values[np.isfinite(values)])
     v = v[v > 0]
@@ -59,6 +59,35 @@ def number_format(header: str, values: np.ndarray) -> str:
     return "0" if decimals == 0 else "0." + "0" * decimals
 
 
+MAX_WIDTH = 60          # characters: the widest column; longer text wraps
+FILTER_BUTTON = 3       # characters a header needs beside its autofilter button
+
+
+def shown_width(values: np.ndarray, num_format: str) -> int:
+    """Characters of the widest finite value of `values` as `num_format` shows it (about)."""
+    v = values[np.isfinite(values)] if values.dtype.kind == "f" else values
+    if v.size == 0:
+        return 1
+    lo, hi = float(v.min()), float(v.max())
+    sign = 1 if lo < 0 else 0
+    if num_format == P_VALUE_FORMAT:
+        return 8
+    if num_format == SCIENTIFIC:
+        return 9 + sign
+    if num_format == DATE_FORMAT:
+        return 16
+    if num_format == "General":
+        return 11 + sign                  # General shows at most about 11 characters
+    decimals = len(num_format.split(".", 1)[1]) if "." in num_format else 0
+    big = max(abs(lo), abs(hi))
+    return max(len(f"{lo:.{decimals}f}"), len(f"{hi:.{decimals}f}"), len(f"{big:.{decimals}f}") + sign)
+
+
+def fit_width(header: str, shown: float) -> float:
+    """A column width showing its header (with filter button) and its widest shown value, capped."""
+    return min(max(len(header) + FILTER_BUTTON, shown + 2, 8), MAX_WIDTH)
+
+
 class Column:
     """One table column ready to write: cell values by row block, format, width and counts."""
 
@@ -70,6 +99,7 @@ class Column:
         self.infinite = 0      # ±inf written as empty cells
         self.cut = 0           # texts cut to MAX_TEXT characters
         self.chars = 0         # characters of text in the column
+        self.widest = 0        # characters of its longest text
         self.timezone_dropped = False
         self._bad: np.ndarray | None = None
         self._mixed = False
@@ -103,7 +133,12 @@ class Column:
                 self._bad = ~finite
             self._array = a
             self.num_format = number_format(self.header, a)
-        self.width = max(len(self.header) + 3, 10)
+        self.set_format(self.num_format)
+
+    def set_format(self, num_format: str) -> None:
+        """Show the numbers with `num_format`, the width following what it shows."""
+        self.num_format = num_format
+        self.width = max(fit_width(self.header, shown_width(self._array, num_format)), 10)
 
     def _datetime(self, series: pd.Series) -> None:
         if getattr(series.dt, "tz", None) is not None:
@@ -113,8 +148,8 @@ class Column:
         days = (raw - _EXCEL_EPOCH) / np.timedelta64(1, "D")
         self._numbers(pd.Series(days, dtype=np.float64))
         self.undefined = 0 if self._bad is None else int(self._bad.sum())
-        self.num_format = DATE_FORMAT
-        self.width = max(len(self.header) + 3, 17)
+        self.set_format(DATE_FORMAT)
+        self.width = max(self.width, 17)
 
     def _text(self, series: pd.Series) -> None:
         self.kind = "text"
@@ -139,10 +174,9 @@ class Column:
                     if cut is not v:
                         arr[i] = cut
                         self.cut += 1
-        lengths = np.array([len(v) for v in arr[:2000] if isinstance(v, str) and v], dtype=np.float64)
         self._array = arr
-        typical = float(np.percentile(lengths, 95)) if lengths.size else 0.0
-        self.width = min(max(len(self.header) + 3, typical + 2, 8), 60)
+        self.widest = max(lengths_all, default=0)
+        self.width = fit_width(self.header, self.widest)
 
     def values(self, lo: int, hi: int) -> np.ndarray:
         """Rows lo..hi-1 as an array: int or float (non-finite = empty cell) or object (None = empty)."""

@@ -314,7 +314,7 @@ def _choice_cells(cells: Cells, st: Any, ex: Explorer, data: str, g: int, ch: Ch
 def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, int]:
     """The fit figures from row TOP, then the lowest and highest fitted values; returns (next row, zero row)."""
     cells.text(TOP - 1, 0, "fit", st.header)
-    cells.text(TOP - 1, 1, "value", st.header)
+    cells.text(TOP - 1, 1, "value", st.header_number)
     r = TOP
     for mtr in [m for m in METRICS if m in ch.columns]:
         v = ch.entry[mtr]
@@ -339,7 +339,7 @@ def _coefficient_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen, r: int) 
     """The coefficient table with its header at row `r`; returns its last row."""
     cells.text(r, 0, INPUT, st.header)
     for c, name in enumerate(COEF, start=1):
-        cells.text(r, c, name, st.header)
+        cells.text(r, c, name, st.header_number)     # numbers below: header over their right edge
     for t in ex.terms:
         r += 1
         cells.text(r, 0, t)
@@ -355,7 +355,7 @@ def _block_cells(cells: Cells, st: Any, ex: Explorer, data: str, ch: Chosen, blo
     cnt, first = ref(None, 4, 1), ref(None, 6, 1)
     head = block_headers(ex)
     for c, h in enumerate(head):
-        cells.text(block_top - 1, c, h, st.header)
+        cells.text(block_top - 1, c, h, st.header_number)   # all numbers: headers over their right edge
     d0 = data_header(ex) + 1
     d1 = d0 + max(len(ex.rows), 1) - 1
     m = len(ex.sources)

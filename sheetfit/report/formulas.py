@@ -63,6 +63,26 @@ class Cells:
                 ws.write_formula(r, c, value, fmt, _cached(cached) if self.cache else "")
 
 
+class EmptyText(str):
+    """An empty text result that xlsxwriter stores as text (`t="str"`, empty value).
+
+    xlsxwriter stores a cached value of "" untyped (its way to ask for recalculation), which a
+    program reading stored values takes as 0; this empty string compares unequal to "" so that
+    xlsxwriter types it, and is written as nothing.
+    """
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, EmptyText)
+
+    def __ne__(self, other: object) -> bool:
+        return not self.__eq__(other)
+
+    __hash__ = str.__hash__
+
+
+TYPED_EMPTY = EmptyText("")
+
+
 def _cached(v: Any) -> Any:
     """A formula's cached result as xlsxwriter takes it: NaN and ±inf show #N/A, numpy numbers plain."""
     if v is None:
@@ -71,7 +91,9 @@ def _cached(v: Any) -> Any:
         return "#N/A" if not math.isfinite(float(v)) else float(v)
     if isinstance(v, (np.integer,)):
         return int(v)
-    return cell_text(v) if isinstance(v, str) else v
+    if isinstance(v, str):
+        return TYPED_EMPTY if v == "" else cell_text(v)
+    return v
 
 
 def lookup(cell: str, rng: str) -> str:

@@ -76,7 +76,11 @@ class Styles:
         self.header_text = workbook.add_format({
             "bold": True, "font_color": HEADER_TEXT, "bg_color": HEADER_FILL,
             "bottom": 2, "bottom_color": HEADER_RULE, "indent": 1, "valign": "bottom"})
-        self.text_cell = workbook.add_format({"indent": 1})
+        self.text_cell = workbook.add_format({"indent": 1, "valign": "top"})
+        self.top = workbook.add_format({"valign": "top"})     # table cells sit at the top of a tall row
+        # long text in a table column wraps at the column's width (rows grow to fit: no fixed heights)
+        self.wrap_cell = {False: workbook.add_format({"text_wrap": True, "valign": "top"}),
+                          True: workbook.add_format({"text_wrap": True, "valign": "top", "indent": 1})}
         self.title = workbook.add_format({"bold": True, "font_size": 13, "font_color": SECTION_TEXT})
         self.section = workbook.add_format({"bold": True, "font_size": 11, "font_color": SECTION_TEXT,
                                             "bottom": 1, "bottom_color": HEADER_RULE})
@@ -108,7 +112,7 @@ class Styles:
         """A cached cell format showing `num_format` (cells keep full precision)."""
         fmt = self._numbers.get(num_format)
         if fmt is None:
-            fmt = self._wb.add_format({"num_format": num_format})
+            fmt = self._wb.add_format({"num_format": num_format, "valign": "top"})
             self._numbers[num_format] = fmt
         return fmt
 

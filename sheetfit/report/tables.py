@@ -15,13 +15,13 @@ import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
 from ..read.tidy import REASON
-from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, NO, REASONS, ROW_FLAGS,
-    STATUS, USED, rename_note, renamed)
+from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, INTERVAL_HIGH, INTERVAL_LOW,
+    NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, rename_note, renamed)
 from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL
 from ..terms import source_columns
 from . import fastrows
 from .book import WriteContext
-from .columns import Column
+from .columns import MAX_WIDTH, Column
 
 MAX_DATA_ROWS = 1_048_575      # a sheet holds 1,048,576 rows, one of them the header
 BLOCK_ROWS = 50_000            # rows converted to Python values at a time
@@ -33,8 +33,9 @@ COEFFICIENTS_OPTIONAL = ("VIF", "robust std error", "robust p-value", "HAC std e
 CHECKS = ("check", "statistic", "p-value", "adjusted p-value", "threshold", "verdict", "note")
 OBS_HEAD = OBSERVATION_HEAD
 OBS_TAIL = OBSERVATION_TAIL
-PRINT_FIT_WIDTH = 220          # characters of column width that still print legibly on one page width
-WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30}
+PRINT_FIT_WIDTH = 400          # characters of column width that still print legibly on one page width
+ROW_HEIGHT = 15                # points: one line of the default 11-point font
+WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30}   # long texts: this width, wrapped
 
 
 @dataclass(frozen=True)
@@ -57,10 +58,11 @@ def ordered_columns(df: pd.DataFrame, keys: Sequence[str], required: Sequence[st
 
 
 def write_table(ctx: WriteContext, label: str, df: pd.DataFrame, order: Sequence[str],
-                rules: Sequence[Rule] = (), freeze_columns: int = 0) -> list[str]:
+                rules: Sequence[Rule] = (), freeze_columns: int = 0, head_note: str = "") -> list[str]:
     """Write `df[order]` as a filtered, frozen, highlighted table; returns the sheet names used."""
     n = len(df)
     columns = [Column(h, df[h] if h in df.columns else None, n) for h in order]
+    same_formats(columns)
     _note_columns(ctx, label, columns)
     parts = max(1, -(-n // MAX_DATA_ROWS))
     names: list[str] = []
@@ -68,6 +70,8 @@ def write_table(ctx: WriteContext, label: str, df: pd.DataFrame, order: Sequence
         ws = ctx.add_sheet(label if part == 0 else f"{label} ({part + 1})")
         names.append(ws.name)
         lo, hi = part * MAX_DATA_ROWS, min(n, (part + 1) * MAX_DATA_ROWS)
+        if head_note:             # constant_memory: a comment goes in while its row is being written
+            ws.write_comment(0, 0, head_note, {"x_scale": 2.2, "y_scale": 1.3})
         _write_part(ctx, ws, columns, lo, hi, rules, freeze_columns)
     if parts > 1:
         ctx.note(label, f"{n:,} rows: more than a sheet holds ({MAX_DATA_ROWS:,} data rows each), "
@@ -83,9 +87,13 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
               for j, col in enumerate(columns)]
     widths, formats = [], []
     for j, col in enumerate(columns):
-        width = WIDE_TEXT.get(col.header, col.width) if col.kind == "text" else col.width
+        wrap = col.kind == "text" and (col.header in WIDE_TEXT or col.widest > MAX_WIDTH)
+        width = min(WIDE_TEXT.get(col.header, MAX_WIDTH), max(col.width, 8)) if wrap else col.width
         widths.append(width)
-        fmt = st.number(col.num_format) if col.num_format else (st.text_cell if indent[j] else None)
+        if col.num_format:
+            fmt = st.number(col.num_format)
+        else:
+            fmt = st.wrap_cell[indent[j]] if wrap else (st.text_cell if indent[j] else st.top)
         formats.append(fmt)
         ws.set_column(j, j, width, fmt)
         head = st.header_number if col.kind == "number" else (st.header_text if indent[j] else st.header)
@@ -94,11 +102,15 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
     if fastrows.use_fast(hi - lo, len(columns), chars):   # same cells, XML built in bulk after the workbook closes
         ctx.add_bulk(ws, 1, [(j, c.values(lo, hi), formats[j]) for j, c in enumerate(columns)])
     else:
-        write_row = ws.write_row
+        wrapped = [(j, widths[j]) for j, f in enumerate(formats) if f in st.wrap_cell.values()]
+        write_row, set_row = ws.write_row, ws.set_row
         r = 1
         for start in range(lo, hi, BLOCK_ROWS):
             stop = min(hi, start + BLOCK_ROWS)
             for row in zip(*(c.block(start, stop) for c in columns)):
+                lines = max((wrapped_lines(row[j], w) for j, w in wrapped), default=1)
+                if lines > 1:            # applications do not grow a row for wrapped text on opening
+                    set_row(r, ROW_HEIGHT * lines)
                 write_row(r, 0, row)
                 r += 1
     last_row, last_col = max(hi - lo, 0), len(columns) - 1
@@ -110,6 +122,44 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
         ws.fit_to_pages(1, 0)
     if hi > lo:
         highlight_rows(ws, st, [c.header for c in columns], rules, last_row)
+
+
+def wrapped_lines(text: object, width: float) -> int:
+    """Lines `text` takes when wrapped in a column `width` characters wide (about; words kept whole)."""
+    if not isinstance(text, str) or len(text) <= width:
+        return 1
+    per_line = max(width * 1.1, 8)     # text runs about 1.2 characters a width unit
+    lines, used = 1, 0
+    for word in text.split(" "):
+        if used and used + 1 + len(word) > per_line:
+            lines, used = lines + 1, len(word)
+        else:
+            used += len(word) + (1 if used else 0)
+        lines += int(used // per_line) if used > per_line else 0
+        used = used % per_line if used > per_line else used
+    return min(lines, 409 // 15)
+
+
+def same_formats(columns: Sequence[Column]) -> None:
+    """Neighbours read alike: both interval ends with the same decimals, robust and Newey–West std
+    errors as the std error."""
+    by = {c.header: c for c in columns if c.kind == "number" and c.num_format}
+    ends = [by[h] for h in (INTERVAL_LOW, INTERVAL_HIGH) if h in by]
+    if len(ends) == 2 and ends[0].num_format != ends[1].num_format:
+        finer = max(ends, key=lambda c: _decimals(c.num_format))
+        for c in ends:
+            c.set_format(finer.num_format)
+    if STD_ERROR in by:
+        for c in by.values():
+            if c.header != STD_ERROR and c.header.startswith(("robust std error", "HAC std error")):
+                c.set_format(by[STD_ERROR].num_format)
+
+
+def _decimals(num_format: str | None) -> int:
+    """Decimals a fixed format shows; formats that are not fixed come first."""
+    if not num_format or not num_format.startswith("0"):
+        return 99
+    return len(num_format.split(".", 1)[1]) if "." in num_format else 0
 
 
 def highlight_rows(ws: Any, st: Any, headers: Sequence[str], rules: Sequence[Rule], last_row: int) -> None:
@@ -155,12 +205,13 @@ def _freeze(keys: Sequence[str]) -> int:
 # --- the four table sheets ---------------------------------------------------------------------
 
 def _contract_sheet(ctx: WriteContext, label: str, df: pd.DataFrame, required: Sequence[str],
-                    optional: Sequence[str] = (), rules: Sequence[Rule] = ()) -> None:
-    """A result table in contract column order, frozen on the group keys (its first columns)."""
+                    optional: Sequence[str] = (), rules: Sequence[Rule] = (), head_note: str = "") -> None:
+    """A result table in contract column order, frozen on the group keys (its first columns); `head_note`
+    becomes a comment on the first header."""
     keys = ctx.results.key_headers(df)
     _note_renamed(ctx, label, ctx.results.group_columns, keys)
     write_table(ctx, label, df, ordered_columns(df, keys, required, optional),
-                freeze_columns=_freeze(keys), rules=rules)
+                freeze_columns=_freeze(keys), rules=rules, head_note=head_note)
 
 
 def _note_renamed(ctx: WriteContext, label: str, user: Sequence[str], shown: Sequence[str]) -> None:
@@ -170,11 +221,16 @@ def _note_renamed(ctx: WriteContext, label: str, user: Sequence[str], shown: Seq
         ctx.note(label, rename_note(pairs))
 
 
+GROUP_ORDER = ("Groups are listed in the order they first appear in the input, fitted or not (not sorted); "
+               "sort or filter on any column, e.g. flags, to bring the groups that need attention first.")
+
+
 def groups_sheet(ctx: WriteContext) -> None:
     _contract_sheet(ctx, "groups", ctx.results.groups, GROUPS, rules=(
         Rule(STATUS, '{c}="not fitted"', "left_out"),
         Rule(FLAGS, "{c}>0", "check_failed"),
-    ))
+    ), head_note=GROUP_ORDER)
+    ctx.note("groups", "order: " + GROUP_ORDER[0].lower() + GROUP_ORDER[1:])
 
 
 def coefficients_sheet(ctx: WriteContext) -> None:

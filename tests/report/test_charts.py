@@ -156,7 +156,7 @@ def test_no_fitted_group_means_no_charts_and_no_chart_data(make_results, tmp_pat
     res = make_results(labels=["A", "B"], not_fitted=["A", "B"])
     path = write_results(res, tmp_path / "none.xlsx")
     wb = openpyxl.load_workbook(path)
-    assert wb.sheetnames == ["groups", "coefficients", "checks", "observations", "charts", "about"]
+    assert wb.sheetnames == ["attention", "groups", "coefficients", "checks", "observations", "charts", "about"]
     assert "no group could be fitted" in wb["charts"]["A1"].value and chart_parts(path) == []
 
 

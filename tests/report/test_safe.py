@@ -54,7 +54,7 @@ def test_existing_output_is_kept_without_overwrite(make_results, tmp_path):
     assert "\n" not in str(err.value)
     assert out.read_bytes() == b"colleague's file"
     write_results(res, out, overwrite=True)
-    assert openpyxl.load_workbook(out).sheetnames[0] == "groups"
+    assert openpyxl.load_workbook(out).sheetnames[0] == "attention"
 
 
 def test_default_output_sits_beside_the_input(make_results):

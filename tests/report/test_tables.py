@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import re
 import zipfile
 
 import numpy as np
@@ -17,7 +18,7 @@ from sheetfit.report import write_results
 from sheetfit.report.book import SheetNames
 from sheetfit.report.columns import P_VALUE_FORMAT
 
-CORE = ["groups", "coefficients", "checks", "observations", "charts", "overview", "about", "chart data"]
+CORE = ["attention", "groups", "coefficients", "checks", "observations", "charts", "overview", "about", "chart data"]
 GROUPS = ["site", "status", "flags", "reasons", "R²", "adjusted R²", "F", "F p-value", "residual std error", "RMSE",
           "CV(RMSE) %", "rows used", "rows not used", "number of coefficients", "AIC", "BIC"]
 COEFS = ["site", "input", "coefficient", "interval low", "interval high", "std error", "t", "p-value"]
@@ -45,7 +46,7 @@ def written(make_results, tmp_path):
 
 def test_sheets_in_contract_order(written):
     _, _, wb = written
-    assert wb.sheetnames[:7] == CORE[:7]
+    assert wb.sheetnames[:8] == CORE[:8]
     assert "chart data" in wb.sheetnames[7:]       # add-on sheets may sit between about and the data
 
 
@@ -85,7 +86,10 @@ def test_hostile_labels_are_text_on_every_sheet(written):
     assert not [c for name in CORE for row in wb[name].iter_rows() for c in row if c.data_type == "f"]
     with zipfile.ZipFile(path) as z:
         xml = [z.read(n).decode() for n in z.namelist() if n.startswith("xl/worksheets/")]
-    assert not any("<hyperlink" in x or "relationships/hyperlink" in x for x in xml)
+    # the only links are the attention sheet's internal links to rows on groups, never input text
+    links = [h for x in xml for h in re.findall(r"<hyperlink [^>]*>", x)]
+    assert all("location=\"'groups'!A" in h and "r:id" not in h for h in links), links
+    assert not any("relationships/hyperlink" in x for x in xml)
 
 
 def test_non_finite_numbers_become_empty_cells_with_a_note(written):
@@ -174,7 +178,7 @@ def test_a_long_table_continues_on_a_second_sheet(make_results, tmp_path, monkey
     res = make_results(labels=["North", "South", "West"])
     wb = openpyxl.load_workbook(write_results(res, tmp_path / "split.xlsx"))
     parts = ["observations", "observations (2)", "observations (3)"]
-    assert wb.sheetnames[3:6] == parts and wb.sheetnames[6] == "charts"
+    assert wb.sheetnames[4:7] == parts and wb.sheetnames[7] == "charts"
     got = [r for p in parts for r in data_rows(wb[p])]
     assert [header(wb[p]) for p in parts] == [OBS] * 3
     assert [r[OBS.index("source row")] for r in got] == res.observations["source row"].tolist()
@@ -262,7 +266,7 @@ def test_extra_sheets_plug_in_after_the_core_ones(make_results, tmp_path):
     wb = openpyxl.load_workbook(write_results(res, tmp_path / "ext.xlsx", extra_sheets=[extra]))
     names = wb.sheetnames
     mine = [n for n in names if n.startswith("extra")]
-    assert names[:7] == CORE[:7] and names[-1] == mine[-1] and len(mine) == 2
+    assert names[:8] == CORE[:8] and names[-1] == mine[-1] and len(mine) == 2
     assert names.index(mine[0]) < names.index("chart data") < names.index(mine[1])
     assert wb[mine[1]].sheet_state == "hidden" and wb[mine[0]]["A1"].value == f"data on {mine[1]}"
     assert any(r[1] == "one sheet added" for r in wb["about"].iter_rows(values_only=True))
