@@ -23,9 +23,9 @@ from sheetfit.read.cells import (
     group_labels,
     header_name,
     label,
-    parse_column,
     parse_text,
 )
+from sheetfit.read.columns import parse_column
 
 # (text, value with no decimal mark set) — one row per rule in the cells.py docstring
 AUTO = [

@@ -125,7 +125,7 @@ def test_small_scan_chunks_give_the_same_marks(messy, monkeypatch):
     """The XML scan cuts its buffer between rows; tiny chunks must find the same cells."""
     with zipfile.ZipFile(messy) as zf:
         whole = xlsxscan.scan_sheet(zf, "xl/worksheets/sheet1.xml")
-        monkeypatch.setattr(xlsxscan, "_CHUNK", 1500)
+        monkeypatch.setattr(xlsxscan, "CHUNK", 1500)
         pieces = xlsxscan.scan_sheet(zf, "xl/worksheets/sheet1.xml")
         exact = xlsxscan._scan_slow(zf, "xl/worksheets/sheet1.xml")       # element-by-element parse
     assert whole == pieces == exact

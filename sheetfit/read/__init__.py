@@ -10,6 +10,7 @@ Modules, in the order a file passes through them (each imports only modules list
                  encryption checks before any reader opens it.
 * `grid`         Grid (one sheet's cells), Region (a table or defined name), A1 reference parsing.
 * `cells`        one cell value → number, date or the reason it is neither; group labels, headers.
+* `columns`      a whole column of cells → numbers and reasons in bulk, by the rules of `cells`.
 * `book`         Book, the interface every format reader implements.
 * `calamine`     what the python-calamine readers share: opening, error wrapping, SheetMarks → Grid.
 * `xlsxscan`     the .xlsx sheet-XML scan for error cells, formulas without results, hidden rows/columns.

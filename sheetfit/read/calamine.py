@@ -27,6 +27,7 @@ class SheetMarks:
     no_result: list[tuple[int, int]] = field(default_factory=list)
     hidden_rows: set[int] = field(default_factory=set)
     hidden_cols: set[int] = field(default_factory=set)
+    repeated_row: int | None = None       # a row number two rows of the sheet XML claim (.xlsx)
 
 
 def calamine_call(fn, name: str):

@@ -13,7 +13,21 @@ Numbers stored as text (rule, in this order):
 * With no decimal mark set, the point rule is tried first and the comma rule second, so
   "1,234" is 1234 and "12,5" is 12.5; with a mark set (CSV `decimal`), only that rule applies.
 * ISO dates "2024-01-31" and date-times "2024-01-31 08:30" are dates; "true"/"false" are 1/0.
-* Anything else (including "nan", "inf", "1_000", "01/02/2024") is not a number.
+* Anything else (including "nan", "inf", "1_000", "01/02/2024") is not a number, and so is any text
+  longer than MAX_NUMBER_TEXT (100) characters once the spaces around it are stripped.
+
+Every pattern applied to cell text runs in time linear in the text's length: no two neighbouring
+quantifiers can match the same characters, so a failed match never retries the ways of splitting a
+run of spaces or digits between them (a cell of "1", 1,600 spaces and "2" once took 50 s); the
+signs, currency and percent around a number are taken off by plain string steps (`_affixes`).
+
+Group labels are text as written: a number stored as text keeps its digits (no round trip through
+a float, so IDs such as "9007199254740993" and "9007199254740992" stay two groups) and only loses
+a "+" sign, trailing zeros of its decimal part and the spaces around it, so "101", " 101 " and
+"101.0" are the label "101" as the number cell 101 is. A number cell's label is the shortest text
+that reads back as the same number, whole numbers without ".0" or exponent (below 1e21).
+Labels are put in Unicode normal form NFC, so one name typed with composed and with decomposed
+accents is one group (`group_labels_and_forms` says which labels were written both ways).
 """
 
 from __future__ import annotations
@@ -21,6 +35,8 @@ from __future__ import annotations
 import datetime as dt
 import math
 import re
+import unicodedata
+from decimal import Decimal
 from functools import lru_cache
 
 import numpy as np
@@ -32,7 +48,7 @@ EMPTY = "empty cell"
 NO_RESULT_REASON = "formula without a saved result"
 BLANK_LABEL = "(blank)"
 EPOCH = dt.datetime(1899, 12, 30)          # spreadsheet day 0; only differences matter here
-_EPOCH_ORDINAL = EPOCH.toordinal()
+EPOCH_ORDINAL = EPOCH.toordinal()
 
 
 class ErrorCell:
@@ -65,18 +81,25 @@ class _NoResult:
 NO_RESULT = _NoResult()
 
 _ZERO_WIDTH = "\u200b\ufeff"
+MAX_NUMBER_TEXT = 100                          # longer text (stripped) is never a number
 _THOU_DOT = r"[,'\u2019 \u00a0\u202f\u2009]"   # thousands marks allowed with a decimal point
 _THOU_COMMA = r"[. \u00a0\u202f\u2009]"        # thousands marks allowed with a decimal comma
+# Linear: `int` and `grp` are each tried once from the start; every run of digits ends at a required
+# literal (a thousands mark, ".", ",", "e"), so no run can be split between two quantifiers.
 _POINT = re.compile(rf"(?:(?P<int>\d+)|(?P<grp>[1-9]\d{{0,2}}(?P<s>{_THOU_DOT})\d{{3}}(?:(?P=s)\d{{3}})*))?"
                     r"(?:\.(?P<frac>\d*))?(?P<exp>[eE][+-]?\d+)?", re.ASCII)
 _COMMA = re.compile(rf"(?:(?P<int>\d+)|(?P<grp>[1-9]\d{{0,2}}(?P<s>{_THOU_COMMA})\d{{3}}(?:(?P=s)\d{{3}})*))?"
                     r"(?:,(?P<frac>\d*))?(?P<exp>)", re.ASCII)
-_AFFIX = re.compile(r"(?P<s1>[+-]?)[ \u00a0]*(?P<c1>[$€£¥]?)[ \u00a0]*(?P<s2>[+-]?)[ \u00a0]*(?P<body>.*?)"
-                    r"[ \u00a0]*(?P<c2>[$€£¥]?)[ \u00a0]*(?P<pct>%?)", re.DOTALL)
+_SPACES = " \u00a0"                           # spaces allowed between a sign, a currency sign and the number
+_SIGNS = "+-"
+_CURRENCY = "$€£¥"
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}(?:[ T]\d{2}:\d{2}(?::\d{2}(?:\.\d{1,6})?)?)?", re.ASCII)
-PLAIN_NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
-_PLAIN_COMMA = re.compile(r"[+-]?\d+(?:,\d+)?", re.ASCII)
+# Linear: the digits before the point and after it are separated by a required "." (the old
+# `\d+\.?\d*` let two runs share the same digits and took quadratic time on "1111…x").
+PLAIN_NUMBER = re.compile(r"\s*[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?\s*", re.ASCII)
+PLAIN_COMMA = re.compile(r"[+-]?\d+(?:,\d+)?", re.ASCII)
 _LABEL_NUMBER = re.compile(r"[+-]?(?:0|[1-9]\d*)(?:\.\d+)?", re.ASCII)
+_EXACT_DIGITS = 15                             # decimal digits every float keeps exactly
 
 
 def _strip(text: str) -> str:
@@ -86,8 +109,9 @@ def _strip(text: str) -> str:
 
 def shown(text: str, limit: int = 40) -> str:
     """Text safe to quote in a one-line message: control characters replaced, long text cut."""
-    t = "".join(ch if ch.isprintable() else " " for ch in str(text)).strip()
-    return t if len(t) <= limit else t[: limit - 1] + "…"
+    t = str(text).strip()
+    head = "".join(ch if ch.isprintable() else " " for ch in t[: limit + 1]).strip()   # only what is shown
+    return head if len(t) <= limit else head[: limit - 1] + "…"
 
 
 def _body(body: str, rule: re.Pattern[str]) -> float | None:
@@ -104,10 +128,17 @@ def _body(body: str, rule: re.Pattern[str]) -> float | None:
     return value if math.isfinite(value) else None
 
 
-@lru_cache(maxsize=65536)
 def parse_text(text: str, decimal: str | None = None) -> tuple[float, str | None, bool]:
     """(value, problem, is_date) for text; problem is None when the text is a number or date."""
     t = _strip(text)
+    if len(t) > MAX_NUMBER_TEXT:     # not cached: long text would keep its memory alive in the cache
+        return math.nan, f'text "{shown(t, 30)}" ({len(t):,} characters) is not a number', False
+    return _parse_short(t, decimal)
+
+
+@lru_cache(maxsize=65536)
+def _parse_short(t: str, decimal: str | None) -> tuple[float, str | None, bool]:
+    """parse_text for stripped text of at most MAX_NUMBER_TEXT characters."""
     if not t:
         return math.nan, EMPTY, False
     if t.upper() in ERROR_CODES:
@@ -129,14 +160,49 @@ def parse_text(text: str, decimal: str | None = None) -> tuple[float, str | None
     return value, None, False
 
 
+def _affixes(t: str) -> tuple[str, str, str, str, str, str]:
+    """(sign, currency, sign, body, currency, percent) around a number, each '' when absent.
+
+    The same split as the pattern `([+-]?) *([$€£¥]?) *([+-]?) *(.*?) *([$€£¥]?) *(%?)` matched
+    whole (spaces: ' ' or no-break), taken by index steps so it is linear in the text's length.
+    """
+    n, i = len(t), 0
+
+    def take(chars: str) -> str:
+        nonlocal i
+        if i < n and t[i] in chars:
+            i += 1
+            return t[i - 1]
+        return ""
+
+    def skip() -> None:
+        nonlocal i
+        while i < n and t[i] in _SPACES:
+            i += 1
+
+    s1 = take(_SIGNS)
+    skip()
+    c1 = take(_CURRENCY)
+    skip()
+    s2 = take(_SIGNS)
+    skip()
+    j = n
+    pct = "%" if j > i and t[j - 1] == "%" else ""
+    j -= len(pct)
+    while j > i and t[j - 1] in _SPACES:
+        j -= 1
+    c2 = t[j - 1] if j > i and t[j - 1] in _CURRENCY else ""
+    j -= len(c2)
+    while j > i and t[j - 1] in _SPACES:
+        j -= 1
+    return s1, c1, s2, t[i:j], c2, pct
+
+
 def _number(t: str, decimal: str | None) -> float | None:
     negative = False
     if t.startswith("(") and t.endswith(")"):
         negative, t = True, _strip(t[1:-1])
-    m = _AFFIX.fullmatch(t)
-    if m is None:
-        return None
-    s1, c1, s2, body, c2, pct = m.group("s1", "c1", "s2", "body", "c2", "pct")
+    s1, c1, s2, body, c2, pct = _affixes(t)
     if (s1 and s2) or (c1 and c2) or (pct and (c1 or c2)) or (negative and (s1 or s2)):
         return None
     if s2 and not c1:              # "-+12" style: two signs with nothing between
@@ -154,13 +220,14 @@ def _number(t: str, decimal: str | None) -> float | None:
     return value / 100.0 if pct else value
 
 
-def _day_fraction(t: dt.datetime | dt.time) -> float:
+def day_fraction(t: dt.datetime | dt.time) -> float:
+    """The time of day as a fraction of a day."""
     return (t.hour * 3600 + t.minute * 60 + t.second + t.microsecond / 1e6) / 86400.0
 
 
 def datetime_days(stamp: dt.datetime) -> float:
     """Days since the spreadsheet epoch, with the time of day as a fraction."""
-    return float(stamp.toordinal() - _EPOCH_ORDINAL) + _day_fraction(stamp)
+    return float(stamp.toordinal() - EPOCH_ORDINAL) + day_fraction(stamp)
 
 
 def cell_number(v: object, decimal: str | None = None) -> tuple[float, str | None, bool]:
@@ -175,9 +242,9 @@ def cell_number(v: object, decimal: str | None = None) -> tuple[float, str | Non
     if isinstance(v, dt.datetime):
         return datetime_days(v.replace(tzinfo=None)), None, True
     if isinstance(v, dt.date):
-        return float(v.toordinal() - _EPOCH_ORDINAL), None, True
+        return float(v.toordinal() - EPOCH_ORDINAL), None, True
     if isinstance(v, dt.time):
-        return _day_fraction(v), None, True
+        return day_fraction(v), None, True
     if isinstance(v, dt.timedelta):
         return v.total_seconds() / 86400.0, None, False
     if isinstance(v, ErrorCell):
@@ -189,115 +256,32 @@ def cell_number(v: object, decimal: str | None = None) -> tuple[float, str | Non
     return math.nan, f"unsupported value {shown(repr(v))}", False
 
 
-class ParsedColumn:
-    """A column as float64 values, per-row problems (None when usable) and whether it held dates."""
-
-    __slots__ = ("values", "problems", "has_dates")
-
-    def __init__(self, values: np.ndarray, problems: np.ndarray, has_dates: bool):
-        self.values, self.problems, self.has_dates = values, problems, has_dates
-
-    @property
-    def blank(self) -> np.ndarray:
-        return self.problems == EMPTY
-
-
-def parse_column(cells: list, decimal: str | None = None) -> ParsedColumn:
-    """Parse a column in bulk: numbers and dates at C speed, text once per distinct value, the rest one by one."""
-    n = len(cells)
-    problems = np.full(n, None, dtype=object)
-    if n == 0:
-        return ParsedColumn(np.empty(0), problems, False)
-    kinds = set(map(type, cells))
-    if kinds == {float}:
-        values = np.array(cells, dtype=np.float64)
-        bad = ~np.isfinite(values)
-        problems[bad] = "not a finite number"
-        values[bad] = np.nan
-        return ParsedColumn(values, problems, False)
-    values = np.full(n, np.nan)
-    obj = np.array(cells, dtype=object) if not isinstance(cells, np.ndarray) else cells
-    rest = np.arange(n)
-    has_dates = False
-
-    def take(kind: type) -> np.ndarray:
-        """Positions (in `rest`) of cells of `kind`, removed from `rest`."""
-        nonlocal rest
-        if kinds == {kind}:
-            hit, rest = rest, rest[:0]
-            return hit
-        mask = np.fromiter(map(kind.__instancecheck__, obj[rest]), dtype=bool, count=len(rest))
-        hit, rest = rest[mask], rest[~mask]
-        return hit
-
-    if float in kinds:
-        at = take(float)
-        values[at] = obj[at].astype(np.float64)
-        bad = at[~np.isfinite(values[at])]
-        problems[bad], values[bad] = "not a finite number", np.nan
-    if str in kinds:
-        at = take(str)
-        has_dates |= _parse_texts(obj[at], at, values, problems, decimal)
-    if kinds & {dt.date, dt.datetime}:
-        at = take(dt.date)
-        days = np.fromiter(map(dt.date.toordinal, obj[at]), dtype=np.float64, count=len(at)) - _EPOCH_ORDINAL
-        timed = np.fromiter(map(dt.datetime.__instancecheck__, obj[at]), dtype=bool, count=len(at))
-        if timed.any():
-            days[timed] += np.fromiter(map(_day_fraction, obj[at[timed]]), dtype=np.float64, count=int(timed.sum()))
-        values[at] = days
-        has_dates = True
-    for i in rest.tolist():
-        value, problem, is_date = cell_number(obj[i], decimal)
-        values[i] = value
-        if problem is not None:
-            problems[i] = problem
-        elif is_date:
-            has_dates = True
-    return ParsedColumn(values, problems, has_dates)
-
-
-def _parse_texts(texts: np.ndarray, at: np.ndarray, values: np.ndarray, problems: np.ndarray,
-                 decimal: str | None) -> bool:
-    """Text cells: plain decimal numbers by one regex pass and one conversion, other text once per distinct
-    value. Fills `values`/`problems` at positions `at`; True when some text was a date."""
-    import pandas as pd
-
-    if decimal != "," and len(texts) > 64:
-        joined = "".join(texts.tolist())
-        if joined.isascii() and "_" not in joined:   # then numpy reads exactly the plain decimal numbers
-            try:
-                converted = np.array(texts.tolist(), dtype=np.float64)
-            except ValueError:
-                pass
-            else:
-                finite = np.isfinite(converted)
-                values[at[finite]] = converted[finite]
-                texts, at = texts[~finite], at[~finite]
-    plain = _PLAIN_COMMA if decimal == "," else PLAIN_NUMBER
-    hit = np.fromiter(map(bool, map(plain.fullmatch, texts)), dtype=bool, count=len(texts))
-    if hit.any():
-        text = texts[hit]
-        if decimal == ",":
-            text = np.array([t.replace(",", ".") for t in text], dtype=object)
-        converted = np.array(text.tolist(), dtype=np.float64)
-        finite = np.isfinite(converted)            # "1e999" overflows: left to the rules below
-        values[at[hit][finite]] = converted[finite]
-        hit[np.flatnonzero(hit)[~finite]] = False
-        texts, at = texts[~hit], at[~hit]
-    if len(texts) == 0:
-        return False
-    codes, uniques = pd.factorize(texts)
-    parsed = [parse_text(u, decimal) for u in uniques]
-    values[at] = np.array([p[0] for p in parsed], dtype=np.float64)[codes]
-    problems[at] = np.array([p[1] for p in parsed], dtype=object)[codes]
-    return any(p[2] for p in parsed)
-
-
 def number_label(value: float) -> str:
-    """Label of a number: integral values without a decimal part, others in shortest form."""
-    if math.isfinite(value) and value == int(value) and abs(value) < 1e15:
-        return str(int(value))
-    return repr(float(value))
+    """Label of a number: the shortest text that reads back as the same float; whole numbers below 1e21
+    without ".0" or exponent (101.0 → "101", 1.2345678901234568e16 → "12345678901234568")."""
+    value = float(value)
+    if value == 0:
+        return "0"
+    text = repr(value)
+    if text.endswith(".0"):
+        return text[:-2]
+    if "e" in text and math.isfinite(value) and value == int(value) and abs(value) < 1e21:
+        return format(Decimal(text), "f")
+    return text
+
+
+def _text_number_label(t: str) -> str:
+    """Label of text shaped like a plain decimal number (`_LABEL_NUMBER`), as written.
+
+    Up to 15 significant digits (which a float keeps exactly) it is the label of the same number in a
+    number cell, as before; longer digit strings stay as written, without a "+" sign and trailing zeros
+    of the decimal part, so IDs that one float cannot tell apart stay apart.
+    """
+    whole, _, frac = t.lstrip("+-").partition(".")
+    if len((whole + frac).strip("0")) <= _EXACT_DIGITS:
+        return number_label(float(t))
+    frac = frac.rstrip("0")
+    return ("-" if t.startswith("-") else "") + whole + ("." + frac if frac else "")
 
 
 def label(v: object) -> str:
@@ -307,12 +291,14 @@ def label(v: object) -> str:
         if not t:
             return BLANK_LABEL
         if _LABEL_NUMBER.fullmatch(t):
-            return number_label(float(t))
+            return _text_number_label(t)
         return t
     if isinstance(v, bool):
         return "TRUE" if v else "FALSE"
-    if isinstance(v, (int, float)):
-        return number_label(float(v)) if math.isfinite(float(v)) else str(v)
+    if isinstance(v, int):
+        return str(v)
+    if isinstance(v, float):
+        return number_label(v) if math.isfinite(v) else str(v)
     if isinstance(v, dt.datetime):
         return v.isoformat(sep=" ")
     if isinstance(v, (dt.date, dt.time)):
@@ -326,20 +312,38 @@ def label(v: object) -> str:
     return shown(str(v), 200)
 
 
+def key_label(v: object) -> str:
+    """The group label one cell gets when read (`label` in Unicode form NFC), for matching new rows to groups."""
+    text = label(v)
+    return text if text.isascii() else unicodedata.normalize("NFC", text)
+
+
 def group_labels(cells: list) -> np.ndarray:
     """Labels for a whole column (object array of str), computed once per distinct value."""
+    return group_labels_and_forms(cells)[0]
+
+
+def group_labels_and_forms(cells: list) -> tuple[np.ndarray, dict[str, set[str]]]:
+    """Labels for a whole column (in NFC), and for each label that is not plain ASCII the forms it was
+    written in (more than one: the same name typed with composed and with decomposed accents)."""
     import pandas as pd
 
     n = len(cells)
     if n == 0:
-        return np.empty(0, dtype=object)
+        return np.empty(0, dtype=object), {}
     obj = np.array(cells, dtype=object) if not isinstance(cells, np.ndarray) else cells.copy()
     is_bool = np.fromiter(map(bool.__instancecheck__, obj), dtype=bool, count=n)
     if is_bool.any():              # True == 1 in Python: label booleans before hashing
         obj[is_bool] = ["TRUE" if b else "FALSE" for b in obj[is_bool]]
     codes, uniques = pd.factorize(obj)
-    labels = np.array([label(u) for u in uniques] + [BLANK_LABEL], dtype=object)
-    return labels[codes]
+    written = [label(u) for u in uniques]
+    forms: dict[str, set[str]] = {}
+    for i, text in enumerate(written):
+        if not text.isascii():
+            written[i] = unicodedata.normalize("NFC", text)
+            forms.setdefault(written[i], set()).add(text)
+    labels = np.array(written + [BLANK_LABEL], dtype=object)
+    return labels[codes], forms
 
 
 def header_name(v: object) -> str:

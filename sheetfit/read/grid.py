@@ -78,6 +78,13 @@ class Grid:
         self.rectangular = True
 
 
+def pad_rows(rows: list[list], width: int) -> None:
+    """Give each row shorter than `width` empty cells up to it; longer rows stay as they are."""
+    for r in rows:
+        if len(r) < width:
+            r.extend([""] * (width - len(r)))
+
+
 @dataclass(frozen=True)
 class Region:
     """A rectangle of one sheet (1-based rows, 0-based columns, inclusive) named by a table or a defined name."""

@@ -2,16 +2,19 @@
 number, group labels, the numbers the model needs, and the reason whenever a row cannot be used.
 
 Flow: `safety.sniff` names the format, `formats.open_book` opens the reader, each sheet comes back
-as a `grid.Grid`, `headers` finds the column names, `cells` parses the columns, and the parts of all
-sheets are joined into one table with a reason per unusable row. The file's SHA-256 is computed in
-a second thread meanwhile.
+as a `grid.Grid`, `headers` finds the column names, `columns` parses the columns (by the rules of
+`cells`), and the parts of all sheets are joined into one table with a reason per unusable row. The
+file's SHA-256 is computed in a second thread meanwhile.
 
 Rules (see also `sheetfit.read.cells` for how one cell becomes a number):
 * The header is found by `sheetfit.read.headers` (first non-empty row unless told; merged cells filled).
 * A row whose cells are all blank is not data and is not counted; every other row appears once.
 * Group labels are text: numbers and text that look alike are one label (101, 101.0, "101" →
-  "101"); blank → "(blank)", an error under --strict. Group cells inside merged cells take the
-  merged value.
+  "101"), long digit strings stay as written (see `sheetfit.read.cells`); blank → "(blank)", an
+  error under --strict. Group cells inside merged cells take the merged value. A label written
+  with composed and with decomposed accents is one group, with a warning naming it.
+* Rows may be ragged (CSV): each is padded only as far as the columns used, so one very wide line
+  does not widen every other row.
 * Dates and times become days; in each group the earliest one is day 0.
 """
 
@@ -40,9 +43,10 @@ from ..job import FitJob
 from ..provenance import file_sha256
 from ..terms import parse_terms, source_columns
 from .book import Book
-from .cells import BLANK_LABEL, group_labels, is_blank, parse_column
+from .cells import BLANK_LABEL, group_labels_and_forms, is_blank, shown
+from .columns import parse_column
 from .formats import open_book
-from .grid import Grid, Region
+from .grid import Grid, Region, pad_rows
 from .headers import Header, find_header, no_duplicates
 from .safety import sniff
 from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
@@ -64,6 +68,7 @@ class _Part:
     hidden_cols: int = 0
     no_result: list[str] = field(default_factory=list)
     merged_labels: list[str] = field(default_factory=list)
+    label_forms: dict[str, dict[str, set[str]]] = field(default_factory=dict)   # column → label → forms
 
 
 @contextmanager
@@ -136,6 +141,7 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
     if merged:
         warnings.append(f"group labels in merged cells were given to every row they cover: "
                         f"{', '.join(merged[:_SHOW])}{' and more' if len(merged) > _SHOW else ''}")
+    warnings += _two_forms(parts)
     if job.strict:
         _strict(data, spec)
     info = ReadInfo(
@@ -241,12 +247,14 @@ def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> 
             raise ColumnNotFoundError(not_found_message("column", name, list(header.names)) +
                                       f' (header row {header.row} of sheet "{grid.sheet}")')
         col_of[name] = cols[0]
+    if not grid.rectangular:
+        pad_rows(rows, max(col_of.values()) - grid.left + 1)
     getters = {name: itemgetter(c - grid.left) for name, c in col_of.items()}
-    labels, numbers, merged_refs = {}, {}, []
+    labels, numbers, merged_refs, forms = {}, {}, [], {}
     for name in spec.group_in:
         values = list(map(getters[name], rows)) if n else []
         merged_refs += _fill_merged(values, grid, col_of[name], first, bottom)
-        labels[name] = group_labels(values)
+        labels[name], forms[name] = group_labels_and_forms(values)
     for name in spec.numeric:
         numbers[name] = parse_column(list(map(getters[name], rows)) if n else [], decimal)
     blank = np.ones(n, dtype=bool)
@@ -271,7 +279,22 @@ def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> 
     return _Part(grid.sheet, row_numbers, labels, numbers, header.row,
                  hidden_rows=len(kept & grid.hidden_rows),
                  hidden_cols=len(used_cols & grid.hidden_cols),
-                 no_result=no_result, merged_labels=merged_refs)
+                 no_result=no_result, merged_labels=merged_refs, label_forms=forms)
+
+
+def _two_forms(parts: list[_Part]) -> list[str]:
+    """One warning naming the group labels written in two Unicode forms (read as one group each)."""
+    forms: dict[tuple[str, str], set[str]] = {}
+    for p in parts:
+        for column, by_label in p.label_forms.items():
+            for name, written in by_label.items():
+                forms.setdefault((column, name), set()).update(written)
+    twice = [f'"{shown(name)}" ({column})' for (column, name), written in forms.items() if len(written) > 1]
+    if not twice:
+        return []
+    more = f" and {len(twice) - _SHOW} more" if len(twice) > _SHOW else ""
+    return [(f"group labels written two ways (the same letters stored as composed and as decomposed accents) "
+             f"were read as one group each: {', '.join(twice[:_SHOW])}{more}")]
 
 
 def _fill_merged(values: list, grid: Grid, col: int, first: int, bottom: int) -> list[str]:

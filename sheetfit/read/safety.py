@@ -1,13 +1,17 @@
 """Safety checks and format sniffing: what an input file is, decided from its bytes before any reader opens it.
 
-Checks run on the raw bytes, in this order: the path exists and is a file; the content (not the
-name) says which format it is; a zip's declared unpacked size is within the limit; no XML part
-declares a document type (the door to entity-expansion attacks); encrypted files are named as such.
+Checks run on the raw bytes, in this order: the path exists and is a regular file (a FIFO, device or
+socket is refused before anything opens it, since opening or reading one can wait forever) that can
+be opened; the content (not the name) says which format it is; a zip's declared unpacked size is
+within the limit; no XML part declares a document type (the door to entity-expansion attacks);
+encrypted files are named as such.
 `sniff` returns the format name that `sheetfit.read.formats.open_book` takes.
 """
 
 from __future__ import annotations
 
+import os
+import stat
 import zipfile
 import zlib
 from pathlib import Path
@@ -23,18 +27,33 @@ _ENCRYPTED_MARK = "EncryptedPackage".encode("utf-16-le")
 _FIX = "save it again as .xlsx, .xlsm, .xls, .ods or .csv"
 
 
+_KINDS = ((stat.S_ISFIFO, "a named pipe (FIFO)"), (stat.S_ISSOCK, "a socket"), (stat.S_ISCHR, "a device"),
+          (stat.S_ISBLK, "a device"))          # worded as the CLI's own check of its argument
+
+
 def check_path(path: Path) -> None:
-    """Missing file, folder or unreadable path → InputFileError."""
-    if not path.exists():
-        raise InputFileError(f'input file "{path}" not found; check the path and the file name')
-    if path.is_dir():
+    """Missing file, folder, anything but a regular file, or an unreadable one → InputFileError (one line).
+
+    Decided from `os.stat` before any open: opening a FIFO waits for a writer that may never come."""
+    try:
+        mode = os.stat(path).st_mode
+    except (FileNotFoundError, NotADirectoryError):
+        raise InputFileError(f'input file "{path}" not found; check the path and the file name') from None
+    except OSError as exc:
+        raise InputFileError(f'input file "{path}" cannot be read ({exc.strerror or exc}); check the path '
+                             f'and its permissions') from None
+    if stat.S_ISDIR(mode):
         raise InputFileError(f'"{path}" is a folder, not a file; give the path of a workbook '
                              f'(.xlsx, .xlsm, .xls, .ods) or a .csv file')
+    if not stat.S_ISREG(mode):
+        kind = next((name for test, name in _KINDS if test(mode)), "a special file")
+        raise InputFileError(f'"{path}" is not a regular file (it is {kind}); save the data to a file '
+                             f'(.xlsx, .xlsm, .xls, .ods or .csv) and give its path')
     try:
         with path.open("rb"):
             pass
     except OSError as exc:
-        raise InputFileError(f'input file "{path}" cannot be opened ({exc.strerror or exc}); '
+        raise InputFileError(f'input file "{path}" cannot be read ({exc.strerror or exc}); '
                              f'check its permissions') from None
 
 

@@ -1,6 +1,7 @@
 """.xlsx/.xlsm: cell values by python-calamine, plus what calamine cannot report (error cells,
 formulas without a saved result, hidden rows/columns) from `sheetfit.read.xlsxscan`, run in a
 second thread while calamine reads. Tables and defined names (`--table`) become `Region`s.
+A sheet whose XML numbers two rows alike (calamine would keep one) is refused as damaged.
 """
 
 from __future__ import annotations
@@ -39,6 +40,9 @@ class XlsxBook(CalamineZipBook):
             ws, rows, start = self.calamine_sheet(sheet)
             merged = [(r1 + 1, c1, r2 + 1, c2) for (r1, c1), (r2, c2) in (ws.merged_cell_ranges or [])]
             marks = _scan_result(scan, self.path.name) if scan else SheetMarks()
+        if marks.repeated_row is not None:
+            raise damaged_error(self.path.name, f'sheet "{sheet}" holds two rows numbered {marks.repeated_row} in '
+                                                f'its XML, and only one of them would be read')
         return marked_grid(sheet, rows, start, merged, marks)
 
     def region_names(self) -> list[str]:

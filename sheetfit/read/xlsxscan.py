@@ -1,31 +1,54 @@
-""".xlsx/.xlsm sheet XML → `SheetMarks`: error cells, formulas without a saved result and hidden
-rows/columns, the things python-calamine does not report.
+""".xlsx/.xlsm sheet XML → `SheetMarks`: error cells, formulas without a saved result, hidden
+rows/columns, the things python-calamine does not report, and a row number the XML repeats.
 
 One streaming pass over the sheet part's decompressed bytes (`scan_sheet`), run by `XlsxBook` in a
 second thread while calamine reads the values. It finds `t="e"` cells, formula cells with no `<v>`
 and hidden rows/columns by plain substring and regular-expression search, so a sheet without any
 of them costs one decompression. Cells without an `r` reference (legal, rare) switch to an exact
 element-by-element parse (`_scan_slow`).
+
+The bytes come in pieces (`sheet_pieces`) of at most CHUNK + MAX_CARRY bytes, each cut where a row
+or cell starts, so every cell lies whole in one piece. Only the last MAX_CARRY bytes of a chunk
+are searched for that start; when none is there (whitespace padding, or one cell larger than
+that), only an unfinished tag is carried over, and a tag longer than MAX_CARRY means a damaged
+file. Memory therefore stays O(CHUNK) whatever follows the last row.
+
+Row numbers (`<row r="5">`) are collected as they pass: two rows claiming one number make
+calamine keep only one of them, so `SheetMarks.repeated_row` names the first such number and the
+reader refuses the sheet rather than lose a row without a word.
 """
 
 from __future__ import annotations
 
 import re
 import zipfile
+from array import array
+from collections.abc import Iterator
+from itertools import islice
+from operator import ge
+from typing import IO
 
 from .calamine import SheetMarks
 from .grid import column_index
 
-_CHUNK = 1 << 23
-_ROW_START = re.compile(rb"<(?:\w+:)?row[\s>]")
+CHUNK = 1 << 23                       # bytes decompressed per read
+MAX_CARRY = 1 << 20                   # most bytes of an unfinished row, cell or tag carried to the next piece
+_PIECE_START = re.compile(rb"<(?:\w+:)?(?:row|c)[\s>/]")
+_ROW_NUMBER = re.compile(rb'<row r="(\d+)"')
+_ANY_ROW_NUMBER = re.compile(rb'<(?:\w+:)?row\s[^>]*?\br\s*=\s*"(\d+)"')
 _HIDDEN_ROW = re.compile(rb"<(?:\w+:)?row\s[^>]*?\bhidden=\"(?:1|true)\"[^>]*>")
 _COL_TAG = re.compile(rb"<(?:\w+:)?col\s[^>]*>")
 _CELL_TAG = re.compile(rb"<(?:\w+:)?c\s[^>]*>")
 _VALUE = re.compile(rb"<(?:\w+:)?v>([^<]*)</(?:\w+:)?v>")
 _CELL_END = re.compile(rb"</(?:\w+:)?c>")
+# the spaces after </f> and after <v/> are separate runs (`\s*(?:<v/>\s*)?`), never two `\s*` in a row
 _NO_VALUE = re.compile(rb"<(?:\w+:)?f\b[^>]*?(?:/>|>[^<]*</(?:\w+:)?f>)\s*"
-                       rb"(?P<v><(?:\w+:)?v\s*/>|<(?:\w+:)?v\s*>\s*</(?:\w+:)?v>)?\s*</(?:\w+:)?c>")
+                       rb"(?:(?P<v><(?:\w+:)?v\s*/>|<(?:\w+:)?v\s*>\s*</(?:\w+:)?v>)\s*)?</(?:\w+:)?c>")
 _REF = re.compile(r"([A-Za-z]{1,3})(\d+)")
+
+
+class TagTooLongError(ValueError):
+    """The sheet XML holds one tag longer than MAX_CARRY bytes: no workbook writer makes one."""
 
 
 def _attr(tag: bytes, name: bytes) -> bytes | None:
@@ -49,44 +72,105 @@ class _NeedsSlowScan(Exception):
 
 
 def scan_sheet(zf: zipfile.ZipFile, part: str) -> SheetMarks:
-    """Error cells, formulas without saved results and hidden rows/columns of one sheet part."""
+    """Error cells, formulas without saved results, hidden rows/columns and a repeated row of one sheet part."""
     try:
         return _scan_fast(zf, part)
     except _NeedsSlowScan:
         return _scan_slow(zf, part)
 
 
+def sheet_pieces(fh: IO[bytes]) -> Iterator[bytes]:
+    """The stream's bytes in order, in pieces of at most CHUNK + MAX_CARRY bytes, each ending where a
+    row or cell starts (or, with none near a chunk's end, before an unfinished tag)."""
+    carry = b""
+    while True:
+        chunk = fh.read(CHUNK)
+        if not chunk:
+            if carry:
+                yield carry
+            return
+        buf = carry + chunk
+        cut = _cut(buf)
+        carry = buf[cut:]
+        if cut:
+            yield buf[:cut]
+
+
+def _cut(buf: bytes) -> int:
+    """Where to end a piece: the last row or cell start in the last MAX_CARRY bytes, else the start of
+    an unfinished last tag, else the end; TagTooLongError when that tag is longer than MAX_CARRY."""
+    lo = max(0, len(buf) - MAX_CARRY)
+    at = len(buf)
+    for _ in range(64):                  # in sheet data a cell starts within the last few tags
+        at = buf.rfind(b"<", lo, at)
+        if at < 0:
+            break
+        if _PIECE_START.match(buf, at):
+            return at
+    else:
+        last = -1
+        for m in _PIECE_START.finditer(buf, lo, at):
+            last = m.start()
+        if last >= 0:
+            return last
+    open_at = buf.rfind(b"<")
+    if open_at < 0 or buf.find(b">", open_at) >= 0:
+        return len(buf)
+    if open_at < lo:
+        raise TagTooLongError(f"its sheet XML holds a tag longer than {MAX_CARRY:,} bytes")
+    return open_at
+
+
 def _scan_fast(zf: zipfile.ZipFile, part: str) -> SheetMarks:
-    """Marks by byte search, chunk by chunk, each chunk cut at a row start; _NeedsSlowScan when refs lack."""
+    """Marks by byte search, piece by piece; _NeedsSlowScan when refs lack."""
     marks = SheetMarks()
-    carry, before_data = b"", True
+    rows = _RowNumbers()
+    before_data = True
     with zf.open(part) as fh:
-        while True:
-            chunk = fh.read(_CHUNK)
-            buf = carry + chunk
-            if chunk:
-                cut = _last_row_start(buf)
-                buf, carry = (buf[:cut], buf[cut:]) if cut > 0 else (b"", buf)
-            if before_data and buf:
+        for buf in sheet_pieces(fh):
+            if b"<" not in buf:             # padding between elements: nothing to find
+                continue
+            if before_data:
                 at = buf.find(b"sheetData")
                 head = buf if at < 0 else buf[:at]
                 for tag in _COL_TAG.findall(head):
                     _hidden_cols(tag, marks.hidden_cols)
                 before_data = at < 0
-            if buf:
-                _scan_buffer(buf, marks)
-            if not chunk:
-                return marks
+                rows.prefixed = at > 0 and buf[at - 1:at] == b":"
+            rows.add_from(buf)
+            _scan_buffer(buf, marks)
+    marks.repeated_row = rows.repeated()
+    return marks
 
 
-def _last_row_start(buf: bytes) -> int:
-    """Offset of the last `<row` in the buffer (searched near the end first), -1 when none."""
-    start = max(0, len(buf) - (1 << 20))
-    while True:
-        hits = [m.start() for m in _ROW_START.finditer(buf, start)]
-        if hits or start == 0:
-            return hits[-1] if hits else -1
-        start = 0
+class _RowNumbers:
+    """The `r` numbers of the rows seen so far, to find one claimed twice."""
+
+    def __init__(self, prefixed: bool = False) -> None:
+        self.numbers = array("q")
+        self.ordered = True               # strictly increasing so far: then nothing is repeated
+        self.prefixed = prefixed          # tags written with a namespace prefix (<x:row>)
+
+    def add_from(self, buf: bytes) -> None:
+        found = _ROW_NUMBER.findall(buf)        # the common form, found by a fast literal search
+        if self.prefixed or len(found) != buf.count(b"<row"):      # prefixed tags, `r` not first: general form
+            found = _ANY_ROW_NUMBER.findall(buf)
+        self.add(list(map(int, found)))
+
+    def add(self, numbers: list[int]) -> None:
+        if not numbers:
+            return
+        if self.ordered and ((self.numbers and numbers[0] <= self.numbers[-1]) or
+                             any(map(ge, numbers, islice(numbers, 1, None)))):
+            self.ordered = False
+        self.numbers.extend(numbers)
+
+    def repeated(self) -> int | None:
+        """The smallest row number claimed by two rows, None when each number is claimed once."""
+        if self.ordered:
+            return None
+        seen = sorted(self.numbers)
+        return next((a for a, b in zip(seen, islice(seen, 1, None)) if a == b), None)
 
 
 def _hidden_cols(tag: bytes, out: set[int]) -> None:
@@ -141,12 +225,14 @@ def _scan_slow(zf: zipfile.ZipFile, part: str) -> SheetMarks:
     from defusedxml.ElementTree import iterparse
 
     marks = SheetMarks()
+    rows = _RowNumbers()
     row = 0
     with zf.open(part) as fh:
         for _, el in iterparse(fh, events=("end",)):
             tag = el.tag.rsplit("}", 1)[-1]
             if tag == "row":
                 row = int(el.get("r")) if el.get("r") else row + 1
+                rows.add([row])
                 if el.get("hidden") in ("1", "true"):
                     marks.hidden_rows.add(row)
                 col = -1
@@ -164,4 +250,5 @@ def _scan_slow(zf: zipfile.ZipFile, part: str) -> SheetMarks:
             elif tag == "col":
                 _hidden_cols(b' hidden="%s" min="%s" max="%s"' % tuple(
                     (el.get(k) or "").encode() for k in ("hidden", "min", "max")), marks.hidden_cols)
+    marks.repeated_row = rows.repeated()
     return marks

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
+import os
 import shutil
 import sys
 from collections.abc import Callable
@@ -88,6 +89,12 @@ TEXT_NUMBERS = [  # (cell text, value under the documented rules)
 ]
 NOT_NUMBERS = ["abc", "1,23,4", "01/02/2024", "nan", "12 kg", "--5", "inf"]
 ERRORS = ["#N/A", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#NULL!"]
+
+
+def _fifo(path: Path) -> None:
+    """A named pipe: opening it would wait for a writer, so the reader must refuse it unopened."""
+    path.unlink(missing_ok=True)
+    os.mkfifo(path)
 
 
 def _cases() -> list[Case]:
@@ -251,7 +258,7 @@ def _cases() -> list[Case]:
 
     # ---- refused files
     add(Case("missing file", "missing.xlsx", lambda p: None, error=("InputFileError", "not found")))
-    add(Case("a folder", "folder.xlsx", lambda p: p.mkdir(), error=("InputFileError", "is a folder")))
+    add(Case("a folder", "folder.xlsx", lambda p: p.mkdir(exist_ok=True), error=("InputFileError", "is a folder")))
     add(Case("text renamed .xlsx", "text.xlsx", text_file("Site,Load\nA,1\n"),
              error=("NotAWorkbookError", "it holds plain text")))
     add(Case("web page renamed .xls", "page.xls", text_file("<html><body><table></table></body></html>"),
@@ -271,6 +278,14 @@ def _cases() -> list[Case]:
              error=("NotAWorkbookError", "declares an XML document type")))
     add(Case("unpacked size over the limit", "big.xlsx", _big_unpacked, job=_job(max_unpacked_bytes=2 * 2**20),
              error=("NotAWorkbookError", "refused before unpacking")))
+    twice = (_SHEET_OPEN + '<row r="1">' + "".join(_inline(h) for h in H) + '</row>' +
+             "".join(f'<row r="{r}"><c r="A{r}" t="inlineStr"><is><t>A</t></is></c><c r="B{r}"><v>{k}</v></c>'
+                     f'<c r="C{r}"><v>{k}</v></c></row>' for k, r in enumerate((2, 3, 3, 4))) +
+             '</sheetData></worksheet>')
+    add(Case("a row number used twice", "twice.xlsx", raw_xlsx(twice),
+             error=("NotAWorkbookError", 'sheet "Data" holds two rows numbered 3')))
+    if hasattr(os, "mkfifo"):
+        add(Case("a named pipe", "pipe.csv", _fifo, error=("InputFileError", "is not a regular file (it is a named pipe")))
     add(Case("encrypted OpenDocument", "locked.ods",
              ods(ods_rows([H, ["A", 1, 1]]), manifest_extra='<manifest:file-entry manifest:full-path="x"><manifest:'
                  'encryption-data/></manifest:file-entry>'),
@@ -313,6 +328,16 @@ def _cases() -> list[Case]:
              values={(3, "Load kWh"): 2.5}))
     add(Case("CSV in Windows-1252", "latin.csv", _cp1252, reasons=_used(2, 3, 4),
              labels={(2, "Site"): "Zürich", (4, "Site"): "Genève"}, warnings=("Windows-1252",)))
+    add(Case("CSV with a sep= line", "sep-line.csv", text_file("sep=;\r\nSite;Load kWh;CDD\r\nA;1,5;1\r\nA;2;2\r\n"),
+             reasons=_used(3, 4), values={(3, "Load kWh"): 1.5}, info={"header_row": 2}))
+    add(Case("UTF-16 CSV cut at an odd byte", "cut16.csv",
+             text_file(("Site,Load kWh,CDD\nGenève,1,1\nGenève,2,2\n".encode("utf-16"))[:-1]),
+             reasons=_used(2, 3), labels={(3, "Site"): "Genève"}, warnings=("ends in the middle of a character",)))
+    add(Case("IDs beyond a float's digits", "ids.csv",
+             text_file("Site,Load kWh,CDD\n9007199254740993,1,1\n9007199254740992,2,2\n"), reasons=_used(2, 3),
+             labels={(2, "Site"): "9007199254740993", (3, "Site"): "9007199254740992"}))
+    add(Case("CSV line wider than a sheet", "wide.csv", text_file("Site,Load kWh,CDD\nA,1,1\n" + "," * 20000 + "\n"),
+             error=("NotAWorkbookError", '"wide.csv" line 3 holds 20,001 fields')))
     add(Case("CSV with ISO dates", "dates.csv",
              text_file("Site,Load kWh,Date\nA,1,2024-01-01\nA,2,2024-01-08 12:00\nB,3,2024-03-01\n"),
              job=_job(x=("Date",)), reasons=_used(2, 3, 4),
