@@ -429,3 +429,16 @@ def test_results_written_with_the_old_intercept_label_are_still_read(results, da
     assert store.intercept and store.term_labels[0] == "constant"
     new = pd.DataFrame({"g": ["A", "B"], "x": [2.0, 7.5], "z": [5.0, 1.5]})
     pd.testing.assert_frame_equal(sheetfit.predict(old, new), sheetfit.predict(results, new), rtol=1e-12)
+
+
+def test_new_rows_find_their_group_whatever_the_unicode_form(tmp_path):
+    """A group name typed with a decomposed accent finds the group stored in composed form (NFC)."""
+    import unicodedata
+
+    rng = np.random.default_rng(7)
+    x = rng.uniform(0, 10, 30)
+    frame = pd.DataFrame({"g": unicodedata.normalize("NFC", "Montréal"), "x": x, "y": 2 + 3 * x + rng.normal(size=30)})
+    results = fit_frame(frame, y="y", x=["x"], group=["g"])
+    new = pd.DataFrame({"g": [unicodedata.normalize("NFD", "Montréal")], "x": [5.0]})
+    out = sheetfit.predict(results, new)
+    assert out.filter(like="predicted").notna().all(axis=None)

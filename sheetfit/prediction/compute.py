@@ -19,7 +19,7 @@ import pandas as pd
 
 from ..job import check_setting
 from ..model.engine import design_row
-from ..read.cells import cell_number, label
+from ..read.cells import cell_number, key_label, label
 from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, EXTRAPOLATION, MEAN_STD_ERROR, NEW_ROW_HIGH,
     NEW_ROW_LOW, PREDICTED, PREDICTION_REASON, shown_names)
 from ..results.store import (
@@ -102,7 +102,7 @@ def _group_positions(store: ModelStore, raw: dict[str, list], n_rows: int, reaso
     lookup: dict[tuple[str, ...], int] = {k: i for i, k in enumerate(store.keys)}
     loose: dict[tuple[str, ...], int] = {}
     for i, k in enumerate(store.keys):
-        loose.setdefault(tuple(label(v) for v in k), i)
+        loose.setdefault(tuple(key_label(v) for v in k), i)
     gidx = np.full(n_rows, -1, dtype=np.int64)
     missing_keys = [c for c in store.group_columns if c not in raw]
     for c in missing_keys:
@@ -113,7 +113,7 @@ def _group_positions(store: ModelStore, raw: dict[str, list], n_rows: int, reaso
     for r in range(n_rows):
         vals = [raw[c][r] for c in store.group_columns]
         exact = tuple(v if isinstance(v, str) else label(v) for v in vals)
-        hit = lookup.get(exact, loose.get(tuple(label(v) for v in vals), -1))
+        hit = lookup.get(exact, loose.get(tuple(key_label(v) for v in vals), -1))
         gidx[r] = hit
         if hit < 0:
             shown = group_label(tuple(label(v) for v in vals))
