@@ -20,6 +20,8 @@ import unicodedata
 import zipfile
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -528,3 +530,30 @@ def test_csv_module_names_its_line_on_a_broken_quote(tmp_path):
 
 def test_module_constants_are_the_documented_ones():
     assert csvfile.MAX_FIELDS == 16_384 and xlsxscan.MAX_CARRY == 1 << 20
+
+
+
+@pytest.mark.parametrize("name", ["source sheet", "source row", "reason"])
+@pytest.mark.parametrize("role", ["y", "x", "group"])
+def test_a_data_frame_column_named_like_the_tidy_columns_is_refused(name, role):
+    """fit_frame refuses these names in one line, as the workbook reader does, instead of overwriting them."""
+    import sheetfit
+    from sheetfit.errors import JobError
+
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({"g": ["A"] * 12, "x": rng.normal(size=12), "y": rng.normal(size=12)})
+    cols = {"y": "y", "x": "x", "group": "g"}
+    frame = frame.rename(columns={cols[role]: name})
+    kw = {"y": "y", "x": ["x"], "group": ["g"]}
+    kw[role] = name if role == "y" else [name]
+    with pytest.raises(JobError, match="rename it"):
+        sheetfit.fit_frame(frame, **kw)
+
+
+def test_a_data_frame_without_a_named_column_says_which_exist():
+    import sheetfit
+    from sheetfit.errors import ColumnNotFoundError
+
+    frame = pd.DataFrame({"Site": ["A"] * 5, "x": range(5), "kWh": range(5)})
+    with pytest.raises(ColumnNotFoundError, match="Site"):
+        sheetfit.fit_frame(frame, y="kWh", x=["x"], group=["Sites"])
