@@ -64,3 +64,14 @@ def workbook_guard() -> Iterator[Callable[[Path], Path]]:
     for path, digest in recorded.items():
         assert path.exists(), f"{path} disappeared"
         assert sha256(path) == digest, f"{path} was modified"
+
+
+@pytest.fixture
+def system_tmp(tmp_path, monkeypatch):
+    """The system temp folder (xlsxwriter's row files and scratch folders go there) pointed at a private one."""
+    import tempfile
+
+    root = tmp_path / "system-tmp"
+    root.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(root))
+    return root

@@ -16,7 +16,6 @@ import sys
 import tempfile
 import textwrap
 import zipfile
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -27,14 +26,6 @@ import sheetfit.report.fastrows as fastrows
 from sheetfit.errors import OutputError
 from sheetfit.report.safe import SCRATCH_PREFIX, TEMP_MARK, host_tag, remove_leftovers
 
-
-@pytest.fixture
-def system_tmp(tmp_path, monkeypatch):
-    """The system temp folder (scratch folders go there) pointed at a private one."""
-    root = tmp_path / "system-tmp"
-    root.mkdir()
-    monkeypatch.setattr(tempfile, "tempdir", str(root))
-    return root
 
 
 @pytest.fixture(scope="module")

@@ -33,13 +33,19 @@ def values_out_of_range(W: np.ndarray, T: np.ndarray, scale: np.ndarray, ids: np
                         terms: Sequence[Term], intercept: bool, reason: np.ndarray) -> np.ndarray:
     """(G,) bool: groups with a term whose values fall outside double precision (x^k of a huge x); reasons set."""
     finite = np.isfinite(W).all(axis=1) & np.isfinite(T).all(axis=1) & np.isfinite(scale) & (scale > 0)
-    bad = ~finite.all(axis=1)
+    return _first_bad_column(~finite, ids, terms, intercept, reason,
+                             "the values of {} are outside the range of double precision numbers "
+                             "(about 1e-308 to 1e308); rescale the input")
+
+
+def _first_bad_column(bad_columns: np.ndarray, ids: np.ndarray, terms: Sequence[Term], intercept: bool,
+                      reason: np.ndarray, text: str) -> np.ndarray:
+    """(G,) bool: groups with any bad column; each gets `text` naming its first bad column as its reason."""
+    bad = bad_columns.any(axis=1)
     if bad.any():
         labels = coefficient_labels(terms, intercept)
         for gi in np.flatnonzero(bad):
-            j = int(np.argmin(finite[gi]))
-            reason[ids[gi]] = (f"the values of {labels[j]} are outside the range of double precision "
-                               f"numbers (about 1e-308 to 1e308); rescale the input")
+            reason[ids[gi]] = text.format(labels[int(np.argmax(bad_columns[gi]))])
     return bad
 
 
@@ -53,14 +59,9 @@ def exactly_collinear(W: np.ndarray, R: np.ndarray, ids: np.ndarray, terms: Sequ
     diag = np.abs(np.diagonal(R, axis1=1, axis2=2))
     with np.errstate(invalid="ignore", divide="ignore"):
         ratio = diag / np.where(colnorm > 0, colnorm, 1.0)
-    bad = (ratio < COLLINEAR_TOL).any(axis=1)
-    if bad.any():
-        labels = coefficient_labels(terms, intercept)
-        for gi in np.flatnonzero(bad):
-            j = int(np.argmax(ratio[gi] < COLLINEAR_TOL))
-            reason[ids[gi]] = (f"{labels[j]} is an exact linear combination of the other "
-                               f"terms in this group (exact collinearity)")
-    return bad
+    return _first_bad_column(ratio < COLLINEAR_TOL, ids, terms, intercept, reason,
+                             "{} is an exact linear combination of the other terms in this group "
+                             "(exact collinearity)")
 
 
 def coefficients_out_of_range(b: np.ndarray, A: np.ndarray, rss: np.ndarray, n: np.ndarray,
@@ -75,13 +76,9 @@ def coefficients_out_of_range(b: np.ndarray, A: np.ndarray, rss: np.ndarray, n: 
     root = np.sqrt(s2[:, None] * (A**2).sum(axis=2))
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         finite = np.isfinite(np.ldexp(b, k)) & np.isfinite(np.ldexp(root, k))
-    bad = ~finite.all(axis=1)
-    labels = coefficient_labels(terms, intercept)
-    for gi in np.flatnonzero(bad):
-        j = int(np.argmin(finite[gi]))
-        reason[ids[gi]] = (f"the coefficient of {labels[j]} is outside the range of double precision "
-                                    f"numbers (about 1e308); rescale the response or this input")
-    return bad
+    return _first_bad_column(~finite, ids, terms, intercept, reason,
+                             "the coefficient of {} is outside the range of double precision numbers "
+                             "(about 1e308); rescale the response or this input")
 
 
 def constant_inputs(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,

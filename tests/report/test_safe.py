@@ -20,13 +20,9 @@ def snapshot(folder: Path) -> dict[str, bytes]:
 
 
 @pytest.fixture
-def scratch_root(tmp_path, monkeypatch):
-    """Point the system temp folder at a private one, so leftovers of xlsxwriter would show."""
-    root = tmp_path / "system-tmp"
-    root.mkdir()
-    import tempfile
-    monkeypatch.setattr(tempfile, "tempdir", str(root))
-    return root
+def scratch_root(system_tmp):
+    """The private system temp folder, so leftovers of xlsxwriter would show."""
+    return system_tmp
 
 
 def test_output_equal_to_input_is_refused(make_results):
