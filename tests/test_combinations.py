@@ -5,7 +5,7 @@ the README's term definitions), statsmodels OLSInfluence, statsmodels diagnostic
 Breusch–Pagan in Koenker's form, White, Durbin–Watson statistic, Breusch–Godfrey, RESET F form,
 Bonferroni outlier test, VIF, robust HC3 / Newey–West covariances and their Wald F), scipy
 (Shapiro–Wilk, Cook's F-median cut-off) and statsmodels `multipletests` (Benjamini–Hochberg).
-Rules of thumb for row highlights are common practice (README). Data are invented and seeded.
+Rules of thumb for the softer row flags are common practice (README). Data are invented and seeded.
 
 Each value is compared at 1e-9 relative with an absolute floor of 1e-9 · the value's scale (the
 coefficient's std error, max |y|, 1 for p-values and statistics of order one). Checks that cannot
@@ -119,14 +119,17 @@ def robust_fits(ref, n: int):
 
 
 def expected_row_flags(gr: GroupReference, p: int) -> list[str]:
-    """Row highlights per README (common practice): leverage > 2p/n, |studentized| > 3, Cook's > 4/n."""
+    """Row flags per README: leverage 1, |studentized| > 3, Cook's > median of F(p, n − p) (Cook 1977,
+    scipy), then the common-practice leverage > 2p/n and Cook's > 4/n."""
     infl = OLSInfluence(gr.fit)                                                  # statsmodels
     n = len(gr.rows)
     h, t, d = infl.hat_matrix_diag, infl.resid_studentized_external, infl.cooks_distance[0]
+    cut = stats.f.ppf(0.5, p, n - p)                                             # scipy
     out = []
     for hi, ti, di in zip(h, t, d):
-        words = [w for w, on in (("leverage 1", hi >= 1 - 1e-10), ("high leverage", hi > 2 * p / n),
-                                 ("outlying", abs(ti) > 3), ("influential", di > 4 / n)) if on]
+        words = [w for w, on in (("leverage 1", hi >= 1 - 1e-10), ("outlying", abs(ti) > 3),
+                                 ("moves the fit", di > cut), ("high leverage", hi > 2 * p / n),
+                                 ("influential", di > 4 / n)) if on]
         out.append("; ".join(words))
     return out
 

@@ -4,6 +4,8 @@ data were generated."""
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -119,3 +121,69 @@ def test_robust_std_errors_appear_when_variance_is_not_constant(mixed_run):
     assert clean["robust std error (HC3)"].isna().all()
     ar = coef[coef["g"] == "ar1"]
     assert ar["HAC std error"].notna().all() and (ar["HAC lag"] >= 1).all()
+
+
+# --- shading on the demo's observations sheet: rare, and always worth a look -----------------------
+
+LOOK_HERE = {"leverage 1", "outlying", "moves the fit"}
+ROW_CHECKS = ("outlier (Bonferroni)", "influence (Cook's distance)", "single-row leverage")
+
+
+def _rule_holds(formula: str, cells: dict[str, object]) -> bool:
+    """Evaluate the two forms of row rule the writer uses: `$X2="text"` and
+    `OR(ISNUMBER(FIND("word",$X2)),…)` (FIND: case-sensitive substring, an error on an empty cell)."""
+    equal = re.fullmatch(r'\$([A-Z]+)2="([^"]*)"', formula)
+    if equal:
+        return str(cells.get(equal[1]) or "") == equal[2]
+    finds = re.findall(r'ISNUMBER\(FIND\("([^"]*)",\$([A-Z]+)2\)\)', formula)
+    assert finds and formula == "OR(" + ",".join(f'ISNUMBER(FIND("{w}",${c}2))' for w, c in finds) + ")", formula
+    return any(isinstance(cells.get(c), str) and w in cells[c] for w, c in finds)
+
+
+@pytest.fixture(scope="module")
+def demo_observations(tmp_path_factory):
+    """(rows as column letter → value, header → letter, shaded rows, the checks sheet's rows) of the demo."""
+    import openpyxl
+    from openpyxl.utils import get_column_letter
+
+    from sheetfit.demo import run_demo
+    from sheetfit.report.styles import UNUSUAL_ROW_FILL
+
+    _, _, path = run_demo(tmp_path_factory.mktemp("demo"))
+    wb = openpyxl.load_workbook(path)
+    ws = wb["observations"]
+    header = {c.value: get_column_letter(c.column) for c in ws[1]}
+    rows = [{get_column_letter(c.column): c.value for c in r} for r in ws.iter_rows(min_row=2)]
+    rules = sorted(((rule, str(cf.sqref)) for cf in ws.conditional_formatting for rule in cf.rules),
+                   key=lambda t: t[0].priority)
+    shaded = []
+    for i, cells in enumerate(rows):
+        for rule, _ in rules:
+            if _rule_holds(rule.formula[0], cells):
+                if rule.dxf.fill.bgColor.rgb[-6:] == UNUSUAL_ROW_FILL[1:]:
+                    shaded.append(i)
+                if rule.stopIfTrue:
+                    break
+    checks = list(wb["checks"].iter_rows(values_only=True))
+    return rows, header, shaded, checks
+
+
+def test_demo_shades_few_rows_each_naming_a_strong_flag(demo_observations):
+    rows, header, shaded, _ = demo_observations
+    flags = [set((r.get(header["row flags"]) or "").split("; ")) - {""} for r in rows]
+    used = sum(r.get(header["used in fit"]) == "yes" for r in rows)
+    assert 0 < len(shaded) <= 0.01 * used          # the demo's misbehaving sites show; healthy rows do not
+    assert all(flags[i] & LOOK_HERE for i in shaded)
+    softer_only = [i for i, f in enumerate(flags) if f and not f & LOOK_HERE]
+    assert not set(softer_only) & set(shaded)
+    assert len(softer_only) > len(shaded)          # the common-practice flags are listed, not shaded
+
+
+def test_demo_shades_the_row_behind_every_failed_row_check(demo_observations):
+    rows, header, shaded, checks = demo_observations
+    head = checks[0]
+    source = {r.get(header["source row"]): i for i, r in enumerate(rows)}
+    named = [int(re.search(r"source row (\d+)", row[head.index("note")])[1]) for row in checks[1:]
+             if row[head.index("check")] in ROW_CHECKS and row[head.index("verdict")] == "fail"]
+    assert named
+    assert all(source[r] in shaded for r in named)

@@ -115,10 +115,12 @@ def test_dates_are_days_since_each_groups_earliest(messy):
         if row[3].value is not None:
             first[str(row[0].value)] = min(first.get(str(row[0].value), row[3].value), row[3].value)
             raw[row[0].row] = (str(row[0].value), row[3].value)
-    for r, days in zip(obs.data[SOURCE_ROW], obs.data["Day"]):
+    for r, days, kept in zip(obs.data[SOURCE_ROW], obs.data["Day"], obs.dates["Day"]):
         site, stamp = raw[r]
         assert days == (stamp - first[site]).days
+        assert kept.to_pydatetime() == stamp                 # the date itself is kept beside the day count
     assert obs.info.date_columns == ("Day",)
+    assert list(obs.dates.columns) == ["Day"] and obs.dates.index.equals(obs.data.index)
 
 
 def test_small_scan_chunks_give_the_same_marks(messy, monkeypatch):
@@ -281,3 +283,16 @@ def test_a_scan_that_cannot_unpack_means_a_damaged_file():
     failed.set_exception(zlib.error("invalid distance too far back"))
     with pytest.raises(errors.NotAWorkbookError, match='"x.xlsx" is damaged'):
         xlsx._scan_result(failed, "x.xlsx")
+
+
+def test_day_numbers_become_the_dates_they_count():
+    from sheetfit.read.tidy import serial_dates
+
+    epoch = dt.datetime(1899, 12, 30)                                  # the spreadsheet's day 0
+    stamps = [dt.datetime(2024, 1, 31), dt.datetime(2024, 2, 29, 8, 30), dt.datetime(1900, 3, 1, 23, 59, 59, 125000),
+              dt.datetime(9999, 12, 31, 12)]
+    days = np.array([(s - epoch) / dt.timedelta(days=1) for s in stamps] + [np.nan, 1e300])
+    got = serial_dates(days)
+    # oracle: Python's datetime arithmetic; kept to the millisecond, the finest a spreadsheet stores
+    assert [g.astype("datetime64[ms]").item() for g in got[:4]] == stamps
+    assert np.isnat(got[4:]).all()

@@ -9,12 +9,15 @@ import pandas as pd
 
 from ..errors import ColumnNotFoundError, JobError, not_found_message
 from ..terms import parse_terms, source_columns
-from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
+from .cells import EPOCH
+from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo, days_from_group_start
 
 
 def observations_from_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str], group: Sequence[str] = (),
                             order: str | None = None, name: str = "(data frame)") -> Observations:
-    """Observations from an in-memory table of numbers (no parsing of text; NaN → unusable)."""
+    """Observations from an in-memory table of numbers and dates (no parsing of text; NaN, NaT → unusable).
+
+    Date/time columns (datetime64) become days since the group's earliest date, as a workbook's do."""
     header = [str(c) for c in frame.columns]
     terms = parse_terms(list(x), header)
     numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else [])]))
@@ -23,16 +26,33 @@ def observations_from_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str], gr
     for gcol in group:
         data[gcol] = frame[gcol].astype(str).to_numpy()
     why = np.full(len(frame), "", dtype=object)
+    dated = [c for c in numeric if pd.api.types.is_datetime64_any_dtype(frame[c].dtype)]
     for c in numeric:
-        v = pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype=np.float64)
+        v = (_day_numbers(frame[c]) if c in dated
+             else pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype=np.float64))
         data[c] = v
         for i in np.flatnonzero(~np.isfinite(v)):
-            why[i] = f"{why[i]}; {c}: not a number" if why[i] else f"{c}: not a number"
+            what = "not a date" if c in dated else "not a number"
+            why[i] = f"{why[i]}; {c}: {what}" if why[i] else f"{c}: {what}"
     data[REASON] = why
+    days, dates = days_from_group_start(data, dated, list(group))
+    for c in dated:
+        data[c] = days[c]
     info = ReadInfo(file_name=name, file_sha256="", file_format="frame", reader="pandas",
-                    sheets=(name,), region="whole table", header_row=1, rows_read=len(frame))
+                    sheets=(name,), region="whole table", header_row=1, rows_read=len(frame),
+                    date_columns=tuple(dated))
     return Observations(data=data, group_columns=tuple(group), y=y, terms=terms, order=order,
-                        numeric_columns=tuple(numeric), info=info)
+                        numeric_columns=tuple(numeric), info=info, dates=dates)
+
+
+def _day_numbers(dates: pd.Series) -> np.ndarray:
+    """A date/time column as spreadsheet day numbers (a time zone is dropped, the wall-clock time kept,
+    as the workbook reader does)."""
+    if getattr(dates.dt, "tz", None) is not None:
+        dates = dates.dt.tz_localize(None)
+    stamps = dates.to_numpy(dtype="datetime64[ms]")
+    days = (stamps - np.datetime64(EPOCH, "ms")) / np.timedelta64(1, "D")
+    return np.where(np.isnat(stamps), np.nan, days).astype(np.float64)
 
 
 def _check_columns(header: list[str], needed: list[str]) -> None:

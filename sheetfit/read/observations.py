@@ -15,7 +15,8 @@ Rules (see also `sheetfit.read.cells` for how one cell becomes a number):
   with composed and with decomposed accents is one group, with a warning naming it.
 * Rows may be ragged (CSV): each is padded only as far as the columns used, so one very wide line
   does not widen every other row.
-* Dates and times become days; in each group the earliest one is day 0.
+* Dates and times become days; in each group the earliest one is day 0. The dates themselves are
+  kept beside (`Observations.dates`) so the results can show them as the user wrote them.
 """
 
 from __future__ import annotations
@@ -49,7 +50,7 @@ from .formats import open_book
 from .grid import Grid, Region, pad_rows
 from .headers import Header, find_header, no_duplicates
 from .safety import sniff
-from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo
+from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo, days_from_group_start
 
 SHEET_KEY = "sheet"
 _SHOW = 5
@@ -129,7 +130,7 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
     warnings = list(book.warnings())
     if skipped:
         warnings.append(f"sheets skipped: {', '.join(skipped)}")
-    data, date_cols = _frame(parts, spec)
+    data, dates = _frame(parts, spec)
     _check_usable(data, spec, parts)
     no_result = [ref for p in parts for ref in p.no_result]
     if no_result:
@@ -150,9 +151,9 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
         region=plan[0][1].label if plan[0][1] is not None else "whole sheet",
         header_row=parts[0].header_row, rows_read=int(len(data)),
         hidden_rows=sum(p.hidden_rows for p in parts), hidden_columns=sum(p.hidden_cols for p in parts),
-        date_columns=tuple(c for c in spec.numeric if c in date_cols), warnings=tuple(warnings))
+        date_columns=tuple(dates.columns), warnings=tuple(warnings))
     return Observations(data=data, group_columns=tuple(spec.group_out), y=spec.y, terms=spec.terms,
-                        order=spec.order, numeric_columns=tuple(spec.numeric), info=info)
+                        order=spec.order, numeric_columns=tuple(spec.numeric), info=info, dates=dates)
 
 
 def _plan(book: Book, job: FitJob) -> list[tuple[str, Region | None]]:
@@ -333,14 +334,11 @@ def _frame(parts: list[_Part], spec: _Spec):
         reason[i] = "; ".join(f"{name}: {prob[i]}" for name, prob in problems.items() if prob[i] is not None)
     data[REASON] = pd.array(reason, dtype="str")
     frame = pd.DataFrame(data)
-    for name in date_cols:
-        values = frame[name]
-        if spec.group_out:
-            earliest = values.groupby([frame[g] for g in spec.group_out], sort=False).transform("min")
-        else:
-            earliest = values.min()
-        frame[name] = (values - earliest).astype("float64")
-    return frame, date_cols
+    dated = [name for name in spec.numeric if name in date_cols]
+    days, dates = days_from_group_start(frame, dated, spec.group_out)
+    for name in dated:
+        frame[name] = days[name]
+    return frame, dates
 
 
 def _check_usable(data, spec: _Spec, parts: list[_Part]) -> None:

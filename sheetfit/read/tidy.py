@@ -2,15 +2,22 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
 from ..terms import Term
+from .cells import EPOCH
 
 SOURCE_SHEET = "source sheet"
 SOURCE_ROW = "source row"
 REASON = "reason"
+
+_MS_PER_DAY = 86_400_000.0
+_EPOCH_MS = np.datetime64(EPOCH, "ms")
+_MAX_MS = 2.0**62                         # beyond this a day number is no date (datetime64[ms] holds ±2^63)
 
 
 @dataclass(frozen=True)
@@ -39,7 +46,9 @@ class Observations:
     each group column (str labels; a blank cell → cells.BLANK_LABEL), each needed numeric column
     (float64, NaN where the cell could not be used), and REASON ('' when every needed cell
     parsed, else plain words such as 'Load kWh: empty cell; Pallets: error value #N/A').
-    Date/time columns are days since the group's earliest date.
+    Date/time columns (`info.date_columns`) are days since the group's earliest date in `data`, the
+    numbers the model uses; `dates` keeps the user's own dates and times of those columns
+    (datetime64[ms], NaT where the cell could not be used), same rows and index as `data`.
     """
 
     data: pd.DataFrame
@@ -49,3 +58,32 @@ class Observations:
     order: str | None
     numeric_columns: tuple[str, ...]      # y, term source columns, order column (no repeats)
     info: ReadInfo
+    dates: pd.DataFrame = field(default_factory=pd.DataFrame)   # date column → the dates as read
+
+
+def serial_dates(days: np.ndarray) -> np.ndarray:
+    """Spreadsheet day numbers (days since cells.EPOCH, time of day as the fraction) → datetime64[ms].
+
+    Kept to the millisecond, the finest a spreadsheet stores; NaN and numbers too large for a date
+    become NaT."""
+    ms = np.round(np.asarray(days, dtype=np.float64) * _MS_PER_DAY)
+    out = np.full(ms.shape, np.datetime64("NaT"), dtype="datetime64[ms]")
+    ok = np.isfinite(ms) & (np.abs(ms) < _MAX_MS)
+    out[ok] = _EPOCH_MS + ms[ok].astype(np.int64).astype("timedelta64[ms]")
+    return out
+
+
+def days_from_group_start(frame: pd.DataFrame, columns: Sequence[str],
+                          group_columns: Sequence[str]) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Date columns of `frame` (spreadsheet day numbers) as (days since each group's earliest date, the
+    dates themselves): the first is what the model uses, the second the user's own dates."""
+    days, dates = {}, {}
+    for name in columns:
+        values = frame[name].astype("float64")
+        if group_columns:
+            earliest = values.groupby([frame[g] for g in group_columns], sort=False).transform("min")
+        else:
+            earliest = values.min()
+        days[name] = (values - earliest).astype("float64")
+        dates[name] = pd.Series(serial_dates(values.to_numpy()), index=frame.index)
+    return pd.DataFrame(days, index=frame.index), pd.DataFrame(dates, index=frame.index)

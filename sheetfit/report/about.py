@@ -6,8 +6,10 @@ import datetime as _dt
 import math
 from typing import Any
 
-from ..results.headers import (COEFFICIENT, COEFFICIENT_COUNT, FITTED, INTERVAL_HIGH, INTERVAL_LOW, ROWS_USED,
-    cell_text)
+from ..model.engine import LEVERAGE_ONE_TOL
+from ..results.headers import (COEFFICIENT, COEFFICIENT_COUNT, DAYS_MARK, FITTED, HIGH_LEVERAGE_FLAG,
+    INFLUENTIAL_FLAG, INTERVAL_HIGH, INTERVAL_LOW, LEVERAGE_ONE_FLAG, LOOK_HERE, MOVES_FIT_FLAG, OUTLYING_FLAG,
+    ROW_FLAGS, ROWS_USED, cell_text)
 from ..terms import INTERCEPT
 from .book import WriteContext
 from .styles import CHART_LEGEND, HIGHLIGHTS
@@ -38,6 +40,28 @@ DEFINITIONS: tuple[tuple[str, str], ...] = (
     ("Cook's distance", "residual² · leverage / (p · residual std error² · (1 − leverage)²)"),
     ("adjusted p-value", "p-value adjusted across groups for the same check (see setting adjust)"),
 )
+
+
+def row_flag_definitions(thr: Any) -> tuple[tuple[str, str], ...]:
+    """What each word in `row flags` means at this run's thresholds, and the day counts beside dates."""
+    return (
+        (ROW_FLAGS, "words naming what is unusual about a row used in the fit; "
+                    + ", ".join(f'"{w}"' for w in LOOK_HERE[:-1]) + f' and "{LOOK_HERE[-1]}" shade the row (look '
+                    f'at it); "{HIGH_LEVERAGE_FLAG}" and "{INFLUENTIAL_FLAG}" are softer signals that a few rows '
+                    "of most healthy fits carry: listed, not shaded"),
+        (LEVERAGE_ONE_FLAG, f"leverage 1 (to within {LEVERAGE_ONE_TOL:g}): the row alone fixes a coefficient, "
+                            "its residual is 0 and nothing checks it; shaded"),
+        (OUTLYING_FLAG, f"|studentized residual| > {thr.studentized_cutoff:g} (setting studentized cutoff); shaded"),
+        (MOVES_FIT_FLAG, "Cook's distance above the median of F(p, n − p): the row behind the group's failed "
+                         "influence check; shaded"),
+        (HIGH_LEVERAGE_FLAG, f"leverage > {thr.leverage_factor:g} · p / n (common practice; setting leverage "
+                             "factor); not shaded"),
+        (INFLUENTIAL_FLAG, f"Cook's distance > {thr.cooks_factor:g} / n (common practice; setting cooks factor); "
+                           "not shaded"),
+        (f"NAME ({DAYS_MARK})", "beside a column that holds dates or times: days since the group's earliest "
+                                "date, the number the model uses; the column before it shows the dates as read"),
+    )
+
 
 ADJUST_WORDS = {
     "bh": "Benjamini–Hochberg false discovery rate across groups, per check",
@@ -121,6 +145,7 @@ def _write_about(ctx: WriteContext, ws) -> None:
 
     section("definitions")
     rows.extend((k, v, None) for k, v in DEFINITIONS)
+    rows.extend((k, v, None) for k, v in row_flag_definitions(res.job.thresholds))
 
     section("cautions")
     rows.extend((k, v, None) for k, v in cautions(res.job.thresholds.adjust))

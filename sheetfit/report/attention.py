@@ -19,6 +19,8 @@ SHEET = "attention"
 GROUPS_SHEET = "groups"
 MAX_DATA_ROWS = 1_048_575     # data rows per sheet (tables.py continues a longer table on `groups (2)`…)
 MAX_LINKS = 25                # links on one line; more groups are counted in the last cell
+LINK_WIDTH = 16               # characters per link column
+HEADER_SPAN = 4               # link columns the links' header spans (its text is about 60 characters)
 NOT_FITTED = "not fitted"
 CHECK, VERDICT, FAIL = "check", "verdict", "fail"
 
@@ -73,8 +75,8 @@ def attention_sheet(ctx: WriteContext) -> None:
     ws = ctx.add_sheet(SHEET)
     ws.activate()
     ws.set_column(0, 0, 44)
-    ws.set_column(1, 1, 9)
-    ws.set_column(2, 2 + MAX_LINKS, 16)
+    ws.set_column(1, 1, 11)
+    ws.set_column(2, 2 + MAX_LINKS, LINK_WIDTH)
     ws.set_landscape()
     ws.fit_to_pages(1, 0)
     labels = group_labels(groups, res.key_headers(groups))
@@ -86,9 +88,7 @@ def attention_sheet(ctx: WriteContext) -> None:
     ws.write_string(0, 0, "What needs your attention", st.title)
     ws.write_string(1, 0, "Click a group's name to go to its row on the groups sheet (reasons in plain words "
                           "there). Read a flag as \"look here\", not as proof.", st.note)
-    ws.write_string(3, 0, "groups", st.section)
-    ws.write_string(3, 1, "number", st.header_number)
-    ws.write_string(3, 2, "groups (click to go to the row on groups)", st.header)
+    _headers(ws, st, 3, ("groups", "number", "groups (click to go to the row on groups)"))
     rows = [("fitted", len(groups) - len(not_fitted), []),
             ("flagged: at least one check failed", len(flagged), flagged),
             ("not fitted (why: reasons on groups)", len(not_fitted), not_fitted)]
@@ -97,9 +97,7 @@ def attention_sheet(ctx: WriteContext) -> None:
         _link_row(ws, st, r, text, count, where, labels)
         r += 1
     r += 1
-    ws.write_string(r, 0, "failed check", st.section)
-    ws.write_string(r, 1, "groups", st.header_number)
-    ws.write_string(r, 2, "groups where it failed (click to go to the row on groups)", st.header)
+    _headers(ws, st, r, ("failed check", "groups", "groups where it failed (click to go to the row on groups)"))
     r += 1
     failures = failed_checks(res)
     if not failures:
@@ -111,12 +109,21 @@ def attention_sheet(ctx: WriteContext) -> None:
                     "failed check, each group linked to its row on groups")
 
 
+def _headers(ws: Any, st: Any, r: int, texts: tuple[str, str, str]) -> None:
+    """A block's header line: its title, the count's header (centred over centred counts), and the links'
+    header spread over several link columns and set one space in, so no two headers touch on screen or
+    on paper."""
+    ws.write_string(r, 0, texts[0], st.section)
+    ws.write_string(r, 1, texts[1], st.header_centre)
+    ws.merge_range(r, 2, r, 1 + HEADER_SPAN, texts[2], st.header_text)
+
+
 def _link_row(ws: Any, st: Any, r: int, text: str, count: int, where: Sequence[int],
               labels: Sequence[str]) -> None:
     """One line: a label, a count, then links to up to MAX_LINKS groups' rows (the rest counted)."""
     ws.write_string(r, 0, text)
-    ws.write_number(r, 1, count, st.number("0"))
+    ws.write_number(r, 1, count, st.count_centre)
     for j, pos in enumerate(where[:MAX_LINKS]):
-        ws.write_url(r, 2 + j, group_target(pos), string=labels[pos] or "(blank)")
+        ws.write_url(r, 2 + j, group_target(pos), st.link, string=labels[pos] or "(blank)")
     if len(where) > MAX_LINKS:
         ws.write_string(r, 2 + MAX_LINKS, f"and {len(where) - MAX_LINKS:,} more", st.note)

@@ -27,7 +27,23 @@ FIXED_FORMATS = {
 P_VALUE_FORMAT = "[<0.0001]0.00E+00;0.0000"   # small p-values in powers of ten, the rest as 0.0123
 SCIENTIFIC = "0.000E+00"
 DATE_FORMAT = "yyyy-mm-dd hh:mm"
-_EXCEL_EPOCH = np.datetime64("1899-12-30T00:00:00", "ns")
+DAY_FORMAT, SECONDS_FORMAT = "yyyy-mm-dd", "yyyy-mm-dd hh:mm:ss"
+CLOCK_FORMAT, CLOCK_SECONDS_FORMAT = "hh:mm", "hh:mm:ss"
+DATE_FORMATS = (DAY_FORMAT, DATE_FORMAT, SECONDS_FORMAT, CLOCK_FORMAT, CLOCK_SECONDS_FORMAT)
+_EXCEL_EPOCH = np.datetime64("1899-12-30")
+
+
+def date_format(days: np.ndarray) -> str:
+    """The date format that shows what spreadsheet day numbers hold: the date, with the time of day only
+    when some value has one (seconds only when some value has them); times alone below day 1."""
+    v = days[np.isfinite(days)]
+    seconds = np.round(np.mod(v, 1.0) * 86_400.0, 3)
+    if not v.size or not seconds.any():
+        return DAY_FORMAT
+    to_the_second = bool(np.any(np.mod(seconds, 60.0)))
+    if v.min() >= 0 and v.max() < 1:
+        return CLOCK_SECONDS_FORMAT if to_the_second else CLOCK_FORMAT
+    return SECONDS_FORMAT if to_the_second else DATE_FORMAT
 
 
 def number_format(header: str, values: np.ndarray) -> str:
@@ -61,6 +77,7 @@ def number_format(header: str, values: np.ndarray) -> str:
 
 MAX_WIDTH = 60          # characters: the widest column; longer text wraps
 FILTER_BUTTON = 3       # characters a header needs beside its autofilter button
+BOLD = 1.1              # a bold header is about this much wider than its number of characters
 
 
 def shown_width(values: np.ndarray, num_format: str) -> int:
@@ -74,8 +91,8 @@ def shown_width(values: np.ndarray, num_format: str) -> int:
         return 8
     if num_format == SCIENTIFIC:
         return 9 + sign
-    if num_format == DATE_FORMAT:
-        return 16
+    if num_format in DATE_FORMATS:
+        return len(num_format)
     if num_format == "General":
         return 11 + sign                  # General shows at most about 11 characters
     decimals = len(num_format.split(".", 1)[1]) if "." in num_format else 0
@@ -85,7 +102,7 @@ def shown_width(values: np.ndarray, num_format: str) -> int:
 
 def fit_width(header: str, shown: float) -> float:
     """A column width showing its header (with filter button) and its widest shown value, capped."""
-    return min(max(len(header) + FILTER_BUTTON, shown + 2, 8), MAX_WIDTH)
+    return min(max(math.ceil(len(header) * BOLD) + FILTER_BUTTON, shown + 2, 8), MAX_WIDTH)
 
 
 class Column:
@@ -144,12 +161,11 @@ class Column:
         if getattr(series.dt, "tz", None) is not None:
             series = series.dt.tz_convert("UTC").dt.tz_localize(None)
             self.timezone_dropped = True
-        raw = series.to_numpy(dtype="datetime64[ns]")
-        days = (raw - _EXCEL_EPOCH) / np.timedelta64(1, "D")
+        raw = series.to_numpy()
+        days = np.where(np.isnat(raw), np.nan, (raw - _EXCEL_EPOCH) / np.timedelta64(1, "D"))
         self._numbers(pd.Series(days, dtype=np.float64))
         self.undefined = 0 if self._bad is None else int(self._bad.sum())
-        self.set_format(DATE_FORMAT)
-        self.width = max(self.width, 17)
+        self.set_format(date_format(days))
 
     def _text(self, series: pd.Series) -> None:
         self.kind = "text"

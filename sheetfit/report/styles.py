@@ -20,6 +20,7 @@ HEADER_FILL, HEADER_TEXT, HEADER_RULE = "#E9E3D5", "#25313B", "#8C806A"  # parch
 SECTION_TEXT = "#25313B"
 NOTE_TEXT = "#5B6670"
 INPUT_FILL, INPUT_RULE = "#FFF6D8", "#B8A66A"   # pale straw: cells that take the reader's input
+LINK_TEXT = "#1D5C8A"                           # deep steel blue, underlined: a link within the workbook
 
 # Chart colours.
 POINTS = "#2D6A86"          # steel blue: observations
@@ -50,7 +51,9 @@ HIGHLIGHTS: tuple[Highlight, ...] = (
     Highlight("left_out", "slate", LEFT_OUT_FILL, LEFT_OUT_TEXT,
               "groups: the group could not be fitted; observations: the row was not used (see reason)"),
     Highlight("unusual_row", "soft violet", UNUSUAL_ROW_FILL, UNUSUAL_ROW_TEXT,
-              "observations: high-leverage, outlying or influential row (see row flags)"),
+              'observations: look at this row: its row flags say "leverage 1", "outlying" or "moves the '
+              'fit" (the row behind a failed influence check); the softer "high leverage" and "influential" '
+              "are listed in row flags without shading"),
 )
 
 CHART_LEGEND: tuple[tuple[str, str], ...] = (
@@ -76,6 +79,10 @@ class Styles:
         self.header_text = workbook.add_format({
             "bold": True, "font_color": HEADER_TEXT, "bg_color": HEADER_FILL,
             "bottom": 2, "bottom_color": HEADER_RULE, "indent": 1, "valign": "bottom"})
+        self.header_centre = workbook.add_format({
+            "bold": True, "font_color": HEADER_TEXT, "bg_color": HEADER_FILL,
+            "bottom": 2, "bottom_color": HEADER_RULE, "align": "center", "valign": "bottom"})
+        self.count_centre = workbook.add_format({"num_format": "0", "align": "center"})
         self.text_cell = workbook.add_format({"indent": 1, "valign": "top"})
         self.top = workbook.add_format({"valign": "top"})     # table cells sit at the top of a tall row
         # long text in a table column wraps at the column's width (rows grow to fit: no fixed heights)
@@ -87,6 +94,7 @@ class Styles:
         self.note = workbook.add_format({"italic": True, "font_color": NOTE_TEXT})
         self.wrap = workbook.add_format({"text_wrap": True, "valign": "top", "align": "left"})
         self.text = workbook.add_format({"valign": "top"})
+        self.link = workbook.add_format({"font_color": LINK_TEXT, "underline": 1, "indent": 1})
         self.group_label = workbook.add_format({"bold": True, "font_size": 11, "font_color": SECTION_TEXT})
         self.highlight = {h.key: workbook.add_format({"bg_color": h.fill, "font_color": h.text})
                           for h in HIGHLIGHTS}

@@ -16,8 +16,8 @@ from xlsxwriter.utility import xl_col_to_name
 
 from ..read.tidy import REASON
 from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, INTERVAL_HIGH, INTERVAL_LOW,
-    NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, rename_note, renamed)
-from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL
+    LOOK_HERE, NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, rename_note, renamed)
+from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL, day_count_headers
 from ..terms import source_columns
 from . import fastrows
 from .book import WriteContext
@@ -257,6 +257,26 @@ def select_observations(obs: pd.DataFrame, mode: str) -> pd.DataFrame:
     return obs
 
 
+def look_here_test(words: Sequence[str] = LOOK_HERE) -> str:
+    """A rule's test: the row flags cell holds one of `words` (FIND: exact case, no wildcards)."""
+    return "OR(" + ",".join(f'ISNUMBER(FIND("{w}",{{c}}))' for w in words) + ")"
+
+
+def observation_columns(res: Any, obs: pd.DataFrame) -> list[str]:
+    """Observations' columns in sheet order: keys, source, response and inputs, other columns of the
+    user's (the order column), each date column followed by its day counts, then ours."""
+    keys = res.key_headers(obs)
+    user = [*res.group_columns, *res.number_columns]
+    days = {res.observation_header(c): h for c, h in day_count_headers(user, res.info.date_columns).items()}
+    data_cols = [res.observation_header(c) for c in (res.y, *source_columns(res.terms))]
+    extra_data = [c for c in obs.columns
+                  if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL, *days.values())]
+    user_cols: list[str] = []
+    for c in (*data_cols, *extra_data):
+        user_cols += [c, days[c]] if days.get(c) in obs.columns else [c]
+    return ordered_columns(obs, keys, [*OBS_HEAD, *user_cols, *OBS_TAIL])
+
+
 def observations_sheet(ctx: WriteContext) -> None:
     res = ctx.results
     obs = res.observations
@@ -264,11 +284,8 @@ def observations_sheet(ctx: WriteContext) -> None:
     mode = res.job.observations
     user = [*res.group_columns, *res.number_columns]
     _note_renamed(ctx, "observations", user, [res.observation_header(c) for c in user])
-    data_cols = [res.observation_header(c) for c in (res.y, *source_columns(res.terms))]
-    extra_data = [c for c in obs.columns
-                  if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL)]
-    order = ordered_columns(obs, keys, [*OBS_HEAD, *data_cols, *extra_data, *OBS_TAIL])
-    rules = (Rule(USED, f'{{c}}="{NO}"', "left_out"), Rule(ROW_FLAGS, 'LEN({c})>0', "unusual_row"))
+    order = observation_columns(res, obs)
+    rules = (Rule(USED, f'{{c}}="{NO}"', "left_out"), Rule(ROW_FLAGS, look_here_test(), "unusual_row"))
     total = len(obs)
     if mode == "none":
         ws = ctx.add_sheet("observations")

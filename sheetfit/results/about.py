@@ -27,8 +27,8 @@ def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit
         ("region", info.region), ("header row", info.header_row),
         ("rows read", info.rows_read), ("rows used", used), ("rows not used", info.rows_read - used),
         ("hidden rows (used)", info.hidden_rows), ("hidden columns (used)", info.hidden_columns),
-        ("date/time columns", ", ".join(info.date_columns) + " (as days since the group's earliest date)"
-         if info.date_columns else "(none)"),
+        ("date/time columns", ", ".join(info.date_columns) + " (the model uses days since the group's earliest "
+         "date; observations shows the dates, the days beside them)" if info.date_columns else "(none)"),
         ("groups", len(groups)), ("groups fitted", int(fit.fitted_ok.sum())),
         ("groups not fitted", int((~fit.fitted_ok).sum())),
         ("groups flagged", int((groups[FLAGS] > 0).sum())),

@@ -38,6 +38,14 @@ USED, ROW_FLAGS = "used in fit", "row flags"
 FITTED, RESIDUAL, STUDENTIZED, LEVERAGE, COOKS = ("fitted value", "residual", "studentized residual", "leverage",
                                                   "Cook's distance")
 YES, NO = "yes", "no"
+# the words in `row flags`: a row is shaded when one of LOOK_HERE is among them; the other two are softer
+# signals that a few rows of most healthy fits carry, listed but not shaded
+LEVERAGE_ONE_FLAG, OUTLYING_FLAG, MOVES_FIT_FLAG = "leverage 1", "outlying", "moves the fit"
+HIGH_LEVERAGE_FLAG, INFLUENTIAL_FLAG = "high leverage", "influential"
+LOOK_HERE = (LEVERAGE_ONE_FLAG, OUTLYING_FLAG, MOVES_FIT_FLAG)
+FLAG_SEPARATOR = "; "
+# a date/time column of the user's shows its dates; the days the model used stand beside it under this mark
+DAYS_MARK = "days from group start"
 
 # predictions (`sheetfit predict`, `sheetfit.predict`, the live prediction sheet) and the chart curves
 PREDICTED = "predicted value"

@@ -139,7 +139,10 @@ def test_conditional_formats_cover_whole_rows_anchored_on_the_first_data_row(wri
     n = len(res.checks) + 1
     assert rules(wb["checks"]) == {f"A2:H{n}": ['$G2="fail"']}
     n = len(res.observations) + 1
-    assert rules(wb["observations"]) == {f"A2:M{n}": ['$F2="no"', "LEN($H2)>0"]}
+    # shaded: the row flags name one of the strong words (README), found as exact text
+    look_here = ('OR(ISNUMBER(FIND("leverage 1",$H2)),ISNUMBER(FIND("outlying",$H2)),'
+                 'ISNUMBER(FIND("moves the fit",$H2)))')
+    assert rules(wb["observations"]) == {f"A2:M{n}": ['$F2="no"', look_here]}
 
 
 def test_highlight_colours_are_our_own_not_the_builtin_good_bad_neutral(written):
@@ -270,3 +273,23 @@ def test_extra_sheets_plug_in_after_the_core_ones(make_results, tmp_path):
     assert names.index(mine[0]) < names.index("chart data") < names.index(mine[1])
     assert wb[mine[1]].sheet_state == "hidden" and wb[mine[0]]["A1"].value == f"data on {mine[1]}"
     assert any(r[1] == "one sheet added" for r in wb["about"].iter_rows(values_only=True))
+
+
+@pytest.mark.parametrize("stamps, shown", [
+    (["2024-01-02", "2024-03-04"], "yyyy-mm-dd"),
+    (["2024-01-02 03:04", "2024-03-04"], "yyyy-mm-dd hh:mm"),
+    (["2024-01-02 03:04:05", "2024-03-04"], "yyyy-mm-dd hh:mm:ss"),
+    (["1899-12-30 06:15", "1899-12-30 18:45"], "hh:mm"),            # times of day alone (day 0)
+])
+def test_dates_show_what_they_hold(make_results, tmp_path, stamps, shown):
+    res = make_results(labels=["North", "South"])
+    g = res.groups.copy()
+    g["when"] = pd.to_datetime(stamps, format="ISO8601")
+    wb = openpyxl.load_workbook(write_results(dataclasses.replace(res, groups=g), tmp_path / "dates.xlsx"))
+    ws = wb["groups"]
+    j = header(ws).index("when") + 1
+    cells = [ws.cell(2, j), ws.cell(3, j)]
+    assert {c.number_format for c in cells} == {shown}
+    # oracle: the timestamps themselves, read back as dates (times of day alone as times) by openpyxl
+    want = [t.to_pydatetime() for t in g["when"]]
+    assert [c.value for c in cells] == ([w.time() for w in want] if shown.startswith("hh") else want)
