@@ -1,10 +1,17 @@
-"""Auxiliary regressions behind the n·R² and F tests: R² of residuals (or y) on extra columns, per group of a batch."""
+"""Auxiliary regressions behind the n·R² and F tests: R² of residuals (or y) on extra columns, per group of a batch.
+
+Each batch has its own design (its `slots` among the model's coefficients); the helpers at the
+end say which terms it holds and whether it holds the constant.
+"""
 
 from __future__ import annotations
+
+from collections.abc import Sequence
 
 import numpy as np
 
 from ..model.engine import Batch
+from ..terms import Term
 
 AUX_TOL = 1e-9   # relative |R_jj| below this in an auxiliary regression: column redundant
 
@@ -36,8 +43,19 @@ def projection_r2(Q: np.ndarray, u: np.ndarray, mask: np.ndarray) -> tuple[np.nd
     return r2, rss
 
 
+def batch_has_constant(b: Batch, intercept: bool) -> bool:
+    """Whether the batch's own design holds the constant (the model's intercept slot is among its slots)."""
+    return bool(intercept and len(b.slots) and int(b.slots[0]) == 0)
+
+
+def batch_terms(b: Batch, terms: Sequence[Term], intercept: bool) -> list[Term]:
+    """The terms of the batch's own design, in its column order (the model's terms at its slots)."""
+    off = 1 if intercept else 0
+    return [terms[int(s) - off] for s in b.slots if s >= off]
+
+
 def with_constant(b: Batch, intercept: bool) -> np.ndarray:
-    """The working design with a constant column in front when the model has none."""
-    if intercept:
+    """The batch's working design with a constant column in front when it has none."""
+    if batch_has_constant(b, intercept):
         return b.W
     return np.concatenate([b.mask[:, :, None].astype(np.float64), b.W], axis=2)

@@ -11,6 +11,10 @@ one-term input it is the ordinary VIF, for a family the size-adjusted value Fox 
 recommend, squared to stay on the VIF scale. GVIF is unchanged by any reparametrisation inside a
 family, so it is computed on the engine's working basis (centred and scaled, polynomial families
 on [−1, 1]), where the cross-products come from R of the QR factors and X'X is never formed.
+
+Every measure is taken over a group's active coefficients only (its batch's own columns): an
+input none of whose terms a group uses is absent from that group's GVIF (NaN), and a group with
+fewer than two inputs of its own has no collinearity to judge. Change points do not enter.
 """
 
 from __future__ import annotations
@@ -21,6 +25,7 @@ import numpy as np
 
 from ..model.engine import EngineFit
 from ..terms import Term
+from .auxiliary import batch_has_constant
 from .result import CheckResult
 
 VIF = "vif"
@@ -30,18 +35,20 @@ MEASURE = ("generalised VIF per input (Fox & Monette 1992): GVIF^(1/df) over the
 
 
 def vif(fit: EngineFit) -> np.ndarray:
-    """VIF of every coefficient (G, p); NaN for the intercept and for one-input models.
+    """VIF of every coefficient (G, p); NaN for the intercept, on slots a group does not use and
+    where a group's design has fewer than two non-constant columns.
 
     VIF_j = 1/(1 − R²_j) = (X'X)⁻¹_jj · Σ(x_j − x̄_j)² with an intercept (uncentred sum without).
     Computed with every raw column divided by its scale (the VIF does not depend on it).
     """
     out = np.full((fit.n_groups, fit.p), np.nan)
-    off = 1 if fit.intercept else 0
-    if fit.p - off < 2:
-        return out
     for b in fit.batches:
+        constant = batch_has_constant(b, fit.intercept)
+        off = 1 if constant else 0
+        if len(b.slots) - off < 2:
+            continue
         X = b.W @ b.T
-        if fit.intercept:
+        if constant:
             mean = X.sum(axis=1) / b.n[:, None]
             ss = (((X - mean[:, None, :]) * b.mask[:, :, None]) ** 2).sum(axis=1)
         else:
@@ -49,7 +56,7 @@ def vif(fit: EngineFit) -> np.ndarray:
         xi = b.A @ np.swapaxes(b.A, 1, 2)
         v = np.diagonal(xi, axis1=1, axis2=2) * ss
         v[:, :off] = np.nan
-        out[b.groups] = v
+        out[b.groups[:, None], b.slots[None, :]] = v
     return out
 
 
@@ -62,22 +69,34 @@ def families(terms: Sequence[Term], intercept: bool) -> list[tuple[str, list[int
     return list(out.items())
 
 
+def family_sizes(fit: EngineFit, terms: Sequence[Term]) -> np.ndarray:
+    """Active terms of every input per group (G, number of inputs): its df in GVIF^(1/df), 0 where absent."""
+    sizes = [fit.active[:, cols].sum(axis=1) for _, cols in families(terms, fit.intercept)]
+    return np.stack(sizes, axis=1) if sizes else np.zeros((fit.n_groups, 0), dtype=np.int64)
+
+
 def gvif(fit: EngineFit, terms: Sequence[Term]) -> np.ndarray:
-    """Generalised VIF of every input (G, number of inputs); NaN for groups not fitted and for one-input models."""
+    """Generalised VIF of every input (G, number of inputs) over each group's active terms; NaN for
+    groups not fitted, for inputs a group does not use and for groups with fewer than two inputs."""
     fams = families(terms, fit.intercept)
     out = np.full((fit.n_groups, len(fams)), np.nan)
     if len(fams) < 2:
         return out
-    off = 1 if fit.intercept else 0
     for b in fit.batches:
-        Rk = b.R[:, off:, off:]                  # with an intercept: the columns with the constant projected out
+        off = 1 if batch_has_constant(b, fit.intercept) else 0
+        at = np.full(fit.p, -1)
+        at[b.slots] = np.arange(len(b.slots))    # each model slot's column in this batch's design
+        present = [(f, at[cols][at[cols] >= 0] - off) for f, (_name, cols) in enumerate(fams)]
+        present = [(f, own) for f, own in present if len(own)]
+        if len(present) < 2:
+            continue
+        Rk = b.R[:, off:, off:]                  # with a constant: the columns with the constant projected out
         C = np.swapaxes(Rk, 1, 2) @ Rk           # cross-products of the (centred) working columns
         d = np.sqrt(np.diagonal(C, axis1=1, axis2=2))
         corr = C / d[:, :, None] / d[:, None, :]
         logdet = np.linalg.slogdet(corr)[1]
         every = np.arange(corr.shape[1])
-        for f, (_name, cols) in enumerate(fams):
-            own = np.array(cols) - off
+        for f, own in present:
             rest = np.setdiff1d(every, own)
             l_own = np.linalg.slogdet(corr[:, own][:, :, own])[1]
             l_rest = np.linalg.slogdet(corr[:, rest][:, :, rest])[1]
@@ -103,23 +122,25 @@ def _gvif_check(fit: EngineFit, terms: Sequence[Term], vif_max: float) -> CheckR
     note = np.full(G, "", dtype=object)
     extra = np.full(G, "", dtype=object)
     worst = np.full(G, np.nan)
+    size = family_sizes(fit, terms)
+    several = (size > 0).sum(axis=1) >= 2
     if len(fams) >= 2:
-        adjusted = gvif(fit, terms) ** (1.0 / np.array([len(cols) for _, cols in fams]))
-        show = np.flatnonzero(fit.fitted_ok & np.isfinite(adjusted).all(axis=1))
-        order = np.argsort(-adjusted[show], axis=1, kind="stable")          # largest first
+        with np.errstate(invalid="ignore", divide="ignore"):
+            adjusted = gvif(fit, terms) ** (1.0 / size)          # NaN where an input is absent
+        show = np.flatnonzero(fit.fitted_ok & several & (np.isfinite(adjusted) | (size == 0)).all(axis=1))
+        order = np.argsort(-adjusted[show], axis=1, kind="stable")          # largest first, absent last
         values = np.take_along_axis(adjusted[show], order, axis=1)
         names = np.array([name for name, _ in fams], dtype=object)[order]
         text = np.array([f"{v:.3g}" for v in values.ravel()], dtype=object).reshape(values.shape)
         worst[show] = values[:, 0]
         listed = names[:, 0] + " " + text[:, 0]
         for j in range(1, len(fams)):
-            listed = listed + ", " + names[:, j] + " " + text[:, j]
+            listed = np.where(np.isfinite(values[:, j]), listed + ", " + names[:, j] + " " + text[:, j], listed)
         note[show] = "GVIF^(1/df) per input: " + listed
         for i in np.flatnonzero(values[:, 0] > vif_max):
             above = names[i][values[i] > vif_max]
             extra[show[i]] = ", ".join(above) if len(above) > 1 else f"{above[0]} with the other inputs"
-    else:
-        note[fit.fitted_ok] = "one input: collinearity does not arise"
+    note[fit.fitted_ok & ~several] = "one input: collinearity does not arise"
     return CheckResult(VIF, "collinearity (VIF)", "above", worst, None, np.full(G, vif_max), note,
                        "inputs move together, so their separate effects are uncertain ({extra}: "
                        "VIF {stat} > {thr})", extra)
@@ -130,14 +151,11 @@ def collinearity_checks(fit: EngineFit, terms: Sequence[Term], vif_max: float,
     """The generalised VIF per input (the largest, and which inputs exceed the limit) and the
     condition number, against their limits."""
     G = fit.n_groups
-    off = 1 if fit.intercept else 0
-    cond = condition_number(fit)
+    one_input = fit.n_coef - fit.has_constant < 2         # fewer than two non-constant columns of its own
+    cond = np.where(one_input, np.nan, condition_number(fit))
     note_c = np.full(G, "", dtype=object)
-    if fit.p - off < 2:
-        cond = np.full(G, np.nan)
-        note_c[fit.fitted_ok] = "one input: collinearity does not arise"
-    else:
-        note_c[fit.fitted_ok] = "columns scaled to unit length, intercept included"
+    note_c[fit.fitted_ok & one_input] = "one input: collinearity does not arise"
+    note_c[fit.fitted_ok & ~one_input] = "columns scaled to unit length, intercept included"
     return [
         _gvif_check(fit, terms, vif_max),
         CheckResult(CONDITION, "collinearity (condition number)", "above", cond, None,

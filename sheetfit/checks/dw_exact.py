@@ -18,6 +18,9 @@ all groups of a chunk at once. The part below the first node is added from the f
 expansion ½·u·Σμ_i. Halving the nodes gives an error estimate; a group whose estimate exceeds
 TRAPEZOID_TOL is integrated again with scipy.integrate.quad, and a group where that fails too
 gets no exact value (the caller falls back to the beta approximation).
+
+p is the width of the group's own design (its batch's columns). A change point is taken as
+known (the usual practice): it fixes the segment columns of that design and adds no weight.
 """
 
 from __future__ import annotations

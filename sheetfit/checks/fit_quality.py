@@ -1,6 +1,8 @@
 """Does the model say anything, and on enough data: the model F-test, an R² threshold and rows per coefficient.
 
 The F statistic and R² come from the inference stage; these checks only frame them as verdicts.
+Parameters are counted per group: its active coefficients plus its change points (each an
+estimated parameter, so it counts against the rows like a coefficient).
 """
 
 from __future__ import annotations
@@ -34,10 +36,15 @@ def r_squared(fit: EngineFit, r2: np.ndarray, min_r2: float) -> CheckResult:
 
 
 def enough_rows(fit: EngineFit, per_coefficient: float) -> CheckResult:
-    """Usable rows per estimated coefficient against a minimum."""
+    """Usable rows per estimated parameter (the group's coefficients and change points) against a minimum."""
     G = fit.n_groups
-    ratio = np.where(fit.fitted_ok, fit.n / fit.p, np.nan)
+    k = fit.n_params
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = np.where(fit.fitted_ok, fit.n / k, np.nan)
     note = np.full(G, "", dtype=object)
-    note[fit.fitted_ok] = f"usable rows per estimated coefficient ({fit.p} coefficients)"
+    for count, extra in {(int(a), int(c)) for a, c in zip(k[fit.fitted_ok], fit.extra_params[fit.fitted_ok])}:
+        points = f", {extra} of them change point{'s' if extra != 1 else ''}" if extra else ""
+        note[fit.fitted_ok & (k == count) & (fit.extra_params == extra)] = (
+            f"usable rows per estimated coefficient ({count} coefficients{points})")
     return CheckResult(ENOUGH_ROWS, "enough data", "below", ratio, None, np.full(G, per_coefficient), note,
                        "few rows for the number of coefficients ({stat} rows per coefficient < {thr})")

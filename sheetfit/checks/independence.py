@@ -8,6 +8,12 @@ dw_exact.py). Beyond that it comes from a beta law with the exact null mean and 
 the approximation is within about 3 % of the exact tail probability (1.4 % at 100 rows), while the
 exact way (an eigen-decomposition per group) would cost more than the rest of the checks
 together at 10,000 groups of 100 rows.
+
+Each group is tested on its own design (its batch's columns). A change point is taken as known,
+the usual practice: the Durbin–Watson null distribution is that of the residual maker of the
+group's design with its segment columns (n − p_b eigenvalues, p_b its own coefficients), and in
+Breusch–Godfrey the segment columns are regressors of the auxiliary regression, whose χ² df is
+the number of lags; neither test spends a degree of freedom on the change point itself.
 """
 
 from __future__ import annotations

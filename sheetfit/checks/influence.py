@@ -2,7 +2,8 @@
 
 Row highlights use common-practice cut-offs (leverage > 2p/n, |studentized residual| > 3,
 Cook's distance > 4/n) and never flag a group by themselves. A group is flagged only by the
-Bonferroni outlier test, a Cook's distance above the median of F(p, n−p), or a leverage of 1.
+Bonferroni outlier test, a Cook's distance above the median of F(k, n−k−c) (k coefficients, c change
+points; F(p, n−p) in an ordinary fit), or a leverage of 1.
 """
 
 from __future__ import annotations
@@ -20,17 +21,31 @@ LEVERAGE_ONE = "leverage_one"
 
 
 def row_highlights(fit: EngineFit, codes: np.ndarray, thr: Thresholds) -> dict[str, np.ndarray]:
-    """Boolean masks per engine row: high leverage, outlying, influential, leverage one."""
+    """Boolean masks per engine row, by key.
+
+    Worth a look: "leverage one", "outlying" (|studentized residual| > cutoff) and "moves the fit"
+    (Cook's distance above the median of F(p, n−p), the cut of `cooks_check`, so these are the rows
+    behind a failed influence check). Softer signals, common on healthy fits: "high leverage"
+    (> factor·p/n) and "influential" (Cook's distance > factor/n).
+    """
     n = fit.n[codes].astype(np.float64)
-    p = fit.p
+    p = fit.n_coef[codes].astype(np.float64)      # change points do not enter the hat matrix
     ok = fit.fitted_ok[codes]
     with np.errstate(invalid="ignore"):
+        cut = cooks_cut(fit)[codes]
         lev_one = ok & (fit.leverage >= 1.0 - LEVERAGE_ONE_TOL)
         high_lev = ok & (fit.leverage > thr.leverage_factor * p / n)
         outlying = ok & (np.abs(fit.studentized) > thr.studentized_cutoff)
         influential = ok & (fit.cooks > thr.cooks_factor / n)
-    return {"high leverage": high_lev, "outlying": outlying, "influential": influential,
-            "leverage one": lev_one}
+        moves = ok & (fit.cooks > cut)
+    return {"leverage one": lev_one, "outlying": outlying, "moves the fit": moves,
+            "high leverage": high_lev, "influential": influential}
+
+
+def cooks_cut(fit: EngineFit) -> np.ndarray:
+    """Per group the median of F(k, n − k − c): k coefficients, c change points (the Cook's check's cut)."""
+    with np.errstate(invalid="ignore"):
+        return np.asarray(stats.f.ppf(0.5, fit.n_coef, fit.df_resid), dtype=np.float64)
 
 
 def _by_group(values: np.ndarray, codes: np.ndarray, G: int, how: str) -> tuple[np.ndarray, np.ndarray]:
@@ -82,8 +97,7 @@ def cooks_check(fit: EngineFit, codes: np.ndarray, source_rows: np.ndarray) -> C
     """Largest Cook's distance against the median of F(p, n−p)."""
     G = fit.n_groups
     dmax, where = _by_group(fit.cooks, codes, G, "plain")
-    with np.errstate(invalid="ignore"):
-        cut = stats.f.ppf(0.5, fit.p, fit.df_resid)
+    cut = cooks_cut(fit)
     note = np.full(G, "", dtype=object)
     extra = np.full(G, "", dtype=object)
     for g in np.flatnonzero(fit.fitted_ok):

@@ -1,4 +1,9 @@
-"""Linear form: Ramsey's RESET, whether powers of the fitted values add to the model (a curved relation)."""
+"""Linear form: Ramsey's RESET, whether powers of the fitted values add to the model (a curved relation).
+
+Each group is tested on its own design (its batch's columns). A change point is taken as known
+for the regressors (the usual practice) but, as an estimated parameter, it takes one degree of
+freedom from the F denominator: df = n − own coefficients − change points − 2.
+"""
 
 from __future__ import annotations
 
@@ -15,14 +20,13 @@ RESET = "reset"
 def reset(fit: EngineFit) -> CheckResult:
     """Ramsey's RESET, F form: do squares and cubes of the fitted values add to the model?"""
     stat, pval, note = empty_arrays(fit.n_groups)
-    p = fit.p
     for b in fit.batches:
         f = (b.y - b.resid) * b.mask
         scale = np.abs(f).max(axis=1, keepdims=True)
         f = f / np.where(scale > 0, scale, 1.0)
         f2 = f * f
         Z = np.concatenate([b.W, f2[:, :, None], (f2 * f)[:, :, None]], axis=2)
-        df2 = b.n - p - 2
+        df2 = b.df_resid - 2
         small = df2 < 1
         _, rss_u, ok = aux_r2(Z, b.y, b.mask)
         with np.errstate(invalid="ignore", divide="ignore"):

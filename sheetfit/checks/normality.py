@@ -1,4 +1,8 @@
-"""Normal residuals: Jarque–Bera (skewness and kurtosis) and Shapiro–Wilk, per group."""
+"""Normal residuals: Jarque–Bera (skewness and kurtosis) and Shapiro–Wilk, per group.
+
+Both look at the residuals alone, so neither the group's own set of coefficients nor a change
+point (taken as known, the usual practice) enters their null distribution.
+"""
 
 from __future__ import annotations
 

@@ -3,6 +3,11 @@
 Covariances are computed in the engine's units (residuals / y_scale, raw columns / their scale),
 where every number is of order one, and converted back by powers of two (`coefficient_exponent`):
 exact, and inf or 0 only where the true value is outside double precision.
+
+Each batch works in its own width (its `slots` among the model's coefficients) and its blocks are
+placed into the (G, p, p) arrays at those slots; slots a group does not use stay NaN. A change
+point is taken as known for the covariance (the usual practice); HC1's n/(n − k) uses the group's
+residual degrees of freedom, change points counted, as does the F of the robust Wald test.
 """
 
 from __future__ import annotations
@@ -27,11 +32,17 @@ def _selected(b: Batch, only: np.ndarray | None) -> tuple[np.ndarray | slice, np
 
 
 def coefficient_exponent(fit: EngineFit) -> np.ndarray:
-    """(G, p) k with β_j = 2**k · (β_j in the engine's units): y_scale / column scale as a power of two."""
+    """(G, p) k with β_j = 2**k · (β_j in the engine's units): y_scale / column scale as a power of two
+    (0 on slots a group does not use)."""
     out = np.zeros((fit.n_groups, fit.p), dtype=int)
     for b in fit.batches:
-        out[b.groups] = pow2_exponent(b.y_scale)[:, None] - pow2_exponent(b.col_scale)
+        out[b.groups[:, None], b.slots[None, :]] = pow2_exponent(b.y_scale)[:, None] - pow2_exponent(b.col_scale)
     return out
+
+
+def place(out: np.ndarray, groups: np.ndarray, slots: np.ndarray, block: np.ndarray) -> None:
+    """Write a batch's (len(groups), p_b, p_b) block into `out` (G, p, p) at its groups and slots."""
+    out[groups[:, None, None], slots[None, :, None], slots[None, None, :]] = block
 
 
 def to_raw(cov: np.ndarray, k: np.ndarray) -> np.ndarray:
@@ -61,7 +72,7 @@ def _hc_scaled(fit: EngineFit, kind: str, only: np.ndarray | None) -> np.ndarray
             if kind == "hc0":
                 w = e2
             elif kind == "hc1":
-                w = e2 * (n / (n - fit.p))[:, None]
+                w = e2 * (n / b.df_resid[at])[:, None]
             elif kind == "hc2":
                 w = e2 / one
             elif kind == "hc3":
@@ -71,7 +82,7 @@ def _hc_scaled(fit: EngineFit, kind: str, only: np.ndarray | None) -> np.ndarray
         w = np.where(b.mask[at], w, 0.0)
         Q, A = b.Q[at], b.A[at]
         meat = np.einsum("gmk,gm,gml->gkl", Q, w, Q)
-        out[groups] = A @ meat @ np.swapaxes(A, 1, 2)
+        place(out, groups, b.slots, A @ meat @ np.swapaxes(A, 1, 2))
     return out
 
 
@@ -105,25 +116,35 @@ def _hac_scaled(fit: EngineFit, lags: int | None, only: np.ndarray | None) -> tu
             G_l = np.einsum("gmk,gml->gkl", u[:, lag:], u[:, :-lag])
             S += w[:, None, None] * (G_l + np.swapaxes(G_l, 1, 2))
         A = b.A[at]
-        out[groups] = A @ S @ np.swapaxes(A, 1, 2)
+        place(out, groups, b.slots, A @ S @ np.swapaxes(A, 1, 2))
         lag_used[groups] = L
     return out, lag_used
 
 
 def wald_f(fit: EngineFit, cov: np.ndarray, k: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """F = b'V⁻¹b / q of all slopes (the intercept excluded) with covariance `cov`, and its p-value
-    from F(q, n − p). With k (coefficient_exponent), `cov` is in the engine's units and β is
-    taken there too (F does not depend on the units)."""
-    off = 1 if fit.intercept else 0
-    q = fit.p - off
+    """F = b'V⁻¹b / q of a group's active slopes (the constant excluded) with covariance `cov`, and
+    its p-value from F(q, df_resid). With k (coefficient_exponent), `cov` is in the engine's units
+    and β is taken there too (F does not depend on the units). A change point has no row in the
+    covariance, so it is not among the q tested; it counts in df_resid."""
+    slopes = fit.active.copy()
+    if fit.intercept:
+        slopes[:, 0] = False
+    q = slopes.sum(axis=1)
     beta = fit.beta if k is None else np.ldexp(fit.beta, -k)
-    b = beta[:, off:]
-    V = cov[:, off:, off:]
-    ok = np.isfinite(V).all(axis=(1, 2)) & np.isfinite(b).all(axis=1)
     F = np.full(fit.n_groups, np.nan)
-    if ok.any():
-        sol = np.linalg.solve(V[ok], b[ok][..., None])[..., 0]
-        F[ok] = (b[ok] * sol).sum(axis=1) / q
+    patterns, which = np.unique(slopes, axis=0, return_inverse=True)
+    which = np.asarray(which).reshape(-1)
+    for j, pattern in enumerate(patterns):
+        idx = np.flatnonzero(pattern)
+        rows = np.flatnonzero(which == j)
+        if not len(idx):
+            continue
+        b = beta[rows][:, idx]
+        V = cov[rows][:, idx][:, :, idx]
+        ok = np.isfinite(V).all(axis=(1, 2)) & np.isfinite(b).all(axis=1)
+        if ok.any():
+            sol = np.linalg.solve(V[ok], b[ok][..., None])[..., 0]
+            F[rows[ok]] = (b[ok] * sol).sum(axis=1) / len(idx)
     with np.errstate(invalid="ignore"):
         return F, stats.f.sf(F, q, fit.df_resid)
 
@@ -179,7 +200,8 @@ def coefficient_extras(fit: EngineFit, inf: Inference, het: np.ndarray, dep: np.
         extra[f"robust p-value ({kind})"] = np.where(het[:, None], 2 * stats.t.sf(np.abs(fit.beta / hc_se), df), np.nan)
         extra["HAC std error"] = np.where(dep[:, None], hac_se, np.nan)
         extra["HAC p-value"] = np.where(dep[:, None], 2 * stats.t.sf(np.abs(fit.beta / hac_se), df), np.nan)
-        extra["HAC lag"] = np.where(dep[:, None], np.repeat(covs.hac_lag[:, None], fit.p, axis=1), np.nan)
+        extra["HAC lag"] = np.where(dep[:, None] & fit.active, np.repeat(covs.hac_lag[:, None], fit.p, axis=1),
+                                    np.nan)
     if thr.inference == "robust":
         use_hc = het & ~dep
         se = np.where(dep[:, None], hac_se, np.where(use_hc[:, None], hc_se, fit.se))

@@ -1,6 +1,10 @@
 """Constant variance: Breusch–Pagan (Koenker) and White, n·R² of squared residuals on the inputs.
 
 A failure here is what makes the run show heteroscedasticity-consistent (HC) std errors.
+
+Each group is tested on its own design (its batch's columns). A change point is taken as known,
+the usual practice: its segment columns are the regressors, and it costs these n·R² tests no
+degree of freedom (their χ² df count the auxiliary regressors only).
 """
 
 from __future__ import annotations
@@ -12,7 +16,13 @@ from scipy import stats
 
 from ..model.engine import EngineFit
 from ..terms import Term, polynomial_family
-from .auxiliary import aux_r2, projection_r2, with_constant
+from .auxiliary import (
+    aux_r2,
+    batch_has_constant,
+    batch_terms,
+    projection_r2,
+    with_constant,
+)
 from .result import CheckResult, empty_arrays
 
 BREUSCH_PAGAN = "breusch_pagan"
@@ -23,7 +33,7 @@ def breusch_pagan(fit: EngineFit) -> CheckResult:
     """Koenker's studentized form: n·R² of squared residuals on the model's inputs."""
     stat, pval, note = empty_arrays(fit.n_groups)
     for b in fit.batches:
-        if fit.intercept:       # the model's own design holds the constant: reuse its QR
+        if batch_has_constant(b, fit.intercept):   # the group's own design holds the constant: reuse its QR
             k = b.Q.shape[2]
             r2, _ = projection_r2(b.Q, b.resid**2, b.mask)
             ok = np.ones(len(b.groups), dtype=bool)
@@ -71,11 +81,11 @@ def white_columns(terms: Sequence[Term], intercept: bool) -> list[tuple[int, int
 
 
 def white(fit: EngineFit, terms: Sequence[Term]) -> CheckResult:
-    """n·R² of squared residuals on the inputs, their squares and cross-products."""
+    """n·R² of squared residuals on the inputs, their squares and cross-products (of each group's own terms)."""
     stat, pval, note = empty_arrays(fit.n_groups)
-    pairs = white_columns(terms, fit.intercept)
-    k = len(pairs)
     for b in fit.batches:
+        pairs = white_columns(batch_terms(b, terms, fit.intercept), batch_has_constant(b, fit.intercept))
+        k = len(pairs)
         Z0 = with_constant(b, fit.intercept)
         Z = np.stack([Z0[:, :, i] * Z0[:, :, j] for i, j in pairs], axis=2)
         small = b.n <= k

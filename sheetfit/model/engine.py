@@ -49,7 +49,8 @@ class Batch:
     those of y / y_scale; raw column j is col_scale[j] times column j of W·T, so
     X = W·T·diag(col_scale) and (X'X)⁻¹ = diag(col_scale)⁻¹·A·Aᵀ·diag(col_scale)⁻¹. Everything
     stored here is of order one, whatever the magnitude of the data. Only groups that could be
-    fitted are in a batch.
+    fitted are in a batch. A batch has its own width p_b: `slots` says where its coefficients sit
+    among the EngineFit's p slots (all of them for an ordinary fit).
     """
 
     groups: np.ndarray      # (G,) group ids
@@ -67,11 +68,23 @@ class Batch:
     rss: np.ndarray         # (G,) residual sum of squares / y_scale²
     y_scale: np.ndarray     # (G,) a power of two near the group's largest |y|
     col_scale: np.ndarray   # (G, p) a power of two per raw column (1 for the intercept)
+    slots: np.ndarray       # (p,) positions of these coefficients among the EngineFit's slots
+    extra_params: np.ndarray  # (G,) parameters estimated outside least squares (change points)
+
+    @property
+    def df_resid(self) -> np.ndarray:
+        """Residual degrees of freedom per group (G,): n − own coefficients − extra parameters."""
+        return self.n - self.Q.shape[2] - self.extra_params
 
 
 @dataclass(frozen=True)
 class EngineFit:
-    """Per-group, per-coefficient and per-row results of the engine (arrays, no tables yet)."""
+    """Per-group, per-coefficient and per-row results of the engine (arrays, no tables yet).
+
+    p is the number of coefficient slots (the width of the arrays); a group may use only some of
+    them (`active`), and may have parameters estimated outside least squares (`extra_params`,
+    change points) that take residual degrees of freedom. Count parameters with `n_params`.
+    """
 
     n_groups: int
     p: int
@@ -94,6 +107,21 @@ class EngineFit:
     internal: np.ndarray        # internally studentized (standardized) residual
     cooks: np.ndarray
     batches: tuple[Batch, ...]
+    active: np.ndarray          # (G, p) bool: the coefficient slots each group uses
+    n_coef: np.ndarray          # (G,) int: active coefficients per group
+    extra_params: np.ndarray    # (G,) int: parameters estimated outside least squares (change points)
+
+    @property
+    def n_params(self) -> np.ndarray:
+        """Estimated parameters per group (G,): active coefficients plus extra ones (what AIC/BIC count)."""
+        return self.n_coef + self.extra_params
+
+    @property
+    def has_constant(self) -> np.ndarray:
+        """(G,) bool: the group's model holds the constant (the intercept slot is active)."""
+        if not self.intercept:
+            return np.zeros(self.n_groups, dtype=bool)
+        return self.active[:, 0].copy()
 
     @property
     def rss(self) -> np.ndarray:
@@ -146,22 +174,26 @@ def _pad(values: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarray:
 
 
 def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray, n_groups: int,
-               terms: Sequence[Term], intercept: bool) -> EngineFit:
+               terms: Sequence[Term], intercept: bool, extra_params: np.ndarray | None = None) -> EngineFit:
     """Fit y on the terms for every group at once.
 
     Rows must be sorted by group code (and by sequence within a group); `cols` holds the
-    source columns (float64, finite) the terms need, aligned with y.
+    source columns (float64, finite) the terms need, aligned with y. `extra_params` (G,) counts
+    parameters estimated outside least squares per group (change points, default none): they
+    reduce the residual degrees of freedom.
     """
     y = np.asarray(y, dtype=np.float64)
     p = len(terms) + (1 if intercept else 0)
+    extra = (np.zeros(n_groups, dtype=np.int64) if extra_params is None
+             else np.asarray(extra_params, dtype=np.int64))
     starts, counts = group_bounds(codes, n_groups)
-    reason = reasons_before_solving(cols, terms, starts, counts, n_groups, p, intercept)
+    reason = reasons_before_solving(cols, terms, starts, counts, n_groups, p, intercept, extra)
     out = _Collected.empty(n_groups, p, len(y))
     for ids in _batches(counts, reason == ""):
-        solved = _fit_batch(y, cols, starts, counts, ids, terms, intercept, reason)
+        solved = _fit_batch(y, cols, starts, counts, ids, terms, intercept, reason, extra)
         if solved is not None:
             out.add(*solved, p=p, intercept=intercept)
-    return _engine_fit(out, reason, codes, counts, n_groups, p, intercept)
+    return _engine_fit(out, reason, codes, counts, p, intercept, extra)
 
 
 @dataclass(frozen=True)
@@ -177,6 +209,7 @@ class _Part:
     W: np.ndarray
     T: np.ndarray
     scale: np.ndarray
+    extra: np.ndarray
     Q: np.ndarray | None = None
     R: np.ndarray | None = None
 
@@ -203,13 +236,13 @@ def _pad_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray
 
 
 def _fit_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray, counts: np.ndarray,
-               ids: np.ndarray, terms: Sequence[Term], intercept: bool, reason: np.ndarray
-               ) -> tuple[Batch, np.ndarray, np.ndarray] | None:
+               ids: np.ndarray, terms: Sequence[Term], intercept: bool, reason: np.ndarray,
+               extra: np.ndarray) -> tuple[Batch, np.ndarray, np.ndarray] | None:
     """Pad, factor and solve one batch; groups out of range or exactly collinear are dropped (reasons set)."""
     mask, rows, yp, colp = _pad_batch(y, cols, starts, counts, ids)
     n = counts[ids]
     W, T, scale = working_design(colp, mask, n, terms, intercept)
-    part = _Part(ids, rows, mask, n, yp, colp, W, T, scale)
+    part = _Part(ids, rows, mask, n, yp, colp, W, T, scale, extra[ids])
     part = part.only(~values_out_of_range(W, T, scale, ids, terms, intercept, reason))
     if not len(part.ids):
         return None
@@ -220,8 +253,8 @@ def _fit_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray
         return None
     solved = _solve_batch(part, terms, intercept)
     fitted = solved[0]
-    bad = coefficients_out_of_range(solved[1], fitted.A, fitted.rss, fitted.n, fitted.y_scale, fitted.col_scale,
-                                    fitted.groups, terms, intercept, reason)
+    bad = coefficients_out_of_range(solved[1], fitted.A, fitted.rss, fitted.df_resid, fitted.y_scale,
+                                    fitted.col_scale, fitted.groups, terms, intercept, reason)
     if bad.any():                     # rare: solve again without them (groups are independent)
         part = part.only(~bad)
         if not len(part.ids):
@@ -256,8 +289,8 @@ def _solve_batch(part: _Part, terms: Sequence[Term], intercept: bool) -> tuple[B
     A = from_working(T, rinv, order)
     h = (Q**2).sum(axis=2)
     r_ss = (e**2).sum(axis=1)
-    batch = Batch(groups=ids, rows=rows, mask=mask, n=n, W=W, T=T, Q=Q, R=R, A=A,
-                  y=yp, resid=e, leverage=h, rss=r_ss, y_scale=y_scale, col_scale=scale)
+    batch = Batch(groups=ids, rows=rows, mask=mask, n=n, W=W, T=T, Q=Q, R=R, A=A, y=yp, resid=e, leverage=h,
+                  rss=r_ss, y_scale=y_scale, col_scale=scale, slots=np.arange(p), extra_params=part.extra)
     return batch, b, fit
 
 
@@ -296,7 +329,7 @@ class _Collected:
         ids, mask, rows, yp, n, r_ss = batch.groups, batch.mask, batch.rows, batch.y, batch.n, batch.rss
         ys = batch.y_scale
         ey, ec = pow2_exponent(ys)[:, None], pow2_exponent(batch.col_scale)
-        s2 = r_ss / (n - p)
+        s2 = r_ss / (n - p - batch.extra_params)
         aat = batch.A @ np.swapaxes(batch.A, 1, 2)
         with np.errstate(over="ignore", under="ignore"):
             self.beta[ids] = np.ldexp(b, ey - ec)
@@ -315,23 +348,26 @@ class _Collected:
 
 
 def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: np.ndarray,
-                n_groups: int, p: int, intercept: bool) -> EngineFit:
+                p: int, intercept: bool, extra: np.ndarray) -> EngineFit:
     """The EngineFit from the collected arrays, with the row influence measures they imply."""
     ok = reason == ""
-    df_resid = (counts - p).astype(np.float64)
+    n_groups = len(counts)
+    df_resid = (counts - p - extra).astype(np.float64)
     internal, external, cooks = _influence(out.resid_scaled, out.leverage, codes, out.rss, df_resid, p)
     return EngineFit(n_groups=n_groups, p=p, intercept=intercept, fitted_ok=ok,
                      not_fitted_reason=reason, n=counts, beta=out.beta, se=out.se, xtx_inv=out.xtx_inv,
                      y_scale=out.y_scale, rss_scaled=out.rss, tss_scaled=out.tss, df_resid=df_resid,
                      ymean=out.ymean, fitted=out.fitted,
                      resid=out.resid, leverage=out.leverage, studentized=external, internal=internal,
-                     cooks=cooks, batches=tuple(out.batches))
+                     cooks=cooks, batches=tuple(out.batches), active=np.ones((n_groups, p), dtype=bool),
+                     n_coef=np.full(n_groups, p), extra_params=extra)
 
 
 def _influence(resid: np.ndarray, h: np.ndarray, codes: np.ndarray, rss: np.ndarray,
                df_resid: np.ndarray, p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Internally and externally studentized residuals and Cook's distance per row (scale-free:
-    residuals and rss in the units of y / y_scale)."""
+    residuals and rss in the units of y / y_scale). df_resid is per group and counts any extra
+    parameters: s² = RSS/df, s_(i)² = (RSS − e_i²/(1−h_i))/(df − 1), D_i = r_i²·h_i/(p·(1−h_i))."""
     rss_r = rss[codes]
     df_r = df_resid[codes]
     with np.errstate(invalid="ignore", divide="ignore"):

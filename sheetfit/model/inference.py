@@ -45,6 +45,8 @@ def inference(fit: EngineFit, level: float) -> Inference:
     """t, p-values and confidence limits of every coefficient, plus whole-model metrics.
 
     Sums of squares are taken in units of the group's y_scale, so no square of the data is formed.
+    Parameters are counted per group (`fit.n_params`: active coefficients and change points), so
+    the model degrees of freedom, AIC and BIC count a change point as an estimated parameter.
     """
     df = fit.df_resid
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -53,8 +55,8 @@ def inference(fit: EngineFit, level: float) -> Inference:
         q = stats.t.ppf(0.5 + level / 2.0, df)
         half = q[:, None] * fit.se
         n = fit.n.astype(np.float64)
-        k_const = 1 if fit.intercept else 0
-        df_model = fit.p - k_const
+        k_const = fit.has_constant.astype(np.int64)
+        df_model = fit.n_params - k_const
         rss, tss, ys = fit.rss_scaled, fit.tss_scaled, fit.y_scale   # sums of squares of y / y_scale
         r2 = 1.0 - rss / tss
         adj = 1.0 - (n - k_const) / df * (1.0 - r2)
@@ -64,15 +66,18 @@ def inference(fit: EngineFit, level: float) -> Inference:
         f = ((tss - rss) / df_model) / (rss / df)
         f_p = stats.f.sf(f, df_model, df)
         llf = -n / 2.0 * (np.log(2 * np.pi) + np.log(rss / n) + 2.0 * np.log(ys) + 1.0)
-        aic = -2.0 * llf + 2.0 * fit.p
-        bic = -2.0 * llf + np.log(n) * fit.p
+        aic = -2.0 * llf + 2.0 * fit.n_params
+        bic = -2.0 * llf + np.log(n) * fit.n_params
     return Inference(t=t, p_value=pval, ci_low=fit.beta - half, ci_high=fit.beta + half, t_quantile=q,
                      r2=r2, adj_r2=adj, residual_std_error=rse, rmse=rmse, cv_rmse=cv, f=f, f_p_value=f_p,
-                     aic=aic, bic=bic, df_model=np.full(fit.n_groups, df_model))
+                     aic=aic, bic=bic, df_model=df_model)
 
 
 def mean_std_error(fit: EngineFit, groups: np.ndarray, D: np.ndarray) -> np.ndarray:
     """Std error of the fitted mean, √(d'(X'X)⁻¹d·σ²), at raw design rows D (len(groups), k, p).
+
+    Only a group's active slots of D count (each batch takes its own columns), and σ² uses the
+    group's residual degrees of freedom (change points counted).
 
     Computed as ‖d'A‖·σ in the engine's units (a sum of squares of numbers of order one), so it
     is finite whenever the answer is, even where fit.xtx_inv or fit.sigma2 alone is not. NaN for
@@ -87,8 +92,8 @@ def mean_std_error(fit: EngineFit, groups: np.ndarray, D: np.ndarray) -> np.ndar
         if not len(sel):
             continue
         rows = at[b.groups[sel]]
-        d = np.ldexp(D[rows], -pow2_exponent(b.col_scale[sel])[:, None, :])     # raw column / its scale
-        s2 = b.rss[sel] / (b.n[sel] - fit.p)
+        d = np.ldexp(D[rows][:, :, b.slots], -pow2_exponent(b.col_scale[sel])[:, None, :])  # raw column / scale
+        s2 = b.rss[sel] / b.df_resid[sel]
         v = ((d @ b.A[sel]) ** 2).sum(axis=2) * s2[:, None]
         with np.errstate(over="ignore", under="ignore"):
             out[rows] = np.ldexp(np.sqrt(v), pow2_exponent(b.y_scale[sel])[:, None])

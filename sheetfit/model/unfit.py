@@ -18,15 +18,27 @@ COLLINEAR_TOL = 1e-10       # |R_jj| / ‖W_j‖ below this: column j is a combi
 
 
 def reasons_before_solving(cols: Mapping[str, np.ndarray], terms: Sequence[Term], starts: np.ndarray,
-                           counts: np.ndarray, n_groups: int, p: int, intercept: bool) -> np.ndarray:
-    """Why each group cannot be fitted, as far as is known before solving ('' where it may be)."""
+                           counts: np.ndarray, n_groups: int, p: int, intercept: bool,
+                           extra: np.ndarray | None = None) -> np.ndarray:
+    """Why each group cannot be fitted, as far as is known before solving ('' where it may be).
+
+    `extra` (G,) counts parameters estimated outside least squares (change points): a group needs
+    more rows than coefficients and change points together, so one degree of freedom is left.
+    """
     reason = np.full(n_groups, "", dtype=object)
-    too_few = counts <= p
+    extra = np.zeros(n_groups, dtype=np.int64) if extra is None else extra
+    too_few = counts <= p + extra
     for g in np.flatnonzero(too_few):
-        reason[g] = (f"only {counts[g]} usable row{'s' if counts[g] != 1 else ''} for {p} "
-                     f"coefficient{'s' if p != 1 else ''}; at least {p + 1} are needed")
+        reason[g] = too_few_rows(int(counts[g]), p, int(extra[g]))
     constant_inputs(cols, terms, starts, counts, intercept, reason, ~too_few)
     return reason
+
+
+def too_few_rows(n: int, p: int, extra: int = 0) -> str:
+    """Plain words for a group with n rows, p coefficients and `extra` change points, n ≤ p + extra."""
+    points = f" and {extra} change point{'s' if extra != 1 else ''}" if extra else ""
+    return (f"only {n} usable row{'s' if n != 1 else ''} for {p} coefficient{'s' if p != 1 else ''}"
+            f"{points}; at least {p + extra + 1} are needed")
 
 
 def values_out_of_range(W: np.ndarray, T: np.ndarray, scale: np.ndarray, ids: np.ndarray,
@@ -64,15 +76,16 @@ def exactly_collinear(W: np.ndarray, R: np.ndarray, ids: np.ndarray, terms: Sequ
                              "(exact collinearity)")
 
 
-def coefficients_out_of_range(b: np.ndarray, A: np.ndarray, rss: np.ndarray, n: np.ndarray,
+def coefficients_out_of_range(b: np.ndarray, A: np.ndarray, rss: np.ndarray, df_resid: np.ndarray,
                               y_scale: np.ndarray, col_scale: np.ndarray, ids: np.ndarray,
                               terms: Sequence[Term], intercept: bool, reason: np.ndarray) -> np.ndarray:
     """(G,) bool: groups whose raw coefficient or std error would be beyond double precision; reasons set.
 
-    b, A and rss are in the engine's units (see engine.Batch); raw = 2**k times them.
+    b, A and rss are in the engine's units (see engine.Batch); raw = 2**k times them. df_resid is
+    the residual degrees of freedom per group (extra parameters counted).
     """
     k = pow2_exponent(y_scale)[:, None] - pow2_exponent(col_scale)
-    s2 = rss / (n - b.shape[1])
+    s2 = rss / df_resid
     root = np.sqrt(s2[:, None] * (A**2).sum(axis=2))
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         finite = np.isfinite(np.ldexp(b, k)) & np.isfinite(np.ldexp(root, k))
