@@ -5,17 +5,18 @@ fit_workbook(path, y=…, x=[…], group=[…], sheet=…) → FitResults
 fit_frame(data_frame, y=…, x=[…], group=[…]) → FitResults
 write_results(results, path) → Path
 predict(results_or_path, new_rows_df) → DataFrame
+savings(results_or_path, reporting_rows_df, actual=COL) → (per-row DataFrame, per-group DataFrame)
 """
 
 from __future__ import annotations
 
 from .provenance import __version__
 
-__all__ = ["fit_workbook", "fit_frame", "write_results", "predict", "FitJob", "FitResults", "__version__"]
+__all__ = ["fit_workbook", "fit_frame", "write_results", "predict", "savings", "read_back", "FitJob", "FitResults", "__version__"]
 
 
 def __getattr__(name: str):
-    if name in ("fit_workbook", "fit_frame", "write_results", "predict"):
+    if name in ("fit_workbook", "fit_frame", "write_results", "predict", "savings", "read_back"):
         from . import api
 
         return getattr(api, name)

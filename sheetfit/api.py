@@ -4,6 +4,7 @@ fit_workbook(path, y=…, x=[…], group=[…], sheet=…) → FitResults
 fit_frame(data_frame, y=…, x=[…], group=[…]) → FitResults
 write_results(results, path) → Path
 predict(results_or_path, new_rows_df) → DataFrame
+savings(results_or_path, reporting_rows_df, actual=COL) → (per-row DataFrame, per-group DataFrame)
 """
 
 from __future__ import annotations
@@ -17,11 +18,12 @@ import pandas as pd
 from .job import FitJob, job_file_settings, make_job
 from .pipeline import fit_job, fit_observations
 from .prediction.compute import predict
+from .prediction.savings import frame_savings
 from .read.frame import observations_from_frame
 from .report import write_results
 from .results.types import FitResults
 
-__all__ = ["fit_workbook", "fit_frame", "write_results", "predict", "job_from"]
+__all__ = ["fit_workbook", "fit_frame", "write_results", "predict", "savings", "read_back", "job_from"]
 
 
 def job_from(workbook: str | Path | None = None, job_file: str | Path | None = None, **settings: Any) -> FitJob:
@@ -54,3 +56,33 @@ def fit_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str] | str, group: Seq
     job = make_job({"workbook": "(data frame)", "y": y, "x": x, "group": group, "order": order, **settings})
     obs = observations_from_frame(frame, y=job.y, x=job.x, group=job.group, order=job.order)
     return fit_observations(obs, job)
+
+
+def savings(results_or_path: FitResults | str | Path, new_rows: pd.DataFrame, actual: str,
+            level: float | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Avoided use over a reporting period: each group's baseline applied to `new_rows` against the
+    measured use in column `actual`; returns the per-row and the per-group tables (as `sheetfit
+    predict --actual` writes them)."""
+    return frame_savings(results_or_path, new_rows, actual, level)
+
+
+def read_back(results_or_path: FitResults | str | Path, new_rows: pd.DataFrame, replicates: str | None = None,
+              level: float | None = None) -> pd.DataFrame:
+    """Input values read back from measured responses through each group's calibration line (inverse
+    prediction): `new_rows` holds the group keys and the responses in the column named as the fit's
+    response; `replicates` names a column of how many measurements each response averages. Returns
+    the columns given, then prediction.inverse.INVERSE_COLUMNS (as `sheetfit predict --inverse` writes)."""
+    from .prediction.compute import at_level, group_positions, store_of
+    from .prediction.inverse import INVERSE_COLUMNS, inverse_predict, quantification_limits
+    from .results.headers import shown_names
+
+    store = at_level(store_of(results_or_path), level)
+    given = [str(c) for c in new_rows.columns]
+    column = {c: new_rows.iloc[:, given.index(c)] for c in (*store.group_columns, store.y, replicates) if c in given}
+    gpos, why = group_positions(store, {c: v.tolist() for c, v in column.items()}, len(new_rows))
+    counts = None if replicates is None else column[replicates].to_numpy(dtype=object)
+    found = inverse_predict(store, gpos, column[store.y].to_numpy(dtype=object), counts, None,
+                            quantification_limits(store), group_reasons=why)
+    front = pd.DataFrame({c: v.to_numpy() for c, v in column.items()}, index=new_rows.index)
+    front.columns = shown_names(list(column), INVERSE_COLUMNS)
+    return pd.concat([front, found.set_axis(new_rows.index)], axis=1)

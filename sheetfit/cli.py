@@ -18,6 +18,7 @@ from .errors import InputFileError, JobError
 from .job import (
     ADJUST_METHODS,
     INFERENCE_KINDS,
+    CHANGE_POINT_SHAPES,
     OBSERVATION_MODES,
     ROBUST_KINDS,
     FitJob,
@@ -45,6 +46,7 @@ Adjust = _choices("Adjust", ADJUST_METHODS)
 Robust = _choices("Robust", ROBUST_KINDS)
 Inference = _choices("Inference", INFERENCE_KINDS)
 ObservationRows = _choices("ObservationRows", OBSERVATION_MODES)
+ChangePoint = _choices("ChangePoint", CHANGE_POINT_SHAPES)
 
 
 app = typer.Typer(
@@ -138,6 +140,11 @@ Exit status: 0 done; 1 bad input or nothing could be fitted (one line on stderr)
 2 wrong usage; 130 interrupted (Ctrl-C); 143 stopped (SIGTERM).
 """
 
+CHANGE_POINT_HELP = ("Shape the response takes against a temperature input: heating (flat above a change point, "
+                     "rising as it gets colder), cooling, two-slopes, heating-cooling (flat band between two "
+                     "change points) or auto (per group, the best of these and a straight line).")
+
+
 def _opt(default: Any, *names: str, help: str, show_default: bool | str = True, **kw: Any) -> Any:
     return typer.Option(default, *names, help=help, show_default=show_default, **kw)
 
@@ -164,8 +171,8 @@ def fit(
     overwrite: bool = _opt(False, "--overwrite", help="Replace the results workbook if it exists.", show_default=False),
     max_charts: int = _opt(DEFAULTS["max_charts"], "--max-charts", help="At most this many charts (flagged groups first)."),
     observations: ObservationRows = _opt(ObservationRows(DEFAULTS["observations"]), "--observations",
-                                         help="Rows on the observations sheet: all, flagged (unusable, influential "
-                                              "and outlying rows only) or none."),
+                                         help="Rows on the observations sheet: all, flagged (unusable rows and rows "
+                                              "with row flags only) or none."),
     alpha: float = _opt(DEFAULTS["alpha"], "--alpha", help="Level for every p-value-based verdict."),
     adjust: Adjust = _opt(Adjust(DEFAULTS["adjust"]), "--adjust",
                           help="Adjust p-values across groups: bh (false discovery rate), holm, or none."),
@@ -188,6 +195,12 @@ def fit(
                           help="Kind of heteroscedasticity-robust std errors."),
     inference: Inference = _opt(Inference(DEFAULTS["inference"]), "--inference",
                                 help="Std errors behind intervals and flags: classic or robust."),
+    change_point: ChangePoint = _opt(ChangePoint(DEFAULTS["change_point"]), "--change-point", help=CHANGE_POINT_HELP),
+    change_point_input: str | None = _opt(None, "--change-point-input", metavar="COL", show_default=False, help="The temperature column (default: the first --x that is a plain column)."),
+    baseline_checks: bool | None = _opt(None, "--baseline-checks/--no-baseline-checks", show_default=False, help="Judge fits by the energy-baseline criteria below (default: on with --change-point)."),
+    max_cv_rmse: float = _opt(DEFAULTS["max_cv_rmse"], "--max-cv-rmse", help="Baseline criterion: flag fits whose CV(RMSE) in % is above this."),
+    max_nmbe: float = _opt(DEFAULTS["max_nmbe"], "--max-nmbe", help="Baseline criterion: flag fits whose |NMBE| in % is above this."),
+    baseline_min_r2: float = _opt(DEFAULTS["baseline_min_r2"], "--baseline-min-r2", help="Baseline criterion: flag fits whose R² is below this."),
     job_file: Path | None = _opt(None, "--job", help="TOML job file with settings; options given here override it.", show_default=False, metavar="JOB.toml", readable=False),
     strict: bool = _opt(False, "--strict", help="Stop with an error if any row cannot be used.", show_default=False),
     csv_delimiter: str | None = _opt(None, "--csv-delimiter", help="Field separator of a .csv input (default: guessed).", show_default=False, metavar="C"),
@@ -298,6 +311,16 @@ def predict(
     overwrite: bool = _opt(False, "--overwrite", help="Replace the output if it exists.", show_default=False),
     level: float | None = _opt(None, "--level", show_default=False,
                                help="Confidence level of the intervals (default: the fit's level)."),
+    actual: str | None = _opt(None, "--actual", metavar="COL", show_default=False,
+                              help="Column of measured use in NEW_ROWS (a reporting period): adds the avoided use "
+                                   "per row and, per group, its total with an interval and whether it is more "
+                                   "than noise."),
+    inverse: bool = _opt(False, "--inverse", show_default=False,
+                         help="Read input values back from measured responses (in the column named as the fit's "
+                              "response) through each group's calibration line, with intervals."),
+    replicates: str | None = _opt(None, "--replicates", metavar="COL", show_default=False,
+                                  help="With --inverse: column of how many measurements each response averages "
+                                       "(default: 1)."),
     quiet: bool = _opt(False, "--quiet", "-q", help="No progress bar and no summary; only the output path.",
                        show_default=False),
     debug: bool = _opt(False, "--debug", help="Show the full traceback of an error, and any warnings.", show_default=False),
@@ -310,8 +333,9 @@ def predict(
     rows, or no row that can be predicted, is an error (exit 1) and nothing is written.
 
     \b
-    Example:
+    Examples:
       sheetfit predict usage-fit.xlsx plan.xlsx --sheet Plan --out plan-predicted.xlsx
+      sheetfit predict baseline-fit.xlsx after-upgrade.xlsx --actual kWh
 
     \b
     Exit status: 0 done (some rows may have a reason); 1 bad input or no row predicted;
@@ -322,11 +346,16 @@ def predict(
         refuse_special_file(new_rows)
         if level is not None:
             level = check_setting("level", level)
+        if replicates is not None and not inverse:
+            raise JobError("--replicates needs --inverse (it counts the measurements behind each response)")
+        if inverse and actual is not None:
+            raise JobError("--inverse and --actual do not go together; run them separately")
         from .pipeline import predict_workbook
 
         done: list[Any] = []
         with stage_bar(not quiet, PREDICT_STAGES) as bar:
             path = predict_workbook(results_workbook, new_rows, sheet, out, overwrite, level=level,
+                                    actual=actual, inverse=inverse, replicates=replicates,
                                     progress=bar.stage, summary=done.append)
         typer.echo(f"predictions: {path}")
         if not quiet:

@@ -22,6 +22,7 @@ ADJUST_METHODS = ("bh", "holm", "none")
 ROBUST_KINDS = ("hc0", "hc1", "hc2", "hc3")
 INFERENCE_KINDS = ("classic", "robust")
 OBSERVATION_MODES = ("all", "flagged", "none")
+CHANGE_POINT_SHAPES = ("none", "heating", "cooling", "two-slopes", "heating-cooling", "auto")
 MAX_LAGS = 10_000
 
 
@@ -104,6 +105,16 @@ SCHEMA: dict[str, Setting] = {
     "robust": Setting("choice", "the kind of robust std errors", "--robust", choices=ROBUST_KINDS),
     "inference": Setting("choice", "the std errors behind intervals and flags", "--inference",
                          choices=INFERENCE_KINDS),
+    "change_point": Setting("choice", "the change-point shape of the temperature input", "--change-point",
+                            choices=CHANGE_POINT_SHAPES),
+    "change_point_input": Setting("text", "the input whose change point is searched (default: the first "
+                                  "plain-column input)", "--change-point-input", optional=True),
+    "baseline_checks": Setting("bool", "judge fits by the energy-baseline criteria (on with --change-point)",
+                               "--baseline-checks", optional=True),
+    "max_cv_rmse": _threshold("flag baselines whose CV(RMSE) in % is above this", "--max-cv-rmse"),
+    "max_nmbe": _threshold("flag baselines whose |NMBE| in % is above this", "--max-nmbe"),
+    "baseline_min_r2": Setting("number", "flag baselines whose R² is below this", "--baseline-min-r2",
+                               low=0.0, high=1.0),
 }
 TABLES = ("thresholds", "checks")        # job-file tables whose keys join the top-level ones
 
@@ -232,6 +243,9 @@ class Thresholds:
     hac_lags: int | None = None          # Newey–West lag; None → floor(4·(n/100)^(2/9))
     robust: str = "hc3"                  # heteroscedasticity-robust covariance kind
     inference: str = "classic"           # classic | robust: which std errors drive intervals and flags
+    max_cv_rmse: float = 20.0            # baseline criterion, % (common practice for monthly energy baselines)
+    max_nmbe: float = 0.5                # baseline criterion, |NMBE| in % (common practice)
+    baseline_min_r2: float = 0.75        # baseline criterion (common practice for energy baselines)
 
     def validate(self) -> "Thresholds":
         """Every field against SCHEMA (type, finiteness, range, choices); JobError on the first wrong one."""
@@ -262,6 +276,9 @@ class FitJob:
     overwrite: bool = False
     max_charts: int = 60
     observations: str = "all"            # all | flagged | none
+    change_point: str = "none"           # none | heating | cooling | two-slopes | heating-cooling | auto
+    change_point_input: str | None = None  # the temperature column; None → the first plain-column input
+    baseline_checks: bool | None = None  # energy-baseline criteria; None → on exactly when change_point is set
     thresholds: Thresholds = field(default_factory=Thresholds)
 
     def validate(self) -> "FitJob":
@@ -274,7 +291,15 @@ class FitJob:
         if not isinstance(self.thresholds, Thresholds):
             raise JobError(f"thresholds must be a sheetfit.job.Thresholds; found {_shown(self.thresholds)}")
         self.thresholds.validate()
+        if self.change_point != "none" and not self.intercept:
+            raise JobError("--change-point needs the constant (the use where the temperature has no effect); "
+                           "leave out --no-intercept")
         return self
+
+    @property
+    def judge_baseline(self) -> bool:
+        """Whether the energy-baseline criteria are checks of this run."""
+        return self.change_point != "none" if self.baseline_checks is None else bool(self.baseline_checks)
 
     @property
     def output_path(self) -> Path:
@@ -291,15 +316,21 @@ class FitJob:
         intercept, the sheets and the header row (as read).
         """
         rows: list[tuple[str, str]] = []
+        unused = set() if self.change_point != "none" else set(CHANGE_POINT_SETTINGS)
+        if not self.judge_baseline:
+            unused |= set(BASELINE_SETTINGS)
         for f in fields(self):
-            if f.name in SHOWN_ELSEWHERE:
+            if f.name in SHOWN_ELSEWHERE or f.name in unused:
                 continue
             rows.append((f.name.replace("_", " "), _show(getattr(self, f.name))))
         for f in fields(self.thresholds):
-            rows.append((f.name.replace("_", " "), _show(getattr(self.thresholds, f.name))))
+            if f.name not in unused:
+                rows.append((f.name.replace("_", " "), _show(getattr(self.thresholds, f.name))))
         return rows
 
 
+CHANGE_POINT_SETTINGS = ("change_point", "change_point_input")      # listed on `about` only when used
+BASELINE_SETTINGS = ("baseline_checks", "max_cv_rmse", "max_nmbe", "baseline_min_r2")
 SHOWN_ELSEWHERE = ("thresholds", "workbook", "y", "x", "intercept", "sheets", "header_row")
 
 

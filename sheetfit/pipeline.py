@@ -11,12 +11,14 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from . import checks
 from .checks import robust
+from .checks.lack_of_fit import replicate_keys
 from .checks.verdicts import Verdicts, verdicts
 from .errors import NoUsableDataError, UnusableRowsError
 from .job import FitJob
@@ -27,11 +29,12 @@ from .provenance import file_sha256
 from .read.tidy import REASON, SOURCE_ROW, Observations
 from .results import tables
 from .results.about import about_rows
+from .results.change_points import NMBE, UPPER_CHANGE_POINT, change_point_columns, residual_lag1
 from .results.headers import (CONDITION_NUMBER, FLAGS, HIGH_LEVERAGE_ROWS, INFLUENTIAL_ROWS, OUTLYING_ROWS,
     STATUS, USED, YES)
 from .results.observations import observations_table
 from .results.types import FitResults
-from .terms import coefficient_labels, source_columns
+from .terms import Term, change_point_input, coefficient_labels, source_columns
 
 ProgressCallback = Callable[[str], None]
 STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
@@ -96,23 +99,46 @@ def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback 
             _refuse_unusable(obs.data, reason)
         rows = group_rows(obs, reason)
         progress("fitting")
-        fit = fit_groups(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept)
-        if not fit.fitted_ok.any():
-            raise NoUsableDataError(_nothing_fitted(fit, rows.n_groups))
+        model = _fit_model(obs, job, rows)
+        if not model.fit.fitted_ok.any():
+            raise NoUsableDataError(_nothing_fitted(model.fit, rows.n_groups))
         progress("checking")
-        return _check_and_tabulate(obs, job, rows, fit, progress)
+        return _check_and_tabulate(obs, job, rows, model, progress)
 
 
-def _check_and_tabulate(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit,
+@dataclass(frozen=True)
+class FittedModel:
+    """The engine's fit and the terms it used; a change-point run adds its shapes (else None)."""
+
+    fit: EngineFit
+    terms: tuple[Term, ...]
+    shaped: Any = None              # model.shaped_fit.ShapedFit in a change-point run
+
+
+def _fit_model(obs: Observations, job: FitJob, rows: GroupedRows) -> FittedModel:
+    """Ordinary fit, or a change-point run's search and fit (--change-point)."""
+    if job.change_point == "none":
+        fit = fit_groups(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept)
+        return FittedModel(fit, tuple(obs.terms))
+    from .model.shaped_fit import fit_shapes
+
+    temperature = change_point_input(obs.terms, job.change_point_input)
+    shaped = fit_shapes(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, temperature,
+                        job.change_point, alpha=job.thresholds.alpha, level=job.level, intercept=job.intercept)
+    return FittedModel(shaped.fit, shaped.terms, shaped)
+
+
+def _check_and_tabulate(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedModel,
                         progress: ProgressCallback) -> FitResults:
     """Checks, verdicts, robust errors where assumptions fail, and the result tables."""
-    thr = job.thresholds
+    thr, fit, terms = job.thresholds, model.fit, model.terms
     inf = inference(fit, job.level)
-    labels = coefficient_labels(obs.terms, job.intercept)
+    labels = coefficient_labels(terms, job.intercept)
     in_order = checks.RowsInOrder(
         codes=rows.codes, source_rows=obs.data[SOURCE_ROW].to_numpy()[rows.pos],
-        order_note=f"rows in order of {obs.order}" if obs.order else "rows in input row order")
-    results, vifs = checks.run_checks(fit, inf, in_order, obs.terms, labels, thr)
+        order_note=f"rows in order of {obs.order}" if obs.order else "rows in input row order",
+        design_keys=replicate_keys({c: rows.columns[c] for c in source_columns(terms)}, rows.codes))
+    results, vifs = checks.run_checks(fit, inf, in_order, terms, labels, thr, job.judge_baseline)
     judged = verdicts(results, fit.fitted_ok, thr)
     het = judged.any_failed(checks.VARIANCE_CHECKS)
     dep = judged.any_failed(checks.INDEPENDENCE_CHECKS)
@@ -125,15 +151,28 @@ def _check_and_tabulate(obs: Observations, job: FitJob, rows: GroupedRows, fit: 
     highlights = checks.influence.row_highlights(fit, rows.codes, thr)
     condition = checks.statistic_of(results, "condition")
     progress("assembling tables")
-    return _tables(obs, job, rows, fit, inf, judged, coef_extra, highlights, condition)
+    return _tables(obs, job, rows, model, inf, judged, coef_extra, highlights, condition)
 
 
-def _tables(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit, inf: Inference,
+def _group_extra(job: FitJob, model: FittedModel, codes: np.ndarray) -> dict[str, np.ndarray]:
+    """The groups sheet's change-point columns and NMBE (change-point runs and baseline checks only)."""
+    extra: dict[str, np.ndarray] = {}
+    if model.shaped is not None:
+        found = change_point_columns(model.shaped.points, model.fit.fitted_ok)
+        if not np.isfinite(found[UPPER_CHANGE_POINT]).any():     # no heating-cooling group: no upper columns
+            found = {k: v for k, v in found.items() if not k.startswith(UPPER_CHANGE_POINT)}
+        extra.update(found)
+    if job.judge_baseline:
+        extra[NMBE] = checks.baseline.nmbe(model.fit, codes)
+    return extra
+
+
+def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedModel, inf: Inference,
             judged: Verdicts, coef_extra: dict[str, np.ndarray], highlights: dict[str, np.ndarray],
             condition: np.ndarray) -> FitResults:
     """The tidy result tables of a fitted and checked run."""
-    G, keys, codes = rows.n_groups, rows.keys, rows.codes
-    labels = list(coefficient_labels(obs.terms, job.intercept))
+    G, keys, codes, fit, terms = rows.n_groups, rows.keys, rows.codes, model.fit, model.terms
+    labels = list(coefficient_labels(terms, job.intercept))
     check_table = judged.table.copy()
     check_table = tables.with_keys(keys, check_table.pop("_code").to_numpy(), check_table.to_dict("series"))
     group_extra = {
@@ -141,6 +180,7 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit, i
         OUTLYING_ROWS: np.bincount(codes, weights=highlights["outlying"], minlength=G),
         INFLUENTIAL_ROWS: np.bincount(codes, weights=highlights["influential"], minlength=G),
         CONDITION_NUMBER: condition,
+        **_group_extra(job, model, codes),
     }
     # rows used and rows not used count the rows `observations` says are used and not used (a group that
     # could not be fitted uses none of its rows)
@@ -151,14 +191,17 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, fit: EngineFit, i
     observations = observations_table(obs, rows.reason, rows.pos, rows.codes_all, fit, highlights)
     ranges = tables.observed_ranges(rows.columns, codes, G)
     return FitResults(
-        job=job, group_columns=obs.group_columns, y=obs.y, terms=obs.terms, groups=groups,
+        job=job, group_columns=obs.group_columns, y=obs.y, terms=terms, groups=groups,
         coefficients=tables.coefficients_table(keys, fit, inf, labels, coef_extra),
         checks=check_table, observations=observations,
-        curves=tables.curves_table(keys, fit, inf, obs.terms, ranges),
+        curves=tables.curves_table(keys, fit, inf, terms, ranges,
+                                   change_points=None if model.shaped is None else model.shaped.change_points),
         quantiles=tables.quantiles_table(keys, fit, codes),
         xtx_inverse=tables.xtx_table(keys, fit, labels),
         input_ranges=tables.ranges_table(keys, fit, ranges),
         info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)), order=obs.order,
+        change_points=None if model.shaped is None else model.shaped.change_points,
+        response_mean=fit.ymean.copy(), residual_lag1=residual_lag1(fit.resid, codes, G),
     )
 
 
@@ -175,8 +218,9 @@ def _refuse_unusable(data: pd.DataFrame, reason: np.ndarray) -> None:
 def _nothing_fitted(fit: EngineFit, G: int) -> str:
     biggest = int(fit.n.max()) if G else 0
     first = next((r for r in fit.not_fitted_reason if r), "no usable rows")
+    need = int(fit.n_params.max()) if G else fit.p
     return (f"no group could be fitted ({G} group(s); the largest has {biggest} usable rows, "
-            f"{fit.p} coefficients need at least {fit.p + 1}); first reason: {first}")
+            f"{need} coefficients need at least {need + 1}); first reason: {first}")
 
 
 def fit_job(job: FitJob, progress: ProgressCallback | None = None) -> FitResults:
@@ -230,24 +274,25 @@ def summary_lines(results: FitResults) -> list[str]:
 
 
 def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None, out: Path | None,
-                     overwrite: bool, *, level: float | None = None, progress: ProgressCallback | None = None,
+                     overwrite: bool, *, level: float | None = None, actual: str | None = None,
+                     inverse: bool = False, replicates: str | None = None,
+                     progress: ProgressCallback | None = None,
                      summary: Callable[[object], None] | None = None) -> Path:
     """Apply the models stored in a results workbook to a sheet of new rows; write a predictions workbook.
 
     Default output: `<new rows stem>-predicted.xlsx` beside the new rows. Returns where it went;
     `summary`, when given, receives a `prediction.summary.PredictionSummary` (rows, predicted, sheets).
-    `level` sets the intervals' confidence level (default: the fit's). A group or input column
+    `level` sets the intervals' confidence level (default: the fit's). `actual` names the column of
+    measured use in a reporting period: the avoided use per row and per group is added (savings.py),
+    and no row that can be totalled is an error. A group or input column
     missing from the new rows, or no row that can be predicted, is an error and nothing is written.
     Stages reported to `progress`: reading, predicting, writing.
     """
     from .errors import OutputError
     from .prediction.compute import at_level, predict_cells
     from .prediction.new_rows import inputs_as_numbers, read_new_rows, require_columns
-    from .prediction.summary import (
-        PredictionSummary,
-        count_predicted,
-        nothing_predicted,
-    )
+    from .prediction.savings import check_actual_column, savings_for_cells
+    from .prediction.summary import PredictionSummary, count_predicted, nothing_predicted, nothing_to_total
     from .read import check_path
     from .report.predictions import write_predictions
     from .report.safe import check_output_path, output_error
@@ -267,18 +312,59 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
     if same:
         raise OutputError(f'output "{target}" is the results workbook; choose another --out')
     new = read_new_rows(new_rows_path, sheet)
+    about = (("results workbook", results_path.name), ("new rows", new_rows_path.name), ("sheet", new.sheet))
+    if inverse:
+        return _read_back_workbook(store, new, target, overwrite, about, replicates, progress, summary)
     require_columns(new, store)
+    if actual is not None:
+        check_actual_column([str(c) for c in new.frame.columns], actual, store, new.where())
     progress("predicting")
     raw = {c: new.frame[c].tolist() for c in (*store.group_columns, *store.sources)}
     preds = predict_cells(store, raw, len(new.frame))
     done = count_predicted(preds)
     if done == 0:
         raise nothing_predicted(preds, new.source_rows, new.where())
-    frame = inputs_as_numbers(new.frame, store.sources)     # inputs read as numbers are written as numbers
+    saved = None
+    if actual is not None:
+        saved = savings_for_cells(store, raw, len(new.frame), new.frame[actual].tolist(), preds, actual)
+        if saved.rows_in_totals == 0:
+            raise nothing_to_total(saved, new.source_rows, new.where())
+    # inputs (and actual use) read as numbers are written as numbers
+    frame = inputs_as_numbers(new.frame, (*store.sources, *((actual,) if actual else ())))
     progress("writing")
-    sheets = write_predictions(target, overwrite, store, frame, new.source_rows, preds,
-                               (("results workbook", results_path.name), ("new rows", new_rows_path.name),
-                                ("sheet", new.sheet)))
+    sheets = write_predictions(target, overwrite, store, frame, new.source_rows, preds, about, savings=saved)
     if summary is not None:
-        summary(PredictionSummary(target, len(preds), done, tuple(sheets)))
+        summary(PredictionSummary(target, len(preds), done, tuple(sheets), saved))
+    return target
+
+
+def _read_back_workbook(store: Any, new: Any, target: Path, overwrite: bool, about: tuple[tuple[str, str], ...],
+                        replicates: str | None, progress: ProgressCallback,
+                        summary: Callable[[object], None] | None) -> Path:
+    """`sheetfit predict --inverse`: each row's input value read back from its measured response (in the
+    column named as the fit's response) through its group's calibration line (prediction.inverse)."""
+    from .errors import JobError
+    from .prediction.compute import group_positions
+    from .prediction.inverse import READ_BACK, inverse_predict, line_problem, quantification_limits
+    from .prediction.new_rows import inputs_as_numbers, require_columns
+    from .prediction.summary import PredictionSummary, nothing_predicted
+    from .report.predictions import write_predictions
+
+    problem = line_problem(store)
+    if problem:
+        raise JobError(f"--inverse: {problem}; fit one --x column with a constant to read values back")
+    require_columns(new, store, (*store.group_columns, store.y, *((replicates,) if replicates else ())))
+    progress("predicting")
+    gpos, why = group_positions(store, {c: new.frame[c].tolist() for c in store.group_columns}, len(new.frame))
+    counts = None if replicates is None else np.asarray(new.frame[replicates].tolist(), dtype=object)
+    table = inverse_predict(store, gpos, np.asarray(new.frame[store.y].tolist(), dtype=object), counts, None,
+                            quantification_limits(store), group_reasons=why)
+    done = int(table[READ_BACK].notna().sum())
+    if done == 0:
+        raise nothing_predicted(table, new.source_rows, new.where())
+    frame = inputs_as_numbers(new.frame, (store.y, *((replicates,) if replicates else ())))
+    progress("writing")
+    sheets = write_predictions(target, overwrite, store, frame, new.source_rows, table, about, inverse=True)
+    if summary is not None:
+        summary(PredictionSummary(target, len(table), done, tuple(sheets)))
     return target

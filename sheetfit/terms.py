@@ -2,12 +2,14 @@
 
 Syntax: a column name; `COL^k` (k = 2…12); `log(COL)` (natural log); `sqrt(COL)`.
 A string that equals an existing column name exactly is always that column.
+A change-point run adds two term kinds of its own on the temperature column T, each with a
+change point τ per group: 'below' = max(0, τ − T) and 'above' = max(0, T − τ).
 """
 
 from __future__ import annotations
 
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,20 +21,29 @@ INTERCEPT = "constant"      # the label of the intercept wherever results show i
 _POWER = re.compile(r"^(?P<col>.+?)\s*\^\s*(?P<k>[0-9]+)$")
 _FUNC = re.compile(r"^(?P<fn>log|sqrt)\s*\(\s*(?P<col>.+?)\s*\)$", re.IGNORECASE)
 MAX_POWER = 12
+HINGES = ("below", "above")  # the change-point term kinds
 
 
 @dataclass(frozen=True)
 class Term:
-    """One design column: `kind` is 'column', 'power', 'log' or 'sqrt' of source column `column`."""
+    """One design column: `kind` is 'column', 'power', 'log', 'sqrt', 'below' or 'above' of source column `column`."""
 
     label: str
     column: str
     kind: str = "column"
     power: int = 1
 
-    def values(self, x: np.ndarray) -> np.ndarray:
-        """The term's values from the source column (float64); invalid domain gives NaN."""
+    def values(self, x: np.ndarray, change_point: np.ndarray | float | None = None) -> np.ndarray:
+        """The term's values from the source column (float64); invalid domain gives NaN.
+
+        'below' and 'above' need each row's change point τ; where τ is NaN (the group's shape has
+        no such change point) the value is 0.
+        """
         x = np.asarray(x, dtype=np.float64)
+        if self.kind in HINGES:
+            tau = np.asarray(np.nan if change_point is None else change_point, dtype=np.float64)
+            gap = tau - x if self.kind == "below" else x - tau
+            return np.where(np.isnan(tau), 0.0, np.maximum(gap, 0.0))
         with np.errstate(invalid="ignore", divide="ignore"):
             if self.kind == "column":
                 return x.copy()
@@ -145,3 +156,49 @@ def intercept_label(terms: Sequence[Term]) -> str:
 def coefficient_labels(terms: Sequence[Term], intercept: bool) -> tuple[str, ...]:
     """Coefficient labels in design order, the intercept first when the model has one."""
     return ((intercept_label(terms),) if intercept else ()) + tuple(t.label for t in terms)
+
+
+def change_point_input(terms: Sequence[Term], chosen: str | None) -> Term:
+    """The plain-column term whose change point is searched: `chosen`, else the first plain column."""
+    plain = [t for t in terms if t.kind == "column"]
+    if chosen is None:
+        if not plain:
+            raise TermSyntaxError("--change-point needs a temperature input given as a plain column to --x "
+                                  "(not a power, log or sqrt); add one or name it with --change-point-input")
+        return plain[0]
+    for t in plain:
+        if t.column == chosen or t.column == str(chosen).strip():
+            return t
+    raise TermSyntaxError(f'--change-point-input "{chosen}" is not one of the plain-column inputs '
+                          f'({", ".join(t.column for t in plain) or "none"}); add --x "{chosen}" or name one of them')
+
+
+def hinge_label(column: str, kind: str) -> str:
+    """The coefficient label of a change-point term: 'T below change point' or 'T above change point'."""
+    return f"{column} {kind} change point"
+
+
+def with_change_point_terms(terms: Sequence[Term], temperature: Term) -> tuple[Term, ...]:
+    """The terms of a change-point run: the temperature term becomes (below, above, itself), in place.
+
+    A group uses the slots its shape needs: heating → below; cooling → above; two-slopes and
+    heating-cooling → both; a straight line → the plain temperature term.
+    """
+    out: list[Term] = []
+    for t in terms:
+        if t == temperature:
+            out += [Term(hinge_label(t.column, k), t.column, k) for k in HINGES]
+        out.append(t)
+    return tuple(out)
+
+
+def design_matrix(terms: Sequence[Term], intercept: bool, source: Mapping[str, np.ndarray],
+                  change_points: Mapping[str, np.ndarray] | None = None) -> np.ndarray:
+    """Raw design rows (k, p) for values of the source columns; `change_points` maps 'below'/'above' to
+    each row's τ (NaN where the row's group has none). Used for curves and predictions."""
+    first = np.atleast_1d(next(iter(source.values())))
+    k = len(first)
+    cps = change_points or {}
+    parts = [np.ones(k)] if intercept else []
+    parts += [term.values(np.atleast_1d(source[term.column]), cps.get(term.kind)) for term in terms]
+    return np.column_stack(parts) if parts else np.zeros((k, 0))

@@ -24,3 +24,11 @@ def test_bench_smoke_prints_phase_table(tmp_path: Path) -> None:
     est = float(line.split("estimates ")[1].split()[0])
     se = float(line.split("std errors ")[1].split()[0])
     assert est < 1e-9 and se < 1e-9, line
+
+
+def test_change_point_bench_runs_at_a_small_size() -> None:
+    p = subprocess.run([sys.executable, "-m", "bench.change_point_ratio", "--groups", "200", "--repeat", "1"],
+                       capture_output=True, text=True, timeout=240, stdin=subprocess.DEVNULL,
+                       cwd=Path(__file__).resolve().parents[1])
+    assert p.returncode == 0, p.stdout[-2000:] + p.stderr[-2000:]
+    assert "straight line:" in p.stdout and "--change-point auto:" in p.stdout and "ratio: " in p.stdout

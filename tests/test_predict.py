@@ -442,3 +442,18 @@ def test_new_rows_find_their_group_whatever_the_unicode_form(tmp_path):
     new = pd.DataFrame({"g": [unicodedata.normalize("NFD", "Montréal")], "x": [5.0]})
     out = sheetfit.predict(results, new)
     assert out.filter(like="predicted").notna().all(axis=None)
+
+
+def test_design_rows_for_new_rows_are_the_models_columns(results):
+    # oracle: the design built by hand with numpy (constant, x, x², log z), as the statsmodels oracle above uses
+    from sheetfit.prediction.compute import design_for_rows
+
+    store = store_from_results(results)
+    new = pd.DataFrame({"g": ["B", "A", "nowhere", "C"], "x": [1.5, 4.0, 2.0, 3.0], "z": [0.7, 2.0, 1.0, -1.0]})
+    pos, D, reasons = design_for_rows(store, {c: new[c].tolist() for c in new.columns}, len(new))
+    assert pos.tolist() == [1, 0, -1, 2]
+    assert reasons[:2] == [[], []] and "nowhere" in reasons[2][0] and reasons[3] == ["z is zero or negative, so "
+                                                                                     "log(z) is undefined"]
+    by_hand = np.column_stack([np.ones(2), new["x"][:2], new["x"][:2] ** 2, np.log(new["z"][:2])])
+    np.testing.assert_array_equal(D[:2], by_hand)
+    assert np.isnan(D[2:]).all()

@@ -18,10 +18,12 @@ from ..model.engine import EngineFit
 from ..model.inference import Inference
 from ..terms import Term
 from . import (
+    baseline,
     collinearity,
     fit_quality,
     independence,
     influence,
+    lack_of_fit,
     linear_form,
     normality,
     robust,
@@ -57,17 +59,22 @@ class RowsInOrder:
     codes: np.ndarray          # (N,) group code per engine row
     source_rows: np.ndarray    # (N,) spreadsheet row per engine row
     order_note: str            # 'rows in order of Month' or 'rows in input row order'
+    design_keys: np.ndarray | None = None   # (N,) rows with the same input values share a key (lack of fit)
 
 
 def run_checks(fit: EngineFit, inf: Inference, rows: RowsInOrder, terms: Sequence[Term],
-               labels: Sequence[str], thr: Thresholds) -> tuple[list[CheckResult], np.ndarray]:
+               labels: Sequence[str], thr: Thresholds, judge_baseline: bool = False,
+               ) -> tuple[list[CheckResult], np.ndarray]:
     """Every check of a run, and the VIF of each coefficient (G, p) for the coefficients sheet
-    (the collinearity check itself judges inputs by their generalised VIF)."""
+    (the collinearity check itself judges inputs by their generalised VIF). `judge_baseline` adds
+    the energy-baseline criteria (baseline.py) after the fit-quality checks."""
     vifs = collinearity.vif(fit)
     results = [
         fit_quality.model_f_test(fit, inf.f, inf.f_p_value),
         fit_quality.r_squared(fit, inf.r2, thr.min_r2),
         fit_quality.enough_rows(fit, thr.rows_per_coefficient),
+        *(baseline.baseline_checks(fit, inf.cv_rmse, inf.r2, rows.codes, thr.max_cv_rmse, thr.max_nmbe,
+                                   thr.baseline_min_r2) if judge_baseline else ()),
         normality.jarque_bera(fit),
         normality.shapiro_wilk(fit),
         variance.breusch_pagan(fit),
@@ -75,6 +82,7 @@ def run_checks(fit: EngineFit, inf: Inference, rows: RowsInOrder, terms: Sequenc
         independence.durbin_watson(fit, rows.order_note),
         independence.breusch_godfrey(fit, thr.bg_lags, rows.order_note),
         linear_form.reset(fit),
+        *((lack_of_fit.lack_of_fit(fit, rows.design_keys, rows.codes),) if rows.design_keys is not None else ()),
         influence.outlier_test(fit, rows.codes, rows.source_rows),
         influence.cooks_check(fit, rows.codes, rows.source_rows),
         influence.leverage_one(fit, rows.codes, rows.source_rows),

@@ -381,12 +381,3 @@ def _influence(resid: np.ndarray, h: np.ndarray, codes: np.ndarray, rss: np.ndar
         external = resid / np.sqrt(s2_without * one_minus_h)
         cooks = internal**2 * h / one_minus_h / p
     return internal, external, cooks
-
-
-def design_row(terms: Sequence[Term], intercept: bool, source: Mapping[str, np.ndarray]) -> np.ndarray:
-    """Raw design rows (k, p) for new values of the source columns (used for curves and predictions)."""
-    first = next(iter(source.values()))
-    k = len(np.atleast_1d(first))
-    parts = [np.ones(k)] if intercept else []
-    parts += [term.values(np.atleast_1d(source[term.column])) for term in terms]
-    return np.column_stack(parts)

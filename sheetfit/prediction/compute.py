@@ -18,7 +18,6 @@ import numpy as np
 import pandas as pd
 
 from ..job import check_setting
-from ..model.engine import design_row
 from ..read.cells import cell_number, key_label, label
 from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, EXTRAPOLATION, MEAN_STD_ERROR, NEW_ROW_HIGH,
     NEW_ROW_LOW, PREDICTED, PREDICTION_REASON, shown_names)
@@ -29,6 +28,7 @@ from ..results.store import (
     read_store,
     store_from_results,
 )
+from ..terms import design_matrix
 
 if TYPE_CHECKING:
     from ..results.types import FitResults
@@ -65,6 +65,11 @@ def at_level(store: ModelStore, level: float | None) -> ModelStore:
     return dataclasses.replace(store, level=check_setting("level", level))
 
 
+def store_of(obj: Any) -> ModelStore:
+    """The ModelStore of FitResults, of a results workbook's path, or the store itself."""
+    return _store(obj)
+
+
 def _store(obj: Any) -> ModelStore:
     """The ModelStore of FitResults, of a results workbook's path, or the store itself."""
     if isinstance(obj, ModelStore):
@@ -76,15 +81,9 @@ def _store(obj: Any) -> ModelStore:
 
 def predict_cells(store: ModelStore, raw: dict[str, list], n_rows: int) -> pd.DataFrame:
     """Predictions from raw cell values per column (any reader type); the RESULT_COLUMNS only."""
-    reasons: list[list[str]] = [[] for _ in range(n_rows)]
-    gidx = _group_positions(store, raw, n_rows, reasons)
-    X = _inputs(store, raw, n_rows, reasons)
-    for t in store.terms:
-        bad = t.domain_problem(X[:, store.sources.index(t.column)])
-        for r in np.flatnonzero(bad):
-            reasons[r].append(t.domain_reason())
+    gidx, D, reasons, X = _design(store, raw, n_rows)
     ok = np.array([not r for r in reasons], dtype=bool) & (gidx >= 0)
-    results, too_large = _intervals(store, gidx, X, np.flatnonzero(ok), n_rows)
+    results, too_large = _intervals(store, gidx, D, np.flatnonzero(ok), n_rows)
     for r, why in too_large.items():
         reasons[r].append(why)
         ok[r] = False
@@ -95,6 +94,52 @@ def predict_cells(store: ModelStore, raw: dict[str, list], n_rows: int) -> pd.Da
     out[EXTRAPOLATION] = extrap
     out[PREDICTION_REASON] = ["; ".join(r) for r in reasons]
     return out
+
+
+def design_for_rows(store: ModelStore, raw: dict[str, list], n_rows: int
+                    ) -> tuple[np.ndarray, np.ndarray, list[list[str]]]:
+    """Each new row's group position in the store (−1 unknown), raw design row and reasons.
+
+    `raw` maps column → cell values as read (any reader type). A design row (p values, the
+    intercept first) uses the row's group's change points; it is NaN where the row cannot be
+    computed (unknown group, a missing or non-numeric input, a term outside its domain, a term
+    value too large to be a finite number), and each such row has at least one reason.
+    """
+    return _design(store, raw, n_rows)[:3]
+
+
+def group_positions(store: ModelStore, raw: dict[str, list], n_rows: int) -> tuple[np.ndarray, list[list[str]]]:
+    """Each new row's group position in the store (−1 unknown) and, per row, why its group is not known."""
+    reasons: list[list[str]] = [[] for _ in range(n_rows)]
+    return _group_positions(store, raw, n_rows, reasons), reasons
+
+
+def _design(store: ModelStore, raw: dict[str, list], n_rows: int
+            ) -> tuple[np.ndarray, np.ndarray, list[list[str]], np.ndarray]:
+    """design_for_rows, plus the rows' source-column values (NaN where not numbers)."""
+    reasons: list[list[str]] = [[] for _ in range(n_rows)]
+    gidx = _group_positions(store, raw, n_rows, reasons)
+    X = _inputs(store, raw, n_rows, reasons)
+    for t in store.terms:
+        bad = t.domain_problem(X[:, store.sources.index(t.column)])
+        for r in np.flatnonzero(bad):
+            reasons[r].append(t.domain_reason())
+    D = np.full((n_rows, len(store.term_labels)), np.nan)
+    rows = np.flatnonzero(np.array([not r for r in reasons], dtype=bool) & (gidx >= 0))
+    if len(rows):
+        g = gidx[rows]
+        cps = {"below": store.change_points[g, 0], "above": store.change_points[g, 1]}
+        with np.errstate(all="ignore"):
+            found = design_matrix(store.terms, store.intercept, {c: X[rows, j] for j, c in enumerate(store.sources)},
+                                  cps)
+        bad = ~np.isfinite(found).all(axis=1)
+        labels = store.term_labels
+        for i in np.flatnonzero(bad):
+            term = labels[int(np.flatnonzero(~np.isfinite(found[i]))[0])]
+            reasons[int(rows[i])].append(f"{term} at these inputs is too large to compute (not a finite number); "
+                                         f"check the inputs' units")
+        D[rows[~bad]] = found[~bad]
+    return gidx, D, reasons, X
 
 
 def _group_positions(store: ModelStore, raw: dict[str, list], n_rows: int, reasons: list[list[str]]) -> np.ndarray:
@@ -146,12 +191,12 @@ def _inputs(store: ModelStore, raw: dict[str, list], n_rows: int, reasons: list[
     return X
 
 
-def _intervals(store: ModelStore, gidx: np.ndarray, X: np.ndarray, rows: np.ndarray,
+def _intervals(store: ModelStore, gidx: np.ndarray, D: np.ndarray, rows: np.ndarray,
                n_rows: int) -> tuple[dict[str, np.ndarray], dict[int, str]]:
     """Predicted value, its standard error and both intervals for `rows` (NaN elsewhere).
 
-    Also returns, per row whose term values or results are not finite numbers (an input such as
-    1e308 squared), the reason; those rows keep empty results.
+    Also returns, per row whose results are not finite numbers (an input such as 1e308 squared
+    times its coefficient), the reason; those rows keep empty results.
     """
     from scipy import stats
 
@@ -160,7 +205,7 @@ def _intervals(store: ModelStore, gidx: np.ndarray, X: np.ndarray, rows: np.ndar
         return res, {}
     g = gidx[rows]
     with np.errstate(all="ignore"):
-        D = design_row(store.terms, store.intercept, {c: X[rows, j] for j, c in enumerate(store.sources)})
+        D = D[rows]
         pred = np.einsum("np,np->n", D, store.beta[g])
         quad = np.einsum("np,npq,nq->n", D, store.xtx_inv[g], D)
         s2 = store.sigma2[g]
@@ -170,27 +215,12 @@ def _intervals(store: ModelStore, gidx: np.ndarray, X: np.ndarray, rows: np.ndar
         found = {PREDICTED: pred, MEAN_STD_ERROR: se,
                  AVERAGE_LOW: pred - t_q * se, AVERAGE_HIGH: pred + t_q * se,
                  NEW_ROW_LOW: pred - t_q * se_obs, NEW_ROW_HIGH: pred + t_q * se_obs}
-    too_large = _not_finite(store, D, np.column_stack(list(found.values())), rows)
-    keep = np.array([r not in too_large for r in rows], dtype=bool)
+    bad = ~np.isfinite(np.column_stack(list(found.values()))).all(axis=1)
+    too_large = {int(r): ("the prediction or its interval at these inputs is too large to compute "
+                          "(not a finite number); check the inputs' units") for r in rows[bad]}
     for name, values in found.items():
-        res[name][rows[keep]] = values[keep]
+        res[name][rows[~bad]] = values[~bad]
     return res, too_large
-
-
-def _not_finite(store: ModelStore, D: np.ndarray, found: np.ndarray, rows: np.ndarray) -> dict[int, str]:
-    """Row → reason, for rows whose term values or results are not finite numbers."""
-    labels = store.term_labels
-    out: dict[int, str] = {}
-    bad_terms, bad_results = ~np.isfinite(D), ~np.isfinite(found).all(axis=1)
-    for i in np.flatnonzero(bad_terms.any(axis=1) | bad_results):
-        if bad_terms[i].any():
-            term = labels[int(np.flatnonzero(bad_terms[i])[0])]
-            out[int(rows[i])] = (f"{term} at these inputs is too large to compute (not a finite number); "
-                                 f"check the inputs' units")
-        else:
-            out[int(rows[i])] = ("the prediction or its interval at these inputs is too large to compute "
-                                 "(not a finite number); check the inputs' units")
-    return out
 
 
 def _close_label(name: str, labels: Sequence[str]) -> str | None:

@@ -41,17 +41,18 @@ class NewRows:
         return f'sheet "{self.sheet}" of "{self.file_name}"'
 
 
-def require_columns(new: NewRows, store: ModelStore) -> None:
+def require_columns(new: NewRows, store: ModelStore, needed: tuple[str, ...] | None = None) -> None:
     """Every group key and input column the models need is a header of the new rows, else one line.
 
     Headers are compared exactly, as `sheetfit fit` compares them; the message names the closest
     header and, when the first sheet was read by default, the other sheets.
     """
     headers = [str(c) for c in new.frame.columns]
-    for name in (*store.group_columns, *store.sources):
+    for name in needed if needed is not None else (*store.group_columns, *store.sources):
         if name in headers:
             continue
-        kind = "group column" if name in store.group_columns else "input column"
+        kind = ("group column" if name in store.group_columns else "input column" if name in store.sources
+                else "response column" if name == store.y else "column")
         msg = (not_found_message("column", name, headers).replace('column "', f'{kind} "', 1)
                .replace(" not found;", f" not found in {new.where()};", 1))
         near = closest(name, headers)

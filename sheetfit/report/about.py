@@ -63,6 +63,38 @@ def row_flag_definitions(thr: Any) -> tuple[tuple[str, str], ...]:
     )
 
 
+def change_point_definitions(res: Any) -> tuple[tuple[str, str], ...]:
+    """The change-point terms and columns of a change-point run, and the baseline criteria when judged."""
+    rows: list[tuple[str, str]] = []
+    if res.change_points is not None:
+        rows += [
+            ("T below change point", "the term max(0, τ − T) of the temperature input T with the group's change "
+                                     "point τ: its coefficient is the change in y per degree below τ"),
+            ("T above change point", "the term max(0, T − τ): its coefficient is the change in y per degree above τ "
+                                     "(for heating-cooling, τ is the upper change point)"),
+            ("change points", "estimated by exact least squares over the observed temperatures with at least 3 "
+                              "rows on each side (common practice); counted as parameters: p = k coefficients + "
+                              "c change points in n − p, CV(RMSE), AIC and BIC; coefficient intervals treat τ as "
+                              "known"),
+            ("change point low, high", "profile interval: every τ with RSS(τ) ≤ RSS_min · (1 + F(1, n − p; level) "
+                                       "/ (n − p))"),
+            ("shape", "setting change point; with auto, per group the straight line or the shape with the lowest "
+                      "BIC = n · ln(RSS/n) + p · ln n among shapes whose change points lie inside the range and "
+                      "whose slopes have the expected sign and differ from zero at alpha (common practice); "
+                      "'why this shape' gives each shape's BIC and why others were left out"),
+        ]
+    if res.job.judge_baseline:
+        thr = res.job.thresholds
+        rows += [
+            ("NMBE %", "normalised mean bias error: 100 · Σ(y − fitted) / ((n − p) · mean(y)); zero up to rounding "
+                       "with a constant in the model"),
+            ("baseline criteria", f"CV(RMSE) at most {thr.max_cv_rmse:g} %, |NMBE| at most {thr.max_nmbe:g} %, R² at "
+                                  f"least {thr.baseline_min_r2:g}: common practice for monthly energy baselines; a "
+                                  "measurement-and-verification plan may set others"),
+        ]
+    return tuple(rows)
+
+
 ADJUST_WORDS = {
     "bh": "Benjamini–Hochberg false discovery rate across groups, per check",
     "holm": "Holm's step-down family-wise error rate across groups, per check",
@@ -70,7 +102,8 @@ ADJUST_WORDS = {
 }
 
 
-def cautions(adjust: str) -> tuple[tuple[str, str], ...]:
+def cautions(adjust: str, baseline: bool = False) -> tuple[tuple[str, str], ...]:
+    """The cautions on `about`; `baseline` adds the one for energy baselines."""
     return (
         ("association", "A fit shows association in these rows, not cause and effect."),
         ("range", "Do not extrapolate: a fit describes y only within the observed range of its inputs."),
@@ -81,7 +114,9 @@ def cautions(adjust: str) -> tuple[tuple[str, str], ...]:
         ("regulated work", "Where results feed regulated or safety-relevant work, such as laboratory "
                            "calibration or contractual savings claims, defer to the applicable standard, "
                            "local codes and licensed practice."),
-    )
+    ) + ((("energy baselines", "A baseline supports, never replaces, the measurement-and-verification plan, "
+                               "the applicable protocol or contract and licensed professional judgement."),)
+         if baseline else ())
 
 
 def about_sheet(ctx: WriteContext) -> None:
@@ -146,9 +181,10 @@ def _write_about(ctx: WriteContext, ws) -> None:
     section("definitions")
     rows.extend((k, v, None) for k, v in DEFINITIONS)
     rows.extend((k, v, None) for k, v in row_flag_definitions(res.job.thresholds))
+    rows.extend((k, v, None) for k, v in change_point_definitions(res))
 
     section("cautions")
-    rows.extend((k, v, None) for k, v in cautions(res.job.thresholds.adjust))
+    rows.extend((k, v, None) for k, v in cautions(res.job.thresholds.adjust, res.job.judge_baseline))
 
     ws.write_row(0, 0, ["item", "value"], st.header)
     for r, (item, value, fmt) in enumerate(rows, start=1):

@@ -15,9 +15,10 @@ import pandas as pd
 
 from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, COEFFICIENT, FITTED, FLAGS, INPUT, R2, REASONS,
     RESIDUAL, ROW_FLAGS, ROWS_USED, STATUS, USED, YES, cell_text)
+from ..results.observations import model_value_headers
 from ..results.store import group_label
 from ..results.types import FitResults
-from ..terms import INTERCEPT, source_columns
+from ..terms import HINGES, INTERCEPT, Term, source_columns
 from . import fastrows
 
 MAX_POINTS = 5_000      # points per group plotted; beyond that, flagged rows plus an even sample
@@ -115,6 +116,13 @@ def equation(y: str, terms: list[tuple[str, float]], constant: str | None = INTE
     return f"{y} = {' '.join(parts) if parts else '0'}"
 
 
+def model_column(res: FitResults, column: str) -> str:
+    """The observations column holding the numbers the model used for the user's `column`: its day
+    counts for a date column (the curves' x is in days too), else the column itself."""
+    headers = model_value_headers([*res.group_columns, *res.number_columns], res.info.date_columns)
+    return headers.get(column, column)
+
+
 def plan_charts(res: FitResults) -> ChartPlan:
     """Choose the charted groups (flagged first, capped) and gather their chart data."""
     k = len(res.group_columns)
@@ -138,8 +146,10 @@ def plan_charts(res: FitResults) -> ChartPlan:
     constant = res.term_labels[0] if res.job.intercept else None
     obs, cur, qq, coef = res.observations, res.curves, res.quantiles, res.coefficients
     obs_at, cur_at, qq_at, coef_at = _indices(obs, k), _indices(cur, k), _indices(qq, k), _indices(coef, k)
-    y_col = res.observation_header(res.y)
-    x_col = res.observation_header(plan.x_name) if one_source else ""
+    y_col = model_column(res, res.y)
+    x_col = model_column(res, plan.x_name) if one_source else ""
+    if one_source and plan.x_name in res.info.date_columns:
+        plan.x_name = x_col             # the axis counts days from the group's start: say so in its title
     used_all = obs[USED].astype(str).eq(YES).to_numpy() if USED in obs.columns else np.ones(len(obs), bool)
     flagged_rows = (obs[ROW_FLAGS].fillna("").astype(str).str.len().gt(0).to_numpy()
                     if ROW_FLAGS in obs.columns else np.zeros(len(obs), bool))
@@ -168,6 +178,8 @@ def plan_charts(res: FitResults) -> ChartPlan:
         qv, sr = _floats(qq, "normal quantile", qrow), _floats(qq, "standardized residual", qrow)
         krow = coef_at.get(key, np.empty(0, dtype=np.intp))
         eq_terms = list(zip(coef[INPUT].astype(str).to_numpy()[krow].tolist(), _floats(coef, COEFFICIENT, krow)))
+        if res.change_points is not None:
+            eq_terms = hinge_words(res.terms, res.change_points[i], eq_terms)
 
         b = GroupBlock(label=group_label(key), flagged=bool(flags[i] > 0), reasons=reasons[i],
                        r2=float(r2_all[i]), n=ns[i], equation=equation(res.y, eq_terms, constant), one_input=one_input, x_name=plan.x_name,
@@ -240,3 +252,20 @@ def _block_columns(plan: ChartPlan, rows: int) -> list[tuple[int, Any, Any]]:
             values[j, at:at + len(col)] = [np.nan if v is None else v for v in col]
         at += b.height
     return [(0, labels, None)] + [(j, values[j], None) for j in range(1, len(BLOCK_HEADERS))]
+
+
+def hinge_words(terms: tuple[Term, ...], tau: np.ndarray, eq_terms: list[tuple[str, float]]
+                ) -> list[tuple[str, float]]:
+    """Equation terms with each change-point term written out with its group's τ: 'max(0, 15.3 − T)'.
+
+    `tau` holds the group's change points of the 'below' and the 'above' term.
+    """
+    kinds = {t.label: t for t in terms if t.kind in HINGES}
+    out = []
+    for label, est in eq_terms:
+        t = kinds.get(label)
+        if t is not None and math.isfinite(tau[HINGES.index(t.kind)]):
+            at = fmt_number(float(tau[HINGES.index(t.kind)]))
+            label = f"max(0, {at} − {t.column})" if t.kind == "below" else f"max(0, {t.column} − {at})"
+        out.append((label, est))
+    return out

@@ -1,62 +1,39 @@
 """The `explorer` sheet: pick a fitted group from a drop-down and see its rows, fit figures and charts.
 
-The `explorer data` sheet holds every fitted group's used rows, sorted by group and then by the
-first input, with an index of each group's first row and row count. The explorer block fills by
+The `explorer data` sheet (written by explorer_data.fill_data) holds every fitted group's used rows,
+sorted by group and then by the first input, with an index of each group's first row and row count. The explorer block fills by
 index arithmetic, INDEX(column, first + k − 1), so choosing a group costs one MATCH, not a scan.
 Rows beyond the group's size show nothing; chart cells there hold #N/A (not plotted, not shown).
+A change-point run also shows the chosen group's shape and change points among its fit figures.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from ..results.headers import (ADJUSTED_R2, COEFFICIENT, CV_RMSE, F_P_VALUE, FITTED, FLAGS, INPUT,
-    INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, R2, REASONS, RESIDUAL, RESIDUAL_STD_ERROR, RMSE, ROWS_USED, STATUS,
-    STD_ERROR, USED, YES, cell_text, shown_names)
+from ..results.change_points import SHAPE
+from ..results.headers import (FITTED, INPUT, P_VALUE, REASONS, RESIDUAL, ROWS_USED, STATUS, USED, YES,
+    shown_names)
+from ..results.observations import model_value_headers
 from ..results.store import group_codes, unique_labels
 from ..terms import source_columns
-from . import fastrows
 from . import styles as S
 from .book import WriteContext
 from .columns import P_VALUE_FORMAT, SCIENTIFIC, number_format
+from .explorer_data import (CHANGE_POINT_METRICS, COEF, HIGHEST, LOWEST, TEXT_METRICS, Explorer, block_headers,
+    coefficient_columns, data_header, fill_data, shown_metrics)
 from .formulas import Cells, area, lookup, ref
 
 MAX_BLOCK = 500             # rows the block shows; larger groups show an even sample of this many
 MAX_ROWS = 100_000          # rows on the data sheet at most: with many groups, fewer rows per group…
 MIN_PER_GROUP = 20          # …but not fewer than this; groups beyond the total are left out
-METRICS = (R2, ADJUSTED_R2, F_P_VALUE, RESIDUAL_STD_ERROR, RMSE, CV_RMSE, ROWS_USED, FLAGS, REASONS)
-COEF = (COEFFICIENT, INTERVAL_LOW, INTERVAL_HIGH, STD_ERROR, P_VALUE)
-LOWEST, HIGHEST = f"lowest {FITTED}", f"highest {FITTED}"
 CHART_W, CHART_H = 440, 300
 TOP = 9                     # first metric row (0-based)
-
-
-@dataclass
-class Explorer:
-    """What the explorer shows: groups, their index entries, and the rows of the data sheet."""
-
-    labels: list[str]
-    index: pd.DataFrame                  # one row per group: first, rows, metrics, coefficient columns
-    rows: pd.DataFrame                   # group, source row, inputs, y, fitted, residual
-    sources: list[str]                   # the input (source) column names
-    y: str                               # the response's name
-    terms: list[str]
-    block: int
-    sampled: int = 0                     # groups shown as an even sample of `cap` rows
-    cap: int = 0                         # rows kept per group
-    left_out: int = 0                    # fitted groups left out to keep the data sheet small
-    formats: dict[str, str] = field(default_factory=dict)          # column of `rows` → number format
-    figure_formats: dict[str, str] = field(default_factory=dict)   # metric or coefficient column → format
-    headers: dict[str, str] = field(default_factory=dict)   # input or response name → its header in `rows`
-
-    def header(self, name: str) -> str:
-        """The header of input or response `name` in `rows` (`NAME (input)` when it is one of ours)."""
-        return self.headers.get(name, name)
 
 
 def plan_explorer(res: Any) -> Explorer:
@@ -69,8 +46,10 @@ def plan_explorer(res: Any) -> Explorer:
     user = [*sources, res.y]
     headers = dict(zip(user, shown_names(user, ("group", "source row", FITTED, RESIDUAL))))
     cols = ["source row", *(headers[c] for c in user), FITTED, RESIDUAL]
+    everyone = [*res.group_columns, *res.number_columns]
+    shown = model_value_headers(everyone, res.info.date_columns)
     where = {"source row": "source row", FITTED: FITTED, RESIDUAL: RESIDUAL,
-             **{headers[c]: res.observation_header(c) for c in user}}      # column of `rows` → of observations
+             **{headers[c]: shown[c] for c in user}}      # column of `rows` → of observations (day counts for dates)
     obs = res.observations
     used = obs[USED].astype(str).eq(YES) if USED in obs.columns else pd.Series(True, index=obs.index)
     fit = pd.to_numeric(obs.get(FITTED, pd.Series(np.nan, index=obs.index)), errors="coerce")
@@ -101,7 +80,8 @@ def plan_explorer(res: Any) -> Explorer:
     n_shown = shown[gi]
     idx = pd.DataFrame({"group": labels, "first row": 1 + np.concatenate(([0], np.cumsum(n_shown)[:-1])),
                         "rows": n_shown})
-    for mtr in METRICS:
+    metrics = shown_metrics(fitted)
+    for mtr in metrics:
         idx[mtr] = fitted[mtr].to_numpy()[gi] if mtr in fitted.columns else np.nan
     fv = table[FITTED].to_numpy()
     at = np.concatenate(([0], np.cumsum(n_shown)[:-1])).astype(np.intp)
@@ -109,80 +89,21 @@ def plan_explorer(res: Any) -> Explorer:
     idx[HIGHEST] = np.maximum.reduceat(fv, at) if len(fv) else np.empty(0)
     terms = list(res.term_labels)
     coef = res.coefficients
-    c_code = np.full(G, -1, dtype=np.int64)
-    c_code[gi] = np.arange(len(gi))
-    cc = group_codes(coef, fitted, k) if len(coef) else np.empty(0, dtype=np.int64)
-    rows_of = np.where(cc >= 0, c_code[np.maximum(cc, 0)], -1)
-    term_at = pd.Index(terms).get_indexer(coef[INPUT].astype(str)) if len(coef) else np.empty(0, dtype=np.int64)
-    ok = (rows_of >= 0) & (term_at >= 0)
-    for t_i, t in enumerate(terms):
-        for c in COEF:
-            values = np.full(len(gi), np.nan)
-            if c in coef.columns:
-                sel = ok & (term_at == t_i)
-                values[rows_of[sel]] = pd.to_numeric(coef[c], errors="coerce").to_numpy(np.float64)[sel]
-            idx[f"{c}: {t}"] = values
+    coefficient_columns(idx, coef, fitted, gi, terms, k)
     table.insert(0, "group", np.asarray(labels, dtype=object)[np.repeat(np.arange(len(gi)), n_shown)])
     ex = Explorer(labels, idx, table, sources, res.y, terms, int(n_shown.max()) if len(gi) else 0,
-                  sampled=int(len(big)), cap=cap, left_out=int(((shown > 0) & ~include).sum()), headers=headers)
+                  sampled=int(len(big)), cap=cap, left_out=int(((shown > 0) & ~include).sum()), headers=headers,
+                  metrics=metrics)
     for c in cols[1:]:
         ex.formats[c] = number_format(c, table[c].to_numpy(np.float64))
-    for mtr in METRICS:
-        if mtr != REASONS and mtr in fitted.columns:
+    for mtr in metrics:
+        if mtr not in TEXT_METRICS and mtr in fitted.columns:
             ex.figure_formats[mtr] = number_format(mtr, pd.to_numeric(idx[mtr], errors="coerce").to_numpy(np.float64))
     for c in COEF:
         vals = pd.to_numeric(coef[c], errors="coerce").to_numpy(np.float64) if c in coef.columns else np.empty(0)
         fmt = P_VALUE_FORMAT if c == P_VALUE else number_format(c, vals)
         ex.figure_formats[c] = SCIENTIFIC if fmt == "General" else fmt     # General overflows narrow cells
     return ex
-
-
-def _cell(v: Any) -> Any:
-    """A data-sheet cell: numbers stay numbers; missing numbers become empty text."""
-    if v is None:
-        return ""
-    if isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool):
-        f = float(v)
-        return f if math.isfinite(f) else ""
-    return cell_text(str(v))
-
-
-def _bulk_values(series: pd.Series) -> np.ndarray:
-    """A column as `_cell` would write it, for the bulk path: numbers as floats, the rest as text."""
-    if pd.api.types.is_numeric_dtype(series.dtype) and not pd.api.types.is_bool_dtype(series.dtype):
-        return series.to_numpy(dtype=np.float64, na_value=np.nan)
-    return np.array([_cell(v) for v in series.tolist()], dtype=object)
-
-
-def _rows(ws: Any, first: int, df: pd.DataFrame, bulk: Any) -> None:
-    chars = sum(int(df[c].map(lambda v: len(v) if isinstance(v, str) else 0).sum())
-                for c in df.columns if df[c].dtype == object)
-    if bulk is not None and fastrows.use_fast(len(df), len(df.columns), chars):
-        bulk(ws, first, [(j, _bulk_values(df[c]), None) for j, c in enumerate(df.columns)])
-        return
-    for r, row in enumerate(df.itertuples(index=False), start=first):
-        ws.write_row(r, 0, [_cell(v) for v in row])
-
-
-def fill_data(ws: Any, ex: Explorer, st: Any, bulk: Any = None) -> None:
-    """Write the data sheet; `bulk` (WriteContext.add_bulk) lets large blocks take the fast path."""
-    ws.set_column(0, 0, 24)
-    ws.set_column(1, max(len(ex.index.columns), len(ex.rows.columns)), 14)
-    ws.set_landscape()
-    ws.fit_to_pages(1, 0)
-    ws.write_string(0, 0, "Rows behind the 'explorer' sheet: an index of each group's first row and row count, "
-                          "then every group's rows, sorted by group. Do not sort, insert or delete rows.", st.note)
-    ws.write_row(2, 0, [cell_text(str(c)) for c in ex.index.columns], st.header)
-    _rows(ws, 3, ex.index, bulk)
-    h = data_header(ex)
-    ws.write_row(h, 0, [cell_text(str(c)) for c in ex.rows.columns], st.header)
-    _rows(ws, h + 1, ex.rows, bulk)
-
-
-def block_headers(ex: Explorer) -> list[str]:
-    """Columns of the explorer block: inputs (the first one is the charts' x), y, fitted, residual, source row
-    (headers of `ex.rows`)."""
-    return [*(ex.header(c) for c in ex.sources), ex.header(ex.y), FITTED, RESIDUAL, "source row"]
 
 
 def _floor(ex: Explorer) -> dict[str, Any]:
@@ -202,10 +123,6 @@ def _floor(ex: Explorer) -> dict[str, Any]:
     if floor >= lo:
         floor -= step
     return {"min": floor} if floor > 0 else {}
-
-
-def data_header(ex: Explorer) -> int:
-    return 3 + len(ex.index) + 1
 
 
 def explorer_sheet(ctx: WriteContext, group: str | None = None, cache: bool = True) -> None:
@@ -316,14 +233,18 @@ def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, in
     cells.text(TOP - 1, 0, "fit", st.header)
     cells.text(TOP - 1, 1, "value", st.header_number)
     r = TOP
-    for mtr in [m for m in METRICS if m in ch.columns]:
+    for mtr in [m for m in ex.metrics if m in ch.columns]:
         v = ch.entry[mtr]
         fmt = st.number(ex.figure_formats[mtr]) if mtr in ex.figure_formats else None
         cells.text(r, 0, mtr, st.text if mtr == REASONS else None)
-        text = mtr == REASONS         # &"" keeps an empty text cell empty instead of showing 0
-        cells.formula(r, 1, "=" + ch.pick(mtr) + ('&""' if text else ""), st.wrap if text else fmt,
+        text = mtr in TEXT_METRICS    # &"" keeps an empty text cell empty instead of showing 0
+        at = ch.pick(mtr)
+        if mtr in CHANGE_POINT_METRICS and not text:     # no change point: an empty cell, not 0
+            at = f'IF(ISNUMBER({at}),{at},"")'
+        formula = at + ('&""' if text else "")
+        cells.formula(r, 1, "=" + formula, st.wrap if mtr == REASONS else fmt,
                       "" if pd.isna(v) else (str(v) if text else v))
-        if text:
+        if mtr == REASONS:
             cells.merge(r, 1, len(COEF), height=48)
         r += 1
     zero = st.number(";;;")
@@ -336,7 +257,8 @@ def _fit_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen) -> tuple[int, in
 
 
 def _coefficient_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen, r: int) -> int:
-    """The coefficient table with its header at row `r`; returns its last row."""
+    """The coefficient table with its header at row `r`; returns its last row. In a change-point run a
+    term the chosen group's shape does not use shows empty cells, not 0."""
     cells.text(r, 0, INPUT, st.header)
     for c, name in enumerate(COEF, start=1):
         cells.text(r, c, name, st.header_number)     # numbers below: header over their right edge
@@ -345,8 +267,9 @@ def _coefficient_cells(cells: Cells, st: Any, ex: Explorer, ch: Chosen, r: int) 
         cells.text(r, 0, t)
         for c, name in enumerate(COEF, start=1):
             v = ch.entry[f"{name}: {t}"]
-            cells.formula(r, c, "=" + ch.pick(f"{name}: {t}"), st.number(ex.figure_formats[name]),
-                          "" if pd.isna(v) else float(v))
+            at = ch.pick(f"{name}: {t}")
+            at = f'IF(ISNUMBER({at}),{at},"")' if SHAPE in ex.metrics else at
+            cells.formula(r, c, "=" + at, st.number(ex.figure_formats[name]), "" if pd.isna(v) else float(v))
     return r
 
 

@@ -4,6 +4,8 @@ The store holds one row per fitted group (see sheetfit.results.store_layout for 
 sits; report.store_sheet writes it and sheetfit.results.store.read_store reads it back for
 `sheetfit predict`). The live prediction sheet finds the chosen group's row once with MATCH and takes
 every number from that row with INDEX, so it works in any common spreadsheet application.
+In a change-point run the sheet also shows the chosen group's shape and change points beside
+the group, and computes the terms max(0, τ − T) and max(0, T − τ) with τ from the store row.
 """
 
 from __future__ import annotations
@@ -18,12 +20,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..model.engine import design_row
 from ..prediction.compute import predict_cells
 from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, COEFFICIENT, INPUT, MEAN_STD_ERROR, NEW_ROW_HIGH,
     NEW_ROW_LOW, NEW_ROW_STD_ERROR, PREDICTED, cell_text)
 from ..results.store import ModelStore, store_from_results, store_layout
-from ..results.store_layout import STORE_SHEET, StoreLayout
+from ..results.store_layout import INACTIVE_NOTE, SHAPE_HEADER, STORE_SHEET, StoreLayout
+from ..terms import HINGES, design_matrix
 from .book import WriteContext
 from .columns import SCIENTIFIC, number_format
 from .formulas import Cells, area, lookup, ref
@@ -35,6 +37,8 @@ BELOW, ABOVE = "below the observed range", "above the observed range"
 SHEET = "live prediction"
 TOP_INPUT = 8          # first input row (0-based) on the live prediction sheet
 GROUP_ROW, LEVEL_ROW, STORE_ROW = 3, 4, 5     # the chosen group, the level, its row in the store
+SHAPE_COL = 3          # change-point runs: shape and change points beside the group (labels here, values right)
+SHAPE_LABEL = "shape of the chosen group"
 
 
 @dataclass(frozen=True)
@@ -57,6 +61,15 @@ class PredictSheet:
         """The chosen group's value in store column `col`."""
         table = area(self.name, self.lay.first, 0, self.lay.last, self.lay.width - 1)
         return f"INDEX({table},{self.row},{col + 1})"
+
+    def tau(self, kind: str) -> str:
+        """The cell showing the chosen group's change point of the 'below' or 'above' term (empty when none)."""
+        return ref(None, LEVEL_ROW + HINGES.index(kind), SHAPE_COL + 1)
+
+    @property
+    def taus(self) -> tuple[float, float]:
+        """The preset group's change points of the 'below' and the 'above' term (NaN where none)."""
+        return float(self.store.change_points[self.g, 0]), float(self.store.change_points[self.g, 1])
 
 
 def live_prediction_sheet(ctx: WriteContext, group: str | None = None, inputs: Mapping[str, float] | None = None,
@@ -91,6 +104,9 @@ def live_prediction_sheet(ctx: WriteContext, group: str | None = None, inputs: M
     for j, t in enumerate(store.term_labels):
         ws.set_column(3 + j, 3 + j, min(max(15, len(f"(X'X)⁻¹: {t}") + 2), 40))
     ws.set_column(3 + lay.p, 3 + lay.p, 15)
+    if store.has_change_points:
+        ws.set_column(SHAPE_COL, SHAPE_COL, max(len(f"(X'X)⁻¹: {store.term_labels[0]}") + 2,
+                                                *(len(tau_label(store, k)) + 2 for k in hinge_kinds(store))))
     ws.set_landscape()
     ws.fit_to_pages(1, 0)
     ws.hide_gridlines(2)
@@ -131,8 +147,23 @@ def _mid(lo: float, hi: float) -> float:
     return mid
 
 
-def _term_formula(term: Any, x: str) -> str:
-    """The term's value from input cell `x` (#N/A when the input cannot give one)."""
+def hinge_kinds(store: ModelStore) -> list[str]:
+    """The change-point term kinds ('below', 'above') the store's terms hold, in HINGES order."""
+    return [k for k in HINGES if any(t.kind == k for t in store.terms)]
+
+
+def tau_label(store: ModelStore, kind: str) -> str:
+    """The label of a change point: τ in max(0, τ − T) ('below') or in max(0, T − τ) ('above')."""
+    col = next(t.column for t in store.terms if t.kind == kind)
+    return cell_text(f"τ in max(0, τ − {col})" if kind == "below" else f"τ in max(0, {col} − τ)")
+
+
+def _term_formula(term: Any, x: str, tau: str | None = None) -> str:
+    """The term's value from input cell `x` (#N/A when the input cannot give one); a change-point term
+    takes its τ from cell `tau` and is 0 when that cell holds no number (the group's shape does not use it)."""
+    if term.kind in HINGES:
+        gap = f"{tau}-{x}" if term.kind == "below" else f"{x}-{tau}"
+        return f"IF(ISNUMBER({x}),IF(ISNUMBER({tau}),MAX(0,{gap}),0),NA())"
     if term.kind == "power":
         return f"IF(ISNUMBER({x}),{x}^{term.power},NA())"
     if term.kind == "log":
@@ -187,6 +218,8 @@ def _predict_cells(ctx: WriteContext, cells: Cells, ps: PredictSheet) -> None:
                            errors="coerce").to_numpy(np.float64)
     yf = st.number(number_format(PREDICTED, y_vals))
     _choice_cells(cells, st, ps)
+    if ps.store.has_change_points:
+        _shape_cells(cells, st, ps)
     checks = _input_cells(cells, st, ps)
     w = TOP_INPUT + ps.lay.m
     _range_check_cells(cells, st, ps, checks, w)
@@ -210,6 +243,21 @@ def _choice_cells(cells: Cells, st: Any, ps: PredictSheet) -> None:
     keys = area(ps.name, ps.lay.first, 0, ps.lay.last, 0)
     cells.text(STORE_ROW, 0, "row of the group in the model store", st.note)
     cells.formula(STORE_ROW, 1, "=" + lookup(ref(None, GROUP_ROW, 1), keys), st.note, g + 1)
+
+
+def _shape_cells(cells: Cells, st: Any, ps: PredictSheet) -> None:
+    """Beside the group: its shape and change points, looked up in its store row (empty where none)."""
+    store, lay, row = ps.store, ps.lay, ps.row
+    cells.text(GROUP_ROW, SHAPE_COL, SHAPE_LABEL, st.group_label)
+    cells.formula(GROUP_ROW, SHAPE_COL + 1, f'=IF(ISNA({row}),"",{ps.pick(lay.col_extra(SHAPE_HEADER))}&"")', None,
+                  store.shapes[ps.g])
+    for kind in hinge_kinds(store):
+        i = HINGES.index(kind)
+        at = ps.pick(lay.col_change_point(i))
+        cells.text(LEVEL_ROW + i, SHAPE_COL, tau_label(store, kind), st.group_label)
+        value = ps.taus[i]
+        cells.formula(LEVEL_ROW + i, SHAPE_COL + 1, f'=IF(ISNUMBER({at}),{at},"")', None,
+                      value if math.isfinite(value) else "")
 
 
 def _input_cells(cells: Cells, st: Any, ps: PredictSheet) -> list[tuple[str, str, str, str]]:
@@ -271,7 +319,8 @@ def _result_cells(cells: Cells, st: Any, ps: PredictSheet, yf: Any, top: int, ca
          "where one new row lies (prediction interval)"),
         (NEW_ROW_HIGH, f"={r_pred}+{r_t}*{r_seo}", pre[NEW_ROW_HIGH], yf, ""),
         ("residual degrees of freedom", "=" + ps.pick(lay.col_df()), float(store.df[g]), st.number("0"),
-         "rows used − number of coefficients"),
+         "rows used − coefficients − change points" if store.has_change_points
+         else "rows used − number of coefficients"),
         ("residual variance", "=" + ps.pick(lay.col_s2()), float(store.sigma2[g]), st.number(SCIENTIFIC),
          "RSS / residual degrees of freedom"),
         ("t quantile", f"=T.INV.2T(1-{ref(None, LEVEL_ROW, 1)},{r_df})", t_val, st.number("0.0000"),
@@ -302,7 +351,9 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
     d_rng = area(None, calc + 1, 1, calc + p, 1)
     v_rng = area(None, calc + 1, 3 + p, calc + p, 3 + p)
     labels = store.term_labels
-    d_vals = design_row(store.terms, store.intercept, dict(zip(store.sources, ps.values)))[0]
+    taus = {kind: np.array([ps.taus[i]]) for i, kind in enumerate(HINGES)}
+    d_vals = design_matrix(store.terms, store.intercept, {c: np.array([v]) for c, v in zip(store.sources, ps.values)},
+                           taus)[0]
     inv = store.xtx_inv[g]
     cells.text(calc - 1, 0, "calculation for the chosen group", st.section)
     head = [INPUT, "input value x", COEFFICIENT, *[f"(X'X)⁻¹: {t}" for t in labels], "(X'X)⁻¹·x"]
@@ -317,7 +368,8 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
         if term is None:
             cells.number(r, 1, 1.0)
         else:
-            cells.formula(r, 1, "=" + _term_formula(term, src_cell[term.column]), None, d_vals[i])
+            tau = ps.tau(term.kind) if term.kind in HINGES else None
+            cells.formula(r, 1, "=" + _term_formula(term, src_cell[term.column], tau), None, d_vals[i])
         cells.formula(r, 2, "=" + ps.pick(lay.col_coef(i)), sci, float(store.beta[g, i]))
         for j in range(p):
             cells.formula(r, 3 + j, "=" + ps.pick(lay.col_inv(i, j)), sci, float(inv[i, j]))
@@ -329,3 +381,5 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
     cells.text(calc + p + 3, 0, "Intervals use the t distribution with the group's residual degrees of freedom. "
                                 "Outside the observed input ranges the model was not fitted: treat such "
                                 "predictions with caution.", st.note)
+    if store.has_change_points:
+        cells.text(calc + p + 4, 0, INACTIVE_NOTE, st.note)

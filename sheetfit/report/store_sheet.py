@@ -19,6 +19,8 @@ from ..results.store import (
     term_rows,
 )
 from ..results.store_layout import (
+    INACTIVE_NOTE,
+    INACTIVE_NOTE_ROW,
     NOTE_ROW,
     SETTING_HEADER,
     SETTING_HEADER_ROW,
@@ -43,6 +45,8 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any, bulk: Any 
     ws.fit_to_pages(1, 0)
     ws.write_string(TITLE_ROW, 0, STORE_TITLE, st.title)
     ws.write_string(NOTE_ROW, 0, STORE_NOTE, st.note)
+    if lay.extras:
+        ws.write_string(INACTIVE_NOTE_ROW, 0, INACTIVE_NOTE, st.note)
     ws.write_row(SETTING_HEADER_ROW, 0, list(SETTING_HEADER), st.header)
     for i, (name, values) in enumerate(store_settings(store)):
         ws.write_string(lay.first_setting + i, 0, name)
@@ -55,7 +59,8 @@ def fill_store(ws: Any, store: ModelStore, lay: StoreLayout, st: Any, bulk: Any 
     ws.write_row(lay.group_header, 0, group_headers(store), st.header)
     sci = st.number(SCIENTIFIC)
     columns = [(c, sci if c.part in SCIENTIFIC_PARTS else None) for c in group_columns(store, lay)]
-    if bulk is not None and fastrows.use_fast(len(store), lay.width):
+    # a change-point store always takes the bulk path, which keeps every bit of each number (τ too)
+    if bulk is not None and (lay.extras or fastrows.use_fast(len(store), lay.width)):
         bulk(ws, lay.first, [(c.col, c.values, fmt) for c, fmt in columns])
     else:
         for g in range(len(store)):

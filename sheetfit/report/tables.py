@@ -15,6 +15,7 @@ import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
 from ..read.tidy import REASON
+from ..results.change_points import SHAPE_NOTE
 from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, INTERVAL_HIGH, INTERVAL_LOW,
     LOOK_HERE, NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, rename_note, renamed)
 from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL, day_count_headers
@@ -35,7 +36,8 @@ OBS_HEAD = OBSERVATION_HEAD
 OBS_TAIL = OBSERVATION_TAIL
 PRINT_FIT_WIDTH = 400          # characters of column width that still print legibly on one page width
 ROW_HEIGHT = 15                # points: one line of the default 11-point font
-WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30}   # long texts: this width, wrapped
+WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30, SHAPE_NOTE: 60}  # long texts: this width, wrapped
+ONE_PAGE_WIDE = ("groups",)    # sheets printed one page wide however many columns they have
 
 
 @dataclass(frozen=True)
@@ -118,7 +120,7 @@ def _write_part(ctx: WriteContext, ws, columns: list[Column], lo: int, hi: int,
     ws.freeze_panes(1, freeze_columns)
     ws.set_landscape()
     ws.repeat_rows(0)
-    if sum(widths) <= PRINT_FIT_WIDTH:     # printed: every column on the page width, if still readable
+    if sum(widths) <= PRINT_FIT_WIDTH or ws.name in ONE_PAGE_WIDE:   # printed: every column on the page width
         ws.fit_to_pages(1, 0)
     if hi > lo:
         highlight_rows(ws, st, [c.header for c in columns], rules, last_row)

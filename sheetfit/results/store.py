@@ -1,10 +1,11 @@
 """The stored models of a results workbook: what `sheetfit predict` and the live prediction sheet need.
 
 A results workbook carries every fitted model on its `model store` sheet (terms, coefficients,
-(X'X)⁻¹, residual variance and degrees of freedom, observed input ranges), so predictions need
-neither the input data nor a refit. This module gathers the store from FitResults, gives the
-sheet's cells as plain values (the report only places them, at the positions of
-`store_layout.StoreLayout`) and reads the sheet back from the same positions.
+(X'X)⁻¹, residual variance and degrees of freedom, observed input ranges; in a change-point run
+also each group's shape, change points, response mean and residual lag-1 autocorrelation), so
+predictions need neither the input data nor a refit. This module gathers the store from
+FitResults, gives the sheet's cells as plain values (the report only places them, at the
+positions of `store_layout.StoreLayout`) and reads the sheet back from the same positions.
 """
 
 from __future__ import annotations
@@ -19,19 +20,13 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ResultsWorkbookError
-from ..terms import Term, coefficient_labels, source_columns
+from ..terms import HINGES, Term, coefficient_labels, source_columns
+from .change_points import SHAPE
 from .headers import (CELL_LIMIT, COEFFICIENT, COEFFICIENT_COUNT, INPUT, PREDICTION_HEADERS,
     RESIDUAL_STD_ERROR, ROWS_USED, STATUS, cell_text, shown_names)
-from .store_layout import (
-    GROUP_HEADER,
-    SETTING_HEADER,
-    SETTING_NAMES,
-    STORE_FORMAT,
-    STORE_SHEET,
-    STORE_TITLE,
-    TERM_HEADER,
-    StoreLayout,
-)
+from .store_layout import (ABOVE_HEADER, BELOW_HEADER, EXTRA_HEADERS, FORMATS_READ, GROUP_HEADER, LAG1_HEADER,
+    MEAN_HEADER, SETTING_HEADER, SETTING_NAMES, SHAPE_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER,
+    StoreLayout)
 
 if TYPE_CHECKING:
     from .types import FitResults
@@ -40,11 +35,18 @@ RESULT_COLUMNS = PREDICTION_HEADERS
 MAX_UNPACKED = 2 * 1024**3
 # the store sheet's numbers of each group, before its coefficients
 STORE_NUMBERS = (ROWS_USED, "residual degrees of freedom", "residual variance")
+_PRESENT = "\x00present"     # a column name no table of ours or the user's carries
 
 
 @dataclass(frozen=True)
 class ModelStore:
-    """Every fitted group's model, as the results workbook stores it (one row per group)."""
+    """Every fitted group's model, as the results workbook stores it (one row per group).
+
+    In a change-point run a group uses only the slots of its shape: on the others `beta` is 0 and
+    `xtx_inv` has a row and column of 0, so every product over all slots is right as it stands.
+    The last four fields may be left out (None): they then hold NaN and '' (unknown, as in a
+    format-1 results workbook; `shapes` is '' in every run without change points).
+    """
 
     y: str
     group_columns: tuple[str, ...]
@@ -61,10 +63,37 @@ class ModelStore:
     xtx_inv: np.ndarray                   # (G, p, p)
     lo: np.ndarray                        # (G, m) observed minimum of each source column
     hi: np.ndarray                        # (G, m) observed maximum
+    change_points: np.ndarray | None = None   # (G, 2) τ of the 'below' and the 'above' term; NaN where none
+    response_mean: np.ndarray | None = None   # (G,) mean of the response over the rows used
+    residual_lag1: np.ndarray | None = None   # (G,) lag-1 autocorrelation of the residuals in row order
+    shapes: tuple[str, ...] | None = None     # (G,) shape of a change-point run's group; '' otherwise
+
+    def __post_init__(self) -> None:
+        """Fields left out become NaN (numbers) or '' (shapes), one per group."""
+        G = len(self.keys)
+        filled = {"change_points": np.full((G, 2), np.nan), "response_mean": np.full(G, np.nan),
+                  "residual_lag1": np.full(G, np.nan), "shapes": ("",) * G}
+        for name, empty in filled.items():
+            if getattr(self, name) is None:
+                object.__setattr__(self, name, empty)
 
     @property
     def term_labels(self) -> tuple[str, ...]:
         return coefficient_labels(self.terms, self.intercept)
+
+    @property
+    def has_change_points(self) -> bool:
+        """Whether the models hold change-point terms ('below' / 'above')."""
+        return any(t.kind in HINGES for t in self.terms)
+
+    @property
+    def format(self) -> int:
+        """The store format this store is written in: always the newest (see store_layout).
+
+        Format 2 keeps every group's response mean and residual lag-1 autocorrelation (the savings'
+        approximate uncertainty needs them) and, in change-point runs, its shape and change points.
+        """
+        return STORE_FORMAT
 
     @property
     def sources(self) -> tuple[str, ...]:
@@ -130,32 +159,68 @@ def _spread(table: pd.DataFrame, k: int, fitted: pd.DataFrame, slots: dict[str, 
 def store_from_results(results: "FitResults") -> ModelStore:
     """Gather the stored model of every fitted group from FitResults (no statistics computed here).
 
-    Groups without a complete set of coefficients and (X'X)⁻¹ are left out.
+    Groups without a complete set of coefficients and (X'X)⁻¹ are left out. In a change-point run
+    a temperature slot without a coefficient row is one the group's shape does not use: it is
+    stored as coefficient 0 with a row and column of 0 in (X'X)⁻¹.
     """
     k = len(results.group_columns)
     labels = pd.Index(results.term_labels)
     sources = pd.Index(source_columns(results.terms))
     p, m = len(labels), len(sources)
     g = results.groups
-    fitted = (g[g[STATUS].astype(str).eq("fitted")] if STATUS in g.columns else g).reset_index(drop=True)
+    is_fitted = g[STATUS].astype(str).eq("fitted").to_numpy() if STATUS in g.columns else np.ones(len(g), bool)
+    fitted = g[is_fitted].reset_index(drop=True)
     G = len(fitted)
     beta = _spread(results.coefficients, k, fitted, {INPUT: labels}, COEFFICIENT, (G, p))
+    present = _spread(results.coefficients.assign(**{_PRESENT: 1.0}), k, fitted, {INPUT: labels}, _PRESENT,
+                      (G, p)) == 1.0
     inv = _spread(results.xtx_inverse, k, fitted, {"row term": labels, "column term": labels}, "value",
                   (G, p, p))
     lo = _spread(results.input_ranges, k, fitted, {"column": sources}, "min", (G, m))
     hi = _spread(results.input_ranges, k, fitted, {"column": sources}, "max", (G, m))
-    ok = np.isfinite(beta).all(axis=1) & np.isfinite(inv).reshape(G, -1).all(axis=1)
+    both = present[:, :, None] & present[:, None, :]
+    may_skip = _optional_slots(results)
+    ok = (np.isfinite(np.where(present, beta, 0.0)).all(axis=1)
+          & np.isfinite(np.where(both, inv, 0.0)).reshape(G, -1).all(axis=1)
+          & (present | may_skip).all(axis=1))
+    beta, inv = np.where(present, beta, 0.0), np.where(both, inv, 0.0)
     sub = fitted[ok]
     kept = list(zip(*(sub.iloc[:, j].astype(str) for j in range(k)))) if k else [()] * len(sub)
     n = pd.to_numeric(sub[ROWS_USED]).to_numpy(np.int64)
     rse = pd.to_numeric(sub[RESIDUAL_STD_ERROR]).to_numpy(np.float64)
+    at = np.flatnonzero(is_fitted)[ok]        # the kept groups' positions among all groups
+
+    def per_group(values: np.ndarray | None, width: tuple[int, ...] = ()) -> np.ndarray:
+        return np.full((len(at), *width), np.nan) if values is None else np.asarray(values, np.float64)[at]
+
+    cps = per_group(results.change_points, (2,))
     return ModelStore(
         y=results.y, group_columns=tuple(results.group_columns), terms=tuple(results.terms),
         intercept=bool(results.job.intercept), level=float(results.job.level),
         date_columns=tuple(c for c in results.info.date_columns if c in sources),
         labels=unique_labels(kept), keys=tuple(kept), n=n,
         df=(n - pd.to_numeric(sub[COEFFICIENT_COUNT]).to_numpy(np.int64)).astype(np.float64), sigma2=rse**2,
-        beta=beta[ok], xtx_inv=inv[ok], lo=lo[ok], hi=hi[ok])
+        beta=beta[ok], xtx_inv=inv[ok], lo=lo[ok], hi=hi[ok], change_points=cps,
+        response_mean=per_group(results.response_mean), residual_lag1=per_group(results.residual_lag1),
+        shapes=_shapes(sub, cps) if results.change_points is not None else None)
+
+
+def _optional_slots(results: "FitResults") -> np.ndarray:
+    """(p,) the slots a group may leave unused: in a change-point run, the temperature's three slots."""
+    hinged = {t.column for t in results.terms if t.kind in HINGES} if results.change_points is not None else set()
+    slots = [t.column in hinged and t.kind in (*HINGES, "column") for t in results.terms]
+    return np.array(([False] if results.job.intercept else []) + slots, dtype=bool)
+
+
+def _shapes(groups: pd.DataFrame, cps: np.ndarray) -> tuple[str, ...]:
+    """Each kept group's shape: the groups table's own word, else read off its change points."""
+    if SHAPE in groups.columns:
+        words = groups[SHAPE].fillna("").astype(str).tolist()
+        return tuple(w or "line" for w in words)
+    below, above = np.isfinite(cps[:, 0]), np.isfinite(cps[:, 1])
+    out = np.where(below & above, np.where(cps[:, 0] == cps[:, 1], "two-slopes", "heating-cooling"),
+                   np.where(below, "heating", np.where(above, "cooling", "line")))
+    return tuple(str(w) for w in out)
 
 
 # --- the store sheet's cells as plain values --------------------------------------------------------
@@ -166,18 +231,18 @@ class StoreColumn:
 
     col: int
     part: str             # "group", "key", "rows used", "residual df", "residual variance", "coefficient",
-    values: np.ndarray    # "(X'X)⁻¹", "min" or "max"
+    values: np.ndarray    # "(X'X)⁻¹", "min", "max"; format 2 also "shape", "change point", "mean", "lag-1"
 
 
 def store_layout(store: ModelStore) -> StoreLayout:
     """The store sheet's layout for this store."""
     return StoreLayout(k=len(store.group_columns), p=len(store.term_labels), m=len(store.sources),
-                       groups=len(store))
+                       groups=len(store), extras=store.format == 2)
 
 
 def store_settings(store: ModelStore) -> list[tuple[str, list]]:
     """The rows of the settings table: (setting, its values)."""
-    values = ([STORE_FORMAT], [store.y], ["yes" if store.intercept else "no"], [store.level],
+    values = ([store.format], [store.y], ["yes" if store.intercept else "no"], [store.level],
               list(store.group_columns), list(store.sources), list(store.date_columns), [len(store)])
     return list(zip(SETTING_NAMES, values))
 
@@ -196,6 +261,8 @@ def group_headers(store: ModelStore) -> list[str]:
     ours += [f"(X'X)⁻¹: {a} × {b}" for a in labels for b in labels]
     for c in store.sources:
         ours += [f"min: {c}", f"max: {c}"]
+    if store.format == 2:
+        ours += list(EXTRA_HEADERS)
     keys = shown_names(store.group_columns, [GROUP_HEADER, *ours])
     return [cell_text(h) for h in (GROUP_HEADER, *keys, *ours)]
 
@@ -215,6 +282,12 @@ def group_columns(store: ModelStore, lay: StoreLayout) -> list[StoreColumn]:
     for j in range(lay.m):
         cols += [StoreColumn(lay.col_min(j), "min", store.lo[:, j]),
                  StoreColumn(lay.col_max(j), "max", store.hi[:, j])]
+    if lay.extras:
+        cols += [StoreColumn(lay.col_extra(SHAPE_HEADER), "shape", np.array(store.shapes, dtype=object)),
+                 StoreColumn(lay.col_extra(BELOW_HEADER), "change point", store.change_points[:, 0]),
+                 StoreColumn(lay.col_extra(ABOVE_HEADER), "change point", store.change_points[:, 1]),
+                 StoreColumn(lay.col_extra(MEAN_HEADER), "mean", np.asarray(store.response_mean, np.float64)),
+                 StoreColumn(lay.col_extra(LAG1_HEADER), "lag-1", np.asarray(store.residual_lag1, np.float64))]
     return cols
 
 
@@ -270,9 +343,9 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
     end, table = _table(rows, first, first.index(SETTING_HEADER[0]) + 1)
     settings = {_text(r[0]): r[1:] for r in table}
     version = int(_number(settings["store format"][0]))
-    if version != STORE_FORMAT:
-        raise ResultsWorkbookError(f'"{name}" stores models in format {version}; this sheetfit reads format '
-                                   f'{STORE_FORMAT}: fit again with this version')
+    if version not in FORMATS_READ:
+        raise ResultsWorkbookError(f'"{name}" stores models in format {version}; this sheetfit reads formats '
+                                   f'{" and ".join(map(str, FORMATS_READ))}: fit again with this version')
 
     def names(key: str) -> tuple[str, ...]:
         return tuple(_text(v) for v in settings.get(key, []) if _text(v))
@@ -283,7 +356,8 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
                   for r in term_table if _text(r[2]) != "intercept")
     h = first.index(GROUP_HEADER, end)
     body = [r for r in rows[h + 1:] if r and _text(r[0])]
-    lay = StoreLayout(k=len(group_cols), p=len(term_table), m=len(source_columns(terms)), groups=len(body))
+    lay = StoreLayout(k=len(group_cols), p=len(term_table), m=len(source_columns(terms)), groups=len(body),
+                      extras=version >= 2)
     body = [(r + [None] * lay.width)[:lay.width] for r in body]
     nums = np.array([[_number(v) for v in r] for r in body], dtype=np.float64).reshape(len(body), lay.width)
     if not np.isfinite(nums[:, lay.col_n():lay.col_min(0)]).all():
@@ -295,7 +369,18 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
         keys=tuple(tuple(_text(r[lay.col_key(j)]) for j in range(lay.k)) for r in body),
         n=nums[:, lay.col_n()].astype(np.int64), df=nums[:, lay.col_df()], sigma2=nums[:, lay.col_s2()],
         beta=nums[:, lay.coef_columns()], xtx_inv=nums[:, lay.inv_columns()].reshape(len(body), lay.p, lay.p),
-        lo=nums[:, [lay.col_min(j) for j in range(lay.m)]], hi=nums[:, [lay.col_max(j) for j in range(lay.m)]])
+        lo=nums[:, [lay.col_min(j) for j in range(lay.m)]], hi=nums[:, [lay.col_max(j) for j in range(lay.m)]],
+        **_extras(body, nums, lay))
+
+
+def _extras(body: list[list], nums: np.ndarray, lay: StoreLayout) -> dict[str, Any]:
+    """The format-2 fields from the group rows (none from a format-1 store: they stay NaN)."""
+    if not lay.extras:
+        return {}
+    return {"change_points": nums[:, [lay.col_change_point(0), lay.col_change_point(1)]],
+            "response_mean": nums[:, lay.col_extra(MEAN_HEADER)],
+            "residual_lag1": nums[:, lay.col_extra(LAG1_HEADER)],
+            "shapes": tuple(_text(r[lay.col_extra(SHAPE_HEADER)]) for r in body)}
 
 
 def _table(rows: list[list], first: list[str], i: int) -> tuple[int, list[list]]:

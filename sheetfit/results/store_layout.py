@@ -3,6 +3,11 @@
 One layout for both directions: the report places the store's cells at these positions (and the
 live prediction sheet's formulas point at them), and `sheetfit.results.store.read_store` reads them back
 from the same positions. All rows and columns are 0-based.
+
+Format 1 (every run before change points, and every run without them) ends each group row with the
+observed min and max of every input. Format 2 (a change-point run) adds, after those, the group's
+shape, its two change points, the response mean and the residuals' lag-1 autocorrelation; every
+format-1 position stays where it was, so formulas pointing at them keep working.
 """
 
 from __future__ import annotations
@@ -11,18 +16,29 @@ from dataclasses import dataclass
 
 STORE_SHEET = "model store"
 STORE_TITLE = "sheetfit model store"
-STORE_FORMAT = 1
+STORE_FORMAT = 2                # the newest format this sheetfit writes and reads
+FORMATS_READ = (1, 2)
 STORE_NOTE = ("The fitted models, one row per group: the live prediction sheet and `sheetfit predict` read "
               "them from here. Do not edit, sort, insert or delete cells.")
+INACTIVE_NOTE = ("A group uses only the change-point terms of its shape: a term it does not use has "
+                 "coefficient 0 and a row and column of 0 in (X'X)⁻¹, and an empty change point.")
 SETTING_HEADER = ("setting", "value")
 TERM_HEADER = "coefficient"
 TERM_COLUMNS = (TERM_HEADER, "source column", "kind", "power")
 GROUP_HEADER = "group"
 SETTING_NAMES = ("store format", "response", "intercept", "confidence level", "group columns",
                  "source columns", "date/time inputs", "fitted groups")
+# the format-2 columns after the observed ranges, in order
+SHAPE_HEADER = "shape"
+BELOW_HEADER = "change point of the 'below' term"
+ABOVE_HEADER = "change point of the 'above' term"
+MEAN_HEADER = "response mean"
+LAG1_HEADER = "residual lag-1 autocorrelation"
+EXTRA_HEADERS = (SHAPE_HEADER, BELOW_HEADER, ABOVE_HEADER, MEAN_HEADER, LAG1_HEADER)
 
 TITLE_ROW = 0
 NOTE_ROW = 1
+INACTIVE_NOTE_ROW = 2           # format 2 only
 SETTING_HEADER_ROW = 3
 
 
@@ -32,13 +48,15 @@ class StoreLayout:
 
     Rows: title, note, the settings table, the terms table (one row per coefficient), then the
     group table: one row per fitted group holding its label, key values, n, residual df, residual
-    variance, coefficients, (X'X)⁻¹ row by row, and the observed min and max of every input.
+    variance, coefficients, (X'X)⁻¹ row by row, the observed min and max of every input and, in
+    format 2 (`extras`), the columns of EXTRA_HEADERS.
     """
 
     k: int
     p: int
     m: int
     groups: int = 0
+    extras: bool = False
 
     @property
     def first_setting(self) -> int:
@@ -64,7 +82,7 @@ class StoreLayout:
 
     @property
     def width(self) -> int:
-        return 1 + self.k + 3 + self.p + self.p * self.p + 2 * self.m
+        return 1 + self.k + 3 + self.p + self.p * self.p + 2 * self.m + (len(EXTRA_HEADERS) if self.extras else 0)
 
     def col_key(self, j: int) -> int: return 1 + j
     def col_n(self) -> int: return 1 + self.k
@@ -74,6 +92,16 @@ class StoreLayout:
     def col_inv(self, i: int, j: int) -> int: return 4 + self.k + self.p + i * self.p + j
     def col_min(self, j: int) -> int: return 4 + self.k + self.p + self.p * self.p + 2 * j
     def col_max(self, j: int) -> int: return self.col_min(j) + 1
+
+    def col_extra(self, header: str) -> int:
+        """The column of one of EXTRA_HEADERS (format 2 only)."""
+        if not self.extras:
+            raise KeyError(f"a format-1 store has no column {header!r}")
+        return self.col_min(self.m) + EXTRA_HEADERS.index(header)
+
+    def col_change_point(self, i: int) -> int:
+        """The change point of the 'below' (i = 0) or the 'above' (i = 1) term."""
+        return self.col_extra((BELOW_HEADER, ABOVE_HEADER)[i])
 
     def coef_columns(self) -> list[int]:
         """The columns of the coefficients, in term order."""

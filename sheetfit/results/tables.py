@@ -8,9 +8,9 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..model.engine import EngineFit, design_row
+from ..model.engine import EngineFit
 from ..model.inference import Inference
-from ..terms import Term, source_columns
+from ..terms import Term, design_matrix, source_columns
 from .headers import (ADJUSTED_R2, AIC, AVERAGE_HIGH, AVERAGE_LOW, BIC, COEFFICIENT, COEFFICIENT_COUNT,
     CV_RMSE, F_P_VALUE, F_STAT, FITTED, FLAGS, INPUT, INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, R2, REASONS,
     RESIDUAL_STD_ERROR, RMSE, ROWS_NOT_USED, ROWS_USED, STATUS, STD_ERROR, T_STAT, shown_names)
@@ -61,7 +61,7 @@ def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, flags: np.n
         CV_RMSE: only(inf.cv_rmse),
         ROWS_USED: used,
         ROWS_NOT_USED: dropped,
-        COEFFICIENT_COUNT: np.full(G, fit.p),
+        COEFFICIENT_COUNT: fit.n_params,       # active coefficients plus change points
         AIC: only(inf.aic),
         BIC: only(inf.bic),
     }
@@ -69,15 +69,25 @@ def groups_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, flags: np.n
     return with_keys(keys, np.arange(G), body)
 
 
-def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, labels: Sequence[str],
-                       extra: dict[str, np.ndarray]) -> pd.DataFrame:
-    """group × term rows for fitted groups; `extra` maps column name → (G, p) arrays."""
+def active_cells(fit: EngineFit) -> tuple[np.ndarray, np.ndarray]:
+    """(group, slot) of every coefficient a fitted group uses, group by group in slot order.
+
+    Slots a group's shape does not use (a change-point run) have no coefficient and are left out.
+    """
     g_idx = np.flatnonzero(fit.fitted_ok)
     p = fit.p
-    codes = np.repeat(g_idx, p)
-    sel = (codes, np.tile(np.arange(p), len(g_idx)))
+    codes, slots = np.repeat(g_idx, p), np.tile(np.arange(p), len(g_idx))
+    used = fit.active[codes, slots]
+    return (codes, slots) if used.all() else (codes[used], slots[used])
+
+
+def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, labels: Sequence[str],
+                       extra: dict[str, np.ndarray]) -> pd.DataFrame:
+    """group × term rows for fitted groups, the terms each group uses; `extra` maps column name → (G, p) arrays."""
+    sel = active_cells(fit)
+    codes = sel[0]
     body = {                       # in the order of results.headers.COEFFICIENT_HEADERS
-        INPUT: np.tile(np.asarray(labels, dtype=object), len(g_idx)),
+        INPUT: np.asarray(labels, dtype=object)[sel[1]],
         COEFFICIENT: fit.beta[sel],
         INTERVAL_LOW: inf.ci_low[sel],
         INTERVAL_HIGH: inf.ci_high[sel],
@@ -91,8 +101,14 @@ def coefficients_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, label
 
 
 def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequence[Term],
-                 ranges: dict[str, tuple[np.ndarray, np.ndarray]]) -> pd.DataFrame:
-    """Fitted line and confidence band of the mean over each group's observed input range."""
+                 ranges: dict[str, tuple[np.ndarray, np.ndarray]],
+                 change_points: np.ndarray | None = None) -> pd.DataFrame:
+    """Fitted line and confidence band of the mean over each group's observed input range.
+
+    `change_points` (G, 2), a change-point run's τ of the 'below' and the 'above' term per group:
+    the grid then also holds each group's change points inside its range, so the broken line
+    bends exactly there.
+    """
     cols = source_columns(terms)
     if len(cols) != 1:
         return empty_table(keys, ["x", FITTED, AVERAGE_LOW, AVERAGE_HIGH])
@@ -101,14 +117,41 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequ
     g_idx = np.flatnonzero(fit.fitted_ok & np.isfinite(lo) & np.isfinite(hi))
     frac = np.linspace(0.0, 1.0, CURVE_POINTS)
     xs = lo[g_idx, None] + (hi - lo)[g_idx, None] * frac[None, :]
-    D = design_row(terms, fit.intercept, {col: xs.ravel()}).reshape(len(g_idx), CURVE_POINTS, fit.p)
-    yhat = np.einsum("gkp,gp->gk", D, fit.beta[g_idx])
-    var = np.einsum("gkp,gpq,gkq->gk", D, fit.xtx_inv[g_idx], D) * fit.sigma2[g_idx, None]
+    cps, keep = None, None
+    if change_points is not None:
+        tau = np.asarray(change_points, dtype=np.float64)[g_idx]
+        xs, keep = grid_with_change_points(xs, tau, lo[g_idx], hi[g_idx])
+        cps = {"below": np.repeat(tau[:, 0], xs.shape[1]), "above": np.repeat(tau[:, 1], xs.shape[1])}
+    k = xs.shape[1]
+    with np.errstate(invalid="ignore"):
+        D = design_matrix(terms, fit.intercept, {col: xs.ravel()}, cps).reshape(len(g_idx), k, fit.p)
+    act = fit.active[g_idx]
+    beta = np.where(act, fit.beta[g_idx], 0.0)
+    inv = np.where(act[:, :, None] & act[:, None, :], fit.xtx_inv[g_idx], 0.0)
+    yhat = np.einsum("gkp,gp->gk", D, beta)
+    var = np.einsum("gkp,gpq,gkq->gk", D, inv, D) * fit.sigma2[g_idx, None]
     half = inf.t_quantile[g_idx, None] * np.sqrt(np.maximum(var, 0.0))
-    codes = np.repeat(g_idx, CURVE_POINTS)
-    return with_keys(keys, codes, {"x": xs.ravel(), FITTED: yhat.ravel(),
-                                   AVERAGE_LOW: (yhat - half).ravel(),
-                                   AVERAGE_HIGH: (yhat + half).ravel()})
+    codes = np.repeat(g_idx, k)
+    body = {"x": xs.ravel(), FITTED: yhat.ravel(), AVERAGE_LOW: (yhat - half).ravel(),
+            AVERAGE_HIGH: (yhat + half).ravel()}
+    if keep is not None:
+        at = keep.ravel()
+        codes, body = codes[at], {name: v[at] for name, v in body.items()}
+    return with_keys(keys, codes, body)
+
+
+def grid_with_change_points(xs: np.ndarray, tau: np.ndarray, lo: np.ndarray, hi: np.ndarray
+                            ) -> tuple[np.ndarray, np.ndarray]:
+    """Each group's grid row with its change points strictly inside (lo, hi) added, sorted: (grid, which to keep).
+
+    Rows are padded with NaN to one width; `keep` is False on padding and on repeats (two
+    change points at one place, or a change point on a grid point).
+    """
+    inside = np.where((tau > lo[:, None]) & (tau < hi[:, None]), tau, np.nan)
+    grid = np.sort(np.concatenate([xs, inside], axis=1), axis=1)       # NaN sorts last
+    keep = np.isfinite(grid)
+    keep[:, 1:] &= grid[:, 1:] != grid[:, :-1]
+    return grid, keep
 
 
 def quantiles_table(keys: pd.DataFrame, fit: EngineFit, codes: np.ndarray) -> pd.DataFrame:
@@ -142,11 +185,15 @@ def quantiles_table(keys: pd.DataFrame, fit: EngineFit, codes: np.ndarray) -> pd
 
 
 def xtx_table(keys: pd.DataFrame, fit: EngineFit, labels: Sequence[str]) -> pd.DataFrame:
+    """(X'X)⁻¹ of each fitted group, row term × column term, over the terms the group uses."""
     g_idx = np.flatnonzero(fit.fitted_ok)
     p = fit.p
     codes = np.repeat(g_idx, p * p)
     rows = np.tile(np.repeat(np.arange(p), p), len(g_idx))
     cols = np.tile(np.tile(np.arange(p), p), len(g_idx))
+    used = fit.active[codes, rows] & fit.active[codes, cols]
+    if not used.all():
+        codes, rows, cols = codes[used], rows[used], cols[used]
     lab = np.asarray(labels, dtype=object)
     return with_keys(keys, codes, {"row term": lab[rows], "column term": lab[cols],
                                    "value": fit.xtx_inv[codes, rows, cols]})

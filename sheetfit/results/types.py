@@ -9,6 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from ..job import FitJob
@@ -34,12 +35,16 @@ class FitResults:
                   verdict (pass / fail / n/a), note
     observations  input row: keys, source sheet, source row, y and source x columns, used in fit,
                   reason, row flags, fitted value, residual, studentized residual, leverage,
-                  Cook's distance
+                  Cook's distance; a date column is followed by `NAME (days from group start)`
     curves        one-source-column models: keys, x, fitted value, range for the average, low/high (grid)
     quantiles     keys, normal quantile, standardized residual (sorted; for quantile plots)
     xtx_inverse   keys, row term, column term, value: (X'X)^-1 of each fitted group
     input_ranges  keys, column, min, max: observed range of each source column per group
     about         ordered (item, value) pairs: provenance, settings, counts, timings
+    change_points (G, 2) per group: τ of the 'below' and of the 'above' term (NaN where the group's
+                  shape has none); None when the run has no change points
+    response_mean (G,) mean of the response over the rows used (NaN when not fitted)
+    residual_lag1 (G,) lag-1 autocorrelation of the residuals in row order (NaN when undefined)
     """
 
     job: FitJob
@@ -57,6 +62,9 @@ class FitResults:
     info: ReadInfo
     about: tuple[tuple[str, Any], ...] = field(default_factory=tuple)
     order: str | None = None              # the column giving the row order within a group, if any
+    change_points: np.ndarray | None = None
+    response_mean: np.ndarray | None = None
+    residual_lag1: np.ndarray | None = None
 
     @property
     def number_columns(self) -> tuple[str, ...]:

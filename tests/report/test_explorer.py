@@ -106,3 +106,16 @@ def test_large_groups_show_an_even_sample(tmp_path, monkeypatch):
     xs = np.sort(res.observations[res.observations["grp"] == "a"]["x"].to_numpy())
     shown = [r[0] for r in rows]
     assert shown[0] == xs[0] and shown[-1] == xs[-1]     # the sample spans the whole range
+
+
+def test_a_date_input_shows_the_days_the_model_used(tmp_path):
+    rng = np.random.default_rng(9)
+    days = np.sort(rng.choice(300, size=20, replace=False)).astype(float)
+    when = pd.Timestamp("2024-02-01") + pd.to_timedelta(days, unit="D")
+    res = fit_frame(pd.DataFrame({"when": when, "y": 3 + 0.2 * days + rng.normal(0, 1, 20)}), y="y", x=["when"])
+    wb = openpyxl.load_workbook(write_results(res, tmp_path / "dated.xlsx"), read_only=True)
+    rows = list(wb["explorer data"].iter_rows(values_only=True))
+    head = next(i for i, r in enumerate(rows) if r[:2] == ("group", "source row"))
+    shown = [r[rows[head].index("when")] for r in rows[head + 1:] if r[0] is not None]
+    # oracle: the day counts built here (days since the earliest date), in the block's sorted order
+    np.testing.assert_allclose(shown, np.sort(days - days.min()), rtol=0, atol=1e-9)
