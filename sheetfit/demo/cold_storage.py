@@ -7,9 +7,7 @@ Regenerated from the seed (not shipped as a file) so an installed package can ru
 
 from __future__ import annotations
 
-import argparse
 import datetime as dt
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -315,27 +313,3 @@ def _write_sheet(book: Any, sheet: Any, frame: "pd.DataFrame") -> None:
     sheet.set_column(3, len(COLUMNS) - 1, 14)
     sheet.freeze_panes(1, 0)
     sheet.autofilter(0, 0, len(frame), len(COLUMNS) - 1)
-
-
-def run_demo(folder: Path, progress: Callable[[str], None] | None = None) -> tuple[Path, Any, Path]:
-    """Write the demo workbook into `folder`, fit it, return (workbook, results, results path)."""
-    from .job import make_job
-    from .pipeline import run_job
-
-    folder = Path(folder)
-    workbook = write_demo_workbook(folder / FILE_NAME)
-    job = make_job({**DEMO_JOB, "workbook": workbook, "out": folder / RESULTS_NAME, "overwrite": True})
-    results, out = run_job(job, progress=progress)
-    return workbook, results, out
-
-
-def _main(argv: list[str] | None = None) -> None:
-    parser = argparse.ArgumentParser(prog="python -m sheetfit.demo", description=__doc__.splitlines()[0])
-    parser.add_argument("--write", metavar="PATH", type=Path, required=True, help="where to write the workbook")
-    parser.add_argument("--seed", type=int, default=SEED, help=f"random seed (default {SEED})")
-    args = parser.parse_args(argv)
-    print(write_demo_workbook(args.write, seed=args.seed))
-
-
-if __name__ == "__main__":
-    _main()
