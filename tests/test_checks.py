@@ -38,7 +38,7 @@ def test_every_group_gets_every_check_in_the_sheet_order():
     want = ["model F-test", "R² below threshold", "enough data", "normal residuals (Jarque–Bera)",
             "normal residuals (Shapiro–Wilk)", "constant variance (Breusch–Pagan)", "constant variance (White)",
             "independent residuals (Durbin–Watson)", "independent residuals (Breusch–Godfrey)",
-            "linear form (RESET)", "outlier (Bonferroni)", "influence (Cook's distance)", "single-row leverage",
+            "linear form (RESET)", "lack of fit (replicates)", "outlier (Bonferroni)", "influence (Cook's distance)", "single-row leverage",
             "collinearity (VIF)", "collinearity (condition number)"]
     for _, sub in res.checks.groupby("grp", sort=False):
         assert list(sub["check"]) == want
