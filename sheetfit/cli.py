@@ -27,6 +27,7 @@ from .job import (
     job_file_settings,
     make_job,
 )
+from .demo import SCENARIOS as DEMO_SCENARIOS
 from .terminal import PROG, error_boundary, print_timings, stage_bar
 
 MB = 1024 * 1024
@@ -47,6 +48,7 @@ Robust = _choices("Robust", ROBUST_KINDS)
 Inference = _choices("Inference", INFERENCE_KINDS)
 ObservationRows = _choices("ObservationRows", OBSERVATION_MODES)
 ChangePoint = _choices("ChangePoint", CHANGE_POINT_SHAPES)
+DemoScenario = _choices("DemoScenario", DEMO_SCENARIOS)
 
 
 app = typer.Typer(
@@ -201,6 +203,9 @@ def fit(
     max_cv_rmse: float = _opt(DEFAULTS["max_cv_rmse"], "--max-cv-rmse", help="Baseline criterion: flag fits whose CV(RMSE) in % is above this."),
     max_nmbe: float = _opt(DEFAULTS["max_nmbe"], "--max-nmbe", help="Baseline criterion: flag fits whose |NMBE| in % is above this."),
     baseline_min_r2: float = _opt(DEFAULTS["baseline_min_r2"], "--baseline-min-r2", help="Baseline criterion: flag fits whose R² is below this."),
+    calibration: bool = _opt(False, "--calibration", show_default=False, help="Each group is a calibration line: limits of detection and quantification on groups, each standard's back-calculated value on observations."),
+    back_calc_limit: float = _opt(DEFAULTS["back_calc_limit"], "--back-calc-limit", help="With --calibration: flag standards whose back-calculated value is off by more than this %."),
+    back_calc_limit_lowest: float = _opt(DEFAULTS["back_calc_limit_lowest"], "--back-calc-limit-lowest", help="The same at each group's lowest non-zero standard."),
     job_file: Path | None = _opt(None, "--job", help="TOML job file with settings; options given here override it.", show_default=False, metavar="JOB.toml", readable=False),
     strict: bool = _opt(False, "--strict", help="Stop with an error if any row cannot be used.", show_default=False),
     csv_delimiter: str | None = _opt(None, "--csv-delimiter", help="Field separator of a .csv input (default: guessed).", show_default=False, metavar="C"),
@@ -276,16 +281,20 @@ def _require(ctx: typer.Context, settings: dict[str, Any]) -> None:
 def demo(
     folder: Path = typer.Option(Path("sheetfit-demo"), "--dir", metavar="DIR", readable=False,
                              help="Folder to write into (created if needed); its two demo files are replaced."),
+    scenario: DemoScenario = typer.Option(DemoScenario(DEMO_SCENARIOS[0]), "--scenario",
+                                          help="Which invented example: cold-storage (monthly electricity use of "
+                                               "cold-storage sites) or calibration (calibration runs of lab "
+                                               "instruments, with limits and back-calculated standards)."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="No progress bar and no summary; only the paths."),
     debug: bool = typer.Option(False, "--debug", help="Show the full traceback of an error, and any warnings."),
 ) -> None:
-    """Write the bundled demo workbook (invented cold-storage sites) and its results into DIR."""
+    """Write a bundled demo workbook (invented data; --scenario picks which) and its results into DIR."""
     with error_boundary(debug):
         from .demo import run_demo
         from .pipeline import summary_lines
 
         with stage_bar(not quiet) as bar:
-            workbook, results, path = run_demo(Path(folder), progress=bar.stage)
+            workbook, results, path = run_demo(Path(folder), progress=bar.stage, scenario=scenario.value)
         typer.echo(f"demo workbook: {workbook}")
         typer.echo(f"results: {path}")
         if not quiet:

@@ -111,6 +111,12 @@ SCHEMA: dict[str, Setting] = {
                                   "plain-column input)", "--change-point-input", optional=True),
     "baseline_checks": Setting("bool", "judge fits by the energy-baseline criteria (on with --change-point)",
                                "--baseline-checks", optional=True),
+    "calibration": Setting("bool", "treat each group as a calibration line: detection and quantification limits, "
+                           "back-calculated standards", "--calibration"),
+    "back_calc_limit": _threshold("flag standards whose back-calculated value deviates by more than this %",
+                                  "--back-calc-limit"),
+    "back_calc_limit_lowest": _threshold("the same at the lowest non-zero standard, in %",
+                                         "--back-calc-limit-lowest"),
     "max_cv_rmse": _threshold("flag baselines whose CV(RMSE) in % is above this", "--max-cv-rmse"),
     "max_nmbe": _threshold("flag baselines whose |NMBE| in % is above this", "--max-nmbe"),
     "baseline_min_r2": Setting("number", "flag baselines whose R² is below this", "--baseline-min-r2",
@@ -246,6 +252,8 @@ class Thresholds:
     max_cv_rmse: float = 20.0            # baseline criterion, % (common practice for monthly energy baselines)
     max_nmbe: float = 0.5                # baseline criterion, |NMBE| in % (common practice)
     baseline_min_r2: float = 0.75        # baseline criterion (common practice for energy baselines)
+    back_calc_limit: float = 15.0        # calibration: standard flagged beyond ±this % (common practice)
+    back_calc_limit_lowest: float = 20.0  # the same at the lowest non-zero standard (common practice)
 
     def validate(self) -> "Thresholds":
         """Every field against SCHEMA (type, finiteness, range, choices); JobError on the first wrong one."""
@@ -279,6 +287,7 @@ class FitJob:
     change_point: str = "none"           # none | heating | cooling | two-slopes | heating-cooling | auto
     change_point_input: str | None = None  # the temperature column; None → the first plain-column input
     baseline_checks: bool | None = None  # energy-baseline criteria; None → on exactly when change_point is set
+    calibration: bool = False            # calibration-line extras: limits on groups, back-calculated standards
     thresholds: Thresholds = field(default_factory=Thresholds)
 
     def validate(self) -> "FitJob":
@@ -291,6 +300,9 @@ class FitJob:
         if not isinstance(self.thresholds, Thresholds):
             raise JobError(f"thresholds must be a sheetfit.job.Thresholds; found {_shown(self.thresholds)}")
         self.thresholds.validate()
+        if self.calibration and (len(self.x) != 1 or not self.intercept or self.change_point != "none"):
+            raise JobError("--calibration needs a straight line in one input with a constant: one --x column, "
+                           "without --no-intercept or --change-point")
         if self.change_point != "none" and not self.intercept:
             raise JobError("--change-point needs the constant (the use where the temperature has no effect); "
                            "leave out --no-intercept")
@@ -319,6 +331,8 @@ class FitJob:
         unused = set() if self.change_point != "none" else set(CHANGE_POINT_SETTINGS)
         if not self.judge_baseline:
             unused |= set(BASELINE_SETTINGS)
+        if not self.calibration:
+            unused |= set(CALIBRATION_SETTINGS)
         for f in fields(self):
             if f.name in SHOWN_ELSEWHERE or f.name in unused:
                 continue
@@ -330,6 +344,7 @@ class FitJob:
 
 
 CHANGE_POINT_SETTINGS = ("change_point", "change_point_input")      # listed on `about` only when used
+CALIBRATION_SETTINGS = ("calibration", "back_calc_limit", "back_calc_limit_lowest")
 BASELINE_SETTINGS = ("baseline_checks", "max_cv_rmse", "max_nmbe", "baseline_min_r2")
 SHOWN_ELSEWHERE = ("thresholds", "workbook", "y", "x", "intercept", "sheets", "header_row")
 

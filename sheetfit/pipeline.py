@@ -29,6 +29,7 @@ from .provenance import file_sha256
 from .read.tidy import REASON, SOURCE_ROW, Observations
 from .results import tables
 from .results.about import about_rows
+from .results import calibration
 from .results.change_points import NMBE, UPPER_CHANGE_POINT, change_point_columns, residual_lag1
 from .results.headers import (CONDITION_NUMBER, FLAGS, HIGH_LEVERAGE_ROWS, INFLUENTIAL_ROWS, OUTLYING_ROWS,
     STATUS, USED, YES)
@@ -154,8 +155,8 @@ def _check_and_tabulate(obs: Observations, job: FitJob, rows: GroupedRows, model
     return _tables(obs, job, rows, model, inf, judged, coef_extra, highlights, condition)
 
 
-def _group_extra(job: FitJob, model: FittedModel, codes: np.ndarray) -> dict[str, np.ndarray]:
-    """The groups sheet's change-point columns and NMBE (change-point runs and baseline checks only)."""
+def _group_extra(job: FitJob, model: FittedModel, inf: Inference, codes: np.ndarray) -> dict[str, np.ndarray]:
+    """The groups sheet's change-point columns, NMBE and calibration limits (only in runs that ask)."""
     extra: dict[str, np.ndarray] = {}
     if model.shaped is not None:
         found = change_point_columns(model.shaped.points, model.fit.fitted_ok)
@@ -164,6 +165,8 @@ def _group_extra(job: FitJob, model: FittedModel, codes: np.ndarray) -> dict[str
         extra.update(found)
     if job.judge_baseline:
         extra[NMBE] = checks.baseline.nmbe(model.fit, codes)
+    if job.calibration:
+        extra.update(calibration.limits(model.fit.beta, inf.residual_std_error))
     return extra
 
 
@@ -180,7 +183,7 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
         OUTLYING_ROWS: np.bincount(codes, weights=highlights["outlying"], minlength=G),
         INFLUENTIAL_ROWS: np.bincount(codes, weights=highlights["influential"], minlength=G),
         CONDITION_NUMBER: condition,
-        **_group_extra(job, model, codes),
+        **_group_extra(job, model, inf, codes),
     }
     # rows used and rows not used count the rows `observations` says are used and not used (a group that
     # could not be fitted uses none of its rows)
@@ -189,6 +192,8 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
     dropped = np.bincount(rows.codes_all, weights=~used, minlength=G).astype(np.int64)
     groups = tables.groups_table(keys, fit, inf, judged.flags, judged.reasons, (n_used, dropped), group_extra)
     observations = observations_table(obs, rows.reason, rows.pos, rows.codes_all, fit, highlights)
+    if job.calibration:
+        observations = _with_back_calculation(observations, obs, job, fit, rows)
     ranges = tables.observed_ranges(rows.columns, codes, G)
     return FitResults(
         job=job, group_columns=obs.group_columns, y=obs.y, terms=terms, groups=groups,
@@ -203,6 +208,18 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
         change_points=None if model.shaped is None else model.shaped.change_points,
         response_mean=fit.ymean.copy(), residual_lag1=residual_lag1(fit.resid, codes, G),
     )
+
+
+def _with_back_calculation(observations: pd.DataFrame, obs: Observations, job: FitJob, fit: EngineFit,
+                           rows: GroupedRows) -> pd.DataFrame:
+    """Observations with each standard's back-calculated input, its deviation and whether it is off."""
+    used = (observations[USED] == YES).to_numpy()
+    x = obs.data[obs.terms[0].column].to_numpy(dtype=np.float64)
+    y = obs.data[obs.y].to_numpy(dtype=np.float64)
+    thr = job.thresholds
+    found = calibration.back_calculation(x, y, rows.codes_all, used, fit.beta, thr.back_calc_limit,
+                                         thr.back_calc_limit_lowest)
+    return observations.assign(**found)
 
 
 def _refuse_unusable(data: pd.DataFrame, reason: np.ndarray) -> None:

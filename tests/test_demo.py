@@ -1,17 +1,27 @@
-"""The demo generator: deterministic, the committed workbook is its output, and each site is built
-the way workbooks/README.md says (checked on the data, by construction; no statistics needed)."""
+"""The demo generators: deterministic, the committed workbooks are their output, and each site or
+instrument is built the way workbooks/README.md says.
+
+Cold-storage sites are checked on the data, by construction. The calibration instruments are
+checked when fitted: lack-of-fit F against statsmodels (OLS of one mean per standard level compared
+with the straight line), Breusch–Pagan against statsmodels' het_breuschpagan (Koenker form), and
+back-calculated standards and limits from lines fitted by numpy.polyfit."""
 
 from __future__ import annotations
 
+import subprocess
+import sys
 import tomllib
 from pathlib import Path
 
+import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
 
 from sheetfit import demo
 from sheetfit.demo import CDD, KWH, MONTH, PALLETS, REGION, SITE
+from sheetfit.demo import calibration as cal
+from sheetfit.errors import JobError
 from sheetfit.job import load_job_file
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -183,3 +193,221 @@ def test_demo_flags_the_sites_built_to_misbehave(tmp_path):
     built = {site for how, site in SITE_OF.items() if how not in ("short", "constant pallets")}
     assert built <= flagged
     assert flagged - built == set()
+
+
+# ── the demo package and its scenarios ──
+
+def test_scenarios_name_their_files_and_jobs(tmp_path):
+    """The default scenario is the cold-storage demo with the constants it had before the package."""
+    default = demo.find_scenario()
+    assert (default.name, default.file_name, default.results_name, default.seed, default.job) == (
+        "cold-storage", demo.FILE_NAME, demo.RESULTS_NAME, demo.SEED, demo.DEMO_JOB)
+    chosen = demo.find_scenario("calibration")
+    assert (chosen.file_name, chosen.results_name, chosen.job) == (cal.FILE_NAME, cal.RESULTS_NAME,
+                                                                   cal.CALIBRATION_JOB)
+    with pytest.raises(JobError, match='demo scenario "calibrate" not found.*closest match: "calibration"'):
+        demo.run_demo(tmp_path, scenario="calibrate")
+
+
+@pytest.mark.parametrize("scenario, committed", [("cold-storage", COMMITTED), ("calibration", None)])
+def test_module_entry_writes_the_scenarios_workbook(tmp_path, scenario, committed):
+    """`python -m sheetfit.demo --write PATH [--scenario NAME]` writes what the generator writes."""
+    out = tmp_path / "written.xlsx"
+    proc = subprocess.run([sys.executable, "-m", "sheetfit.demo", "--write", str(out), "--scenario", scenario],
+                          capture_output=True, text=True, timeout=120, stdin=subprocess.DEVNULL, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == str(out)
+    chosen = demo.find_scenario(scenario)
+    assert out.read_bytes() == chosen.write(tmp_path / "direct.xlsx", chosen.seed).read_bytes()
+    if committed is not None:
+        assert out.read_bytes() == committed.read_bytes()
+
+
+# ── the calibration demo: invented lab instruments ──
+
+CAL_COMMITTED = ROOT / "workbooks" / cal.FILE_NAME
+CAL_JOB_FILE = ROOT / "workbooks" / "lab-calibration.toml"
+HOW = {name: how for name, _, how in cal.INSTRUMENTS}
+INSTRUMENT_OF = {how: name for name, how in HOW.items() if how != "ok"}
+ORDINARY = [name for name, how in HOW.items() if how == "ok"]
+LOF = "lack of fit (replicates)"
+
+
+@pytest.fixture(scope="module")
+def runs() -> cal.CalibrationRuns:
+    return cal.generate_calibration()
+
+
+@pytest.fixture(scope="module")
+def calibration_fit(tmp_path_factory):
+    """The calibration demo fitted through the public API, without the calibration extras."""
+    import sheetfit
+
+    workbook = cal.write_calibration_workbook(tmp_path_factory.mktemp("calibration") / cal.FILE_NAME)
+    job = cal.CALIBRATION_JOB
+    return sheetfit.fit_workbook(workbook, sheet=job["sheets"], group=job["group"], y=job["y"], x=job["x"])
+
+
+def lines_by_numpy(standards: pd.DataFrame) -> dict[str, tuple[float, float, float]]:
+    """Per instrument: (constant, slope, residual std error) of its straight line, by numpy.polyfit."""
+    out = {}
+    for name, rows in standards.groupby(cal.INSTRUMENT, sort=False):
+        x, y = rows[cal.CONCENTRATION].to_numpy(float), rows[cal.SIGNAL].to_numpy(float)
+        slope, constant = np.polyfit(x, y, 1)                                  # numpy least squares
+        resid = y - (constant + slope * x)
+        out[name] = (constant, slope, float(np.sqrt(resid @ resid / (len(x) - 2))))
+    return out
+
+
+def test_calibration_same_seed_same_frames(runs):
+    again = cal.generate_calibration(cal.SEED)
+    pd.testing.assert_frame_equal(runs.standards, again.standards)
+    pd.testing.assert_frame_equal(runs.unknowns, again.unknowns)
+    assert not runs.standards[cal.SIGNAL].equals(cal.generate_calibration(cal.SEED + 1).standards[cal.SIGNAL])
+
+
+def test_calibration_workbook_regenerates_byte_for_byte(tmp_path):
+    a = cal.write_calibration_workbook(tmp_path / "a.xlsx")
+    b = cal.write_calibration_workbook(tmp_path / "b.xlsx")
+    assert a.read_bytes() == b.read_bytes() == CAL_COMMITTED.read_bytes()
+
+
+def test_calibration_workbook_holds_the_frames(runs):
+    sheets = cell_values(CAL_COMMITTED)
+    assert list(sheets) == [cal.SHEET, cal.UNKNOWNS_SHEET]
+    standards, unknowns = sheets[cal.SHEET], sheets[cal.UNKNOWNS_SHEET]
+    assert standards[0] == cal.COLUMNS and unknowns[0] == cal.UNKNOWN_COLUMNS
+    want = [(n, d.to_pydatetime(), c, r, s) for n, d, c, r, s in runs.standards.itertuples(index=False)]
+    assert standards[1:] == want
+    assert unknowns[1:] == list(runs.unknowns.itertuples(index=False, name=None))
+
+
+def test_calibration_layout(runs):
+    """Twelve instruments, 6–8 levels (three for the few-levels one) with a blank, each in triplicate."""
+    frame = runs.standards
+    assert list(frame[cal.INSTRUMENT].unique()) == list(HOW) and len(HOW) == 12
+    for name, levels, how in cal.INSTRUMENTS:
+        rows = frame[frame[cal.INSTRUMENT] == name]
+        assert tuple(rows[cal.CONCENTRATION].unique()) == levels and levels[0] == 0.0
+        assert (len(levels) == 3) if how == "few levels" else (6 <= len(levels) <= 8)
+        assert rows.groupby(cal.CONCENTRATION)[cal.REPLICATE].apply(list).eq([[1, 2, 3]] * len(levels)).all()
+        assert rows[cal.RUN_DATE].nunique() == 1 and rows[cal.RUN_DATE].iloc[0].weekday() < 5
+    assert frame[cal.RUN_DATE].is_monotonic_increasing and frame[cal.RUN_DATE].nunique() == 12
+    unknowns = runs.unknowns
+    assert unknowns[cal.MEASUREMENTS].between(1, 3).all() and unknowns[cal.SAMPLE].is_unique
+    per = unknowns.groupby(cal.INSTRUMENT).size()
+    assert per.drop(cal.UNKNOWN_INSTRUMENT).between(2, 5).all() and set(per.index) - set(HOW) == {cal.UNKNOWN_INSTRUMENT}
+
+
+def test_calibration_job_file_matches_the_demo_job():
+    settings = load_job_file(CAL_JOB_FILE)
+    assert settings.pop("workbook") == cal.FILE_NAME
+    assert {k: tuple(v) if isinstance(v, list) else v for k, v in settings.items()} == cal.CALIBRATION_JOB
+    assert tomllib.loads(CAL_JOB_FILE.read_text(encoding="utf-8"))  # plain TOML
+
+
+def test_calibration_fit_shows_what_each_instrument_was_built_for(calibration_fit, runs):
+    """Verdicts at the 5 % level after the Benjamini–Hochberg adjustment, on the shipped seed; the
+    statistics that drive them checked against statsmodels."""
+    import statsmodels.api as sm
+    from statsmodels.stats.diagnostic import het_breuschpagan
+
+    checks = calibration_fit.checks
+    failed = {name: set(checks.loc[(checks[cal.INSTRUMENT] == name) & (checks["verdict"] == "fail"), "check"])
+              for name in HOW}
+    assert LOF in failed[INSTRUMENT_OF["curved"]]
+    assert LOF in failed[INSTRUMENT_OF["drifting standard"]]
+    assert failed[INSTRUMENT_OF["growing spread"]] & {"constant variance (Breusch–Pagan)", "constant variance (White)"}
+    assert failed[INSTRUMENT_OF["few levels"]] == {"enough data"}
+    assert all(not failed[name] for name in ORDINARY), {name: failed[name] for name in ORDINARY}
+    lof = checks[checks["check"] == LOF].set_index(cal.INSTRUMENT)
+    assert (lof.loc[ORDINARY + [INSTRUMENT_OF["few levels"]], "verdict"] == "pass").all()
+    for name, rows in runs.standards.groupby(cal.INSTRUMENT, sort=False):
+        x, y = rows[cal.CONCENTRATION].to_numpy(float), rows[cal.SIGNAL].to_numpy(float)
+        line = sm.OLS(y, sm.add_constant(x)).fit()
+        means = sm.OLS(y, pd.get_dummies(x).to_numpy(float)).fit()          # one mean per standard level
+        f, p, _ = means.compare_f_test(line)                                 # statsmodels: lack-of-fit F
+        np.testing.assert_allclose(lof.loc[name, ["statistic", "p-value"]].to_numpy(float), [f, p], rtol=1e-8)
+    spread = runs.standards[runs.standards[cal.INSTRUMENT] == INSTRUMENT_OF["growing spread"]]
+    x = sm.add_constant(spread[cal.CONCENTRATION].to_numpy(float))
+    lm, lm_p, _, _ = het_breuschpagan(sm.OLS(spread[cal.SIGNAL].to_numpy(float), x).fit().resid, x)  # statsmodels
+    bp = checks[(checks[cal.INSTRUMENT] == INSTRUMENT_OF["growing spread"])
+                & (checks["check"] == "constant variance (Breusch–Pagan)")].iloc[0]
+    np.testing.assert_allclose([bp["statistic"], bp["p-value"]], [lm, lm_p], rtol=1e-8)
+
+
+def test_drifting_standard_reads_back_off_and_the_others_do_not(runs):
+    """Each standard read back through its instrument's line, (signal − constant)/slope, by numpy; the
+    limits ±15 %, ±20 % at the lowest non-zero standard, are common practice in method validation."""
+    lines = lines_by_numpy(runs.standards)
+    frame = runs.standards.assign(back=lambda f: [
+        (s - lines[n][0]) / lines[n][1] for n, s in zip(f[cal.INSTRUMENT], f[cal.SIGNAL])])
+    frame = frame[frame[cal.CONCENTRATION] > 0]
+    deviation = 100.0 * (frame["back"] - frame[cal.CONCENTRATION]) / frame[cal.CONCENTRATION]
+    lowest = frame.groupby(cal.INSTRUMENT)[cal.CONCENTRATION].transform("min")
+    off = deviation.abs() > np.where(frame[cal.CONCENTRATION] == lowest, 20.0, 15.0)
+    drifting = frame[cal.INSTRUMENT] == INSTRUMENT_OF["drifting standard"]
+    at_level = drifting & (frame[cal.CONCENTRATION] == cal.DRIFT_LEVEL)
+    assert off[at_level].all() and (deviation[at_level] < 0).all()          # built to read low
+    assert not off[~at_level].any(), frame[off & ~at_level]
+    sheet_rows = [i + 2 for i in frame.index[at_level]]                      # 1-based, under the header
+    readme = (ROOT / "workbooks" / "README.md").read_text(encoding="utf-8")
+    assert f"(sheet rows {sheet_rows[0]}–{sheet_rows[-1]})" in readme and sheet_rows == list(
+        range(sheet_rows[0], sheet_rows[-1] + 1))
+
+
+def test_unknowns_hold_the_three_built_cases(runs):
+    """One response above the calibrated range, one read-back below the limit of quantification
+    (10·s/slope: the ICH Q2 approach based on the calibration line) and one unknown instrument,
+    each named in workbooks/README.md; lines by numpy.polyfit."""
+    lines = lines_by_numpy(runs.standards)
+    top = {name: max(levels) for name, levels, _ in cal.INSTRUMENTS}
+    known = runs.unknowns[runs.unknowns[cal.INSTRUMENT].isin(list(HOW))]
+    b0 = known[cal.INSTRUMENT].map(lambda n: lines[n][0])
+    b1 = known[cal.INSTRUMENT].map(lambda n: lines[n][1])
+    loq = known[cal.INSTRUMENT].map(lambda n: 10.0 * lines[n][2] / lines[n][1])
+    back = (known[cal.SIGNAL] - b0) / b1
+    above = known[known[cal.SIGNAL] > b0 + b1 * known[cal.INSTRUMENT].map(top)]
+    below = known[back < loq]
+    stranger = runs.unknowns[~runs.unknowns[cal.INSTRUMENT].isin(list(HOW))]
+    assert len(above) == len(below) == len(stranger) == 1
+    readme = (ROOT / "workbooks" / "README.md").read_text(encoding="utf-8")
+    for case in (above, below, stranger):
+        sample, name = case[cal.SAMPLE].iloc[0], case[cal.INSTRUMENT].iloc[0]
+        assert f"| {sample} | {name} |" in readme
+
+
+def test_readme_names_every_instrument(runs):
+    readme = (ROOT / "workbooks" / "README.md").read_text(encoding="utf-8")
+    assert f"## Sheet `{cal.SHEET}`: one row per instrument, standard and replicate ({len(runs.standards)} rows" in readme
+    assert f"## Sheet `{cal.UNKNOWNS_SHEET}`: the samples to read back ({len(runs.unknowns)} rows)" in readme
+    for name, levels, _ in cal.INSTRUMENTS:
+        assert f"| {name} | {len(levels)} levels" in readme
+    assert "python -m sheetfit.demo --scenario calibration --write workbooks/lab-calibration.xlsx" in readme
+
+
+def test_run_demo_writes_and_fits_the_calibration_scenario(tmp_path):
+    """The calibration scenario through run_demo: its workbook as committed, its results with the
+    limits on groups (LOD 3.3·s/slope, LOQ 10·s/slope: the ICH Q2 approach; lines by numpy.polyfit)."""
+    folder = tmp_path / "demo"
+    workbook, results, out = demo.run_demo(folder, scenario="calibration")
+    assert (workbook, out) == (folder / cal.FILE_NAME, folder / cal.RESULTS_NAME) and out.is_file()
+    assert workbook.read_bytes() == CAL_COMMITTED.read_bytes()
+    groups = results.groups.set_index(cal.INSTRUMENT)
+    assert list(groups.index) == list(HOW) and (groups["status"] == "fitted").all()
+    lines = lines_by_numpy(cal.generate_calibration().standards)
+    s_over_b = np.array([lines[n][2] / abs(lines[n][1]) for n in HOW])
+    np.testing.assert_allclose(groups["limit of detection"].to_numpy(float), 3.3 * s_over_b, rtol=1e-9)
+    np.testing.assert_allclose(groups["limit of quantification"].to_numpy(float), 10.0 * s_over_b, rtol=1e-9)
+    assert set(groups.index[groups["flags"] > 0]) == set(INSTRUMENT_OF.values())
+
+
+def test_demo_command_writes_the_calibration_scenario(tmp_path):
+    from sheetfit.demo import calibration as cal
+    from tests.conftest import run_cli
+
+    r = run_cli("demo", "--dir", tmp_path, "--scenario", "calibration", "--quiet", cwd=tmp_path)
+    assert r.returncode == 0, r.stderr
+    assert f"demo workbook: {tmp_path / cal.FILE_NAME}" in r.stdout
+    assert f"results: {tmp_path / cal.RESULTS_NAME}" in r.stdout
+    assert run_cli("demo", "--dir", tmp_path, "--scenario", "nowhere", cwd=tmp_path).returncode == 2

@@ -64,7 +64,8 @@ def row_flag_definitions(thr: Any) -> tuple[tuple[str, str], ...]:
 
 
 def change_point_definitions(res: Any) -> tuple[tuple[str, str], ...]:
-    """The change-point terms and columns of a change-point run, and the baseline criteria when judged."""
+    """The change-point terms and columns of a change-point run, the calibration columns of a calibration
+    run, and the baseline criteria when judged."""
     rows: list[tuple[str, str]] = []
     if res.change_points is not None:
         rows += [
@@ -82,6 +83,18 @@ def change_point_definitions(res: Any) -> tuple[tuple[str, str], ...]:
                       "BIC = n · ln(RSS/n) + p · ln n among shapes whose change points lie inside the range and "
                       "whose slopes have the expected sign and differ from zero at alpha (common practice); "
                       "'why this shape' gives each shape's BIC and why others were left out"),
+        ]
+    if res.job.calibration:
+        thr = res.job.thresholds
+        rows += [
+            ("limit of detection", "3.3 · residual std error / |slope| (ICH Q2, based on the calibration line)"),
+            ("limit of quantification", "10 · residual std error / |slope| (ICH Q2, based on the calibration line)"),
+            ("back-calculated input", "(response − constant) / slope: the standard's value read back from its own "
+                                      "response"),
+            ("deviation %", "100 · (back-calculated input − input) / input; empty for the blank (input 0)"),
+            ("standard off", f"the deviation is beyond ±{thr.back_calc_limit:g} % (±{thr.back_calc_limit_lowest:g} % "
+                             "at the group's lowest non-zero standard): common practice in method validation "
+                             "(settings back calc limit, back calc limit lowest); shaded"),
         ]
     if res.job.judge_baseline:
         thr = res.job.thresholds

@@ -15,11 +15,11 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ..prediction.inverse import (BELOW_LOQ, MEASUREMENTS, OUTSIDE_RANGE, READ_BACK, READ_BACK_HIGH, READ_BACK_LOW,
+from ..prediction.inverse import (BELOW_LOQ, MEASUREMENTS, OUTSIDE_RANGE, READ_BACK, READ_BACK_LOW,
     READ_BACK_STD_ERROR)
 from ..prediction.savings import LEFT_OUT_BECAUSE, Savings
-from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, EXTRAPOLATION, MEAN_STD_ERROR, NEW_ROW_HIGH,
-    NEW_ROW_LOW, PREDICTED, PREDICTION_REASON, cell_text, rename_note, renamed, shown_names)
+from ..results.headers import (AVERAGE_LOW, EXTRAPOLATION, MEAN_STD_ERROR, NEW_ROW_LOW, PREDICTED,
+    PREDICTION_REASON, cell_text, rename_note, renamed, shown_names)
 from ..results.store import ModelStore
 from . import tables
 from .book import WORKBOOK_OPTIONS, print_title

@@ -15,6 +15,7 @@ import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
 from ..read.tidy import REASON
+from ..results.calibration import CALIBRATION_ROW_HEADERS, STANDARD_OFF
 from ..results.change_points import SHAPE_NOTE
 from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, INTERVAL_HIGH, INTERVAL_LOW,
     LOOK_HERE, NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, rename_note, renamed)
@@ -36,7 +37,7 @@ OBS_HEAD = OBSERVATION_HEAD
 OBS_TAIL = OBSERVATION_TAIL
 PRINT_FIT_WIDTH = 400          # characters of column width that still print legibly on one page width
 ROW_HEIGHT = 15                # points: one line of the default 11-point font
-WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30, SHAPE_NOTE: 60}  # long texts: this width, wrapped
+WIDE_TEXT = {REASONS: 60, "note": 60, REASON: 45, ROW_FLAGS: 30, SHAPE_NOTE: 60, STANDARD_OFF: 40}  # long texts: this width, wrapped
 ONE_PAGE_WIDE = ("groups",)    # sheets printed one page wide however many columns they have
 
 
@@ -253,8 +254,9 @@ def select_observations(obs: pd.DataFrame, mode: str) -> pd.DataFrame:
         keep = pd.Series(False, index=obs.index)
         if USED in obs.columns:
             keep |= obs[USED].astype(str).eq(NO)
-        if ROW_FLAGS in obs.columns:
-            keep |= obs[ROW_FLAGS].fillna("").astype(str).str.len().gt(0)
+        for col in (ROW_FLAGS, STANDARD_OFF):
+            if col in obs.columns:
+                keep |= obs[col].fillna("").astype(str).str.len().gt(0)
         return obs.loc[keep]
     return obs
 
@@ -271,12 +273,13 @@ def observation_columns(res: Any, obs: pd.DataFrame) -> list[str]:
     user = [*res.group_columns, *res.number_columns]
     days = {res.observation_header(c): h for c, h in day_count_headers(user, res.info.date_columns).items()}
     data_cols = [res.observation_header(c) for c in (res.y, *source_columns(res.terms))]
+    ours_after = [c for c in CALIBRATION_ROW_HEADERS if c in obs.columns]
     extra_data = [c for c in obs.columns
-                  if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL, *days.values())]
+                  if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL, *days.values(), *ours_after)]
     user_cols: list[str] = []
     for c in (*data_cols, *extra_data):
         user_cols += [c, days[c]] if days.get(c) in obs.columns else [c]
-    return ordered_columns(obs, keys, [*OBS_HEAD, *user_cols, *OBS_TAIL])
+    return ordered_columns(obs, keys, [*OBS_HEAD, *user_cols, *OBS_TAIL, *ours_after])
 
 
 def observations_sheet(ctx: WriteContext) -> None:
@@ -287,7 +290,8 @@ def observations_sheet(ctx: WriteContext) -> None:
     user = [*res.group_columns, *res.number_columns]
     _note_renamed(ctx, "observations", user, [res.observation_header(c) for c in user])
     order = observation_columns(res, obs)
-    rules = (Rule(USED, f'{{c}}="{NO}"', "left_out"), Rule(ROW_FLAGS, look_here_test(), "unusual_row"))
+    rules = (Rule(USED, f'{{c}}="{NO}"', "left_out"), Rule(ROW_FLAGS, look_here_test(), "unusual_row"),
+             Rule(STANDARD_OFF, 'LEN({c})>0', "unusual_row"))
     total = len(obs)
     if mode == "none":
         ws = ctx.add_sheet("observations")
