@@ -383,5 +383,5 @@ def _read_back_workbook(store: Any, new: Any, target: Path, overwrite: bool, abo
     progress("writing")
     sheets = write_predictions(target, overwrite, store, frame, new.source_rows, table, about, inverse=True)
     if summary is not None:
-        summary(PredictionSummary(target, len(table), done, tuple(sheets)))
+        summary(PredictionSummary(target, len(table), done, tuple(sheets), done_word="read back"))
     return target

@@ -27,11 +27,13 @@ class PredictionSummary:
     predicted: int
     sheets: tuple[str, ...]
     savings: Savings | None = None
+    done_word: str = "predicted"          # "read back" for --inverse
 
     def lines(self) -> list[str]:
         """'N rows: P predicted, R with a reason (see the reason column)' and, when split, the sheets."""
         reasons = self.rows - self.predicted
-        out = [f"{self.rows} rows: {self.predicted} predicted, {reasons} with a reason (see the reason column)"]
+        out = [f"{self.rows} rows: {self.predicted} {self.done_word}, {reasons} with a reason (see the reason "
+               "column)"]
         if len(self.sheets) > 1:
             out.append(f"more rows than one sheet holds: written on {len(self.sheets)} sheets "
                        f"({', '.join(self.sheets)})")
