@@ -55,7 +55,8 @@ def breusch_pagan(fit: EngineFit) -> CheckResult:
 def white_columns(terms: Sequence[Term], intercept: bool) -> list[tuple[int, int]]:
     """Pairs (i, j) of design columns, with a constant at index 0, whose products are distinct.
 
-    Products that are the same monomial (x·x² and x³ in a polynomial family) are kept once.
+    Products that are the same monomial (x·x² and x³ in a polynomial family) are kept once; the
+    product of a change-point run's 'below' and 'above' terms of one input is 0 and left out.
     Without an intercept every column or power term is a multiple of x^K (nothing is centred),
     so its products are monomials of x whether or not it belongs to a family.
     """
@@ -70,6 +71,8 @@ def white_columns(terms: Sequence[Term], intercept: bool) -> list[tuple[int, int
     pairs: list[tuple[int, int]] = []
     for i in range(len(base)):
         for j in range(i, len(base)):
+            if i and j and _never_both(terms[i - 1], terms[j - 1]):
+                continue                 # max(0, τ − T)·max(0, T − τ') is 0 on every row: no column
             mono = dict(base[i])
             for k, v in base[j].items():
                 mono[k] = mono.get(k, 0.0) + v
@@ -78,6 +81,11 @@ def white_columns(terms: Sequence[Term], intercept: bool) -> list[tuple[int, int
                 seen.add(key)
                 pairs.append((i, j))
     return pairs
+
+
+def _never_both(a: Term, b: Term) -> bool:
+    """The 'below' and 'above' change-point terms of one input are never both non-zero (τh ≤ τc)."""
+    return a.column == b.column and {a.kind, b.kind} == {"below", "above"}
 
 
 def white(fit: EngineFit, terms: Sequence[Term]) -> CheckResult:
