@@ -102,10 +102,6 @@ class KnownFault(AssertionError):
 KNOWN_FAULTS: list[tuple[str, Callable[[Case], bool], str]] = [
     ("shape", lambda c: c.change_point != "none" and c.sizes == "tiny",
      "a group too small for a change point (< 6 rows) has a blank shape and no reason, not 'line' with one"),
-    ("white", lambda c: c.term == "power" and c.sizes != "tiny" and (c.change_point == "two-slopes" or
-                                                                      c.change_point == "auto" and c.sizes != "one"),
-     "White's test is n/a for two-slopes with T² as an input: below² + above² = (T − τ)² repeats T², and the "
-     "rank-deficient auxiliary regression is given up instead of reduced to its rank"),
     ("search", lambda c: c.change_point == "heating-cooling" and c.term in ("power", "date"),
      "heating-cooling misses the least-squares change points when they lie away from the best pair of data points"),
 ]

@@ -88,6 +88,19 @@ def _never_both(a: Term, b: Term) -> bool:
     return a.column == b.column and {a.kind, b.kind} == {"below", "above"}
 
 
+def _reduced_to_rank(Z: np.ndarray, u: np.ndarray) -> tuple[float, float]:
+    """n·R² of u on the span of Z's columns and its degrees of freedom, rank − 1, when some products of
+    a group's terms repeat others (e.g. below² + above² = (T − τ)² beside T²)."""
+    if not np.ptp(u) > 0:
+        return np.nan, np.nan
+    scale = np.linalg.norm(Z, axis=0)
+    Zs = Z / np.where(scale > 0, scale, 1.0)
+    rank = np.linalg.matrix_rank(Zs)
+    fitted = Zs @ np.linalg.lstsq(Zs, u, rcond=None)[0]
+    r2 = 1.0 - np.sum((u - fitted) ** 2) / np.sum((u - u.mean()) ** 2)
+    return len(u) * r2, rank - 1.0
+
+
 def white(fit: EngineFit, terms: Sequence[Term]) -> CheckResult:
     """n·R² of squared residuals on the inputs, their squares and cross-products (of each group's own terms)."""
     stat, pval, note = empty_arrays(fit.n_groups)
@@ -99,13 +112,18 @@ def white(fit: EngineFit, terms: Sequence[Term]) -> CheckResult:
         small = b.n <= k
         r2, _, ok = aux_r2(Z, b.resid**2, b.mask)
         lm = b.n * r2
-        bad = small | ~ok | ~np.isfinite(lm)
+        df = np.full(len(b.groups), k - 1.0)
+        for gi in np.flatnonzero(~small & ~ok):       # rare: products redundant in this group only
+            lm[gi], df[gi] = _reduced_to_rank(Z[gi][b.mask[gi]], b.resid[gi][b.mask[gi]] ** 2)
+            if np.isfinite(lm[gi]):
+                note[b.groups[gi]] = f"{int(df[gi]) + 1} of the {k} products are independent; tested on those"
+        bad = small | ~np.isfinite(lm)
         lm[bad] = np.nan
         for gi in np.flatnonzero(bad):
             note[b.groups[gi]] = (f"White's test needs more than {k} rows; this group has {b.n[gi]}"
-                                  if small[gi] else "squared residuals do not vary or products are redundant")
+                                  if small[gi] else "squared residuals do not vary")
         stat[b.groups] = lm
-        pval[b.groups] = stats.chi2.sf(lm, k - 1)
+        pval[b.groups] = stats.chi2.sf(lm, df)
     return CheckResult(WHITE, "constant variance (White)", "p_small", stat, pval,
                        np.full(fit.n_groups, np.nan), note,
                        "spread of residuals changes with the inputs or their squares (White, {p})")
