@@ -73,11 +73,18 @@ def read_back(results_or_path: FitResults | str | Path, new_rows: pd.DataFrame, 
     response; `replicates` names a column of how many measurements each response averages. Returns
     the columns given, then prediction.inverse.INVERSE_COLUMNS (as `sheetfit predict --inverse` writes)."""
     from .prediction.compute import at_level, group_positions, store_of
-    from .prediction.inverse import INVERSE_COLUMNS, inverse_predict, quantification_limits
+    from .errors import ColumnNotFoundError, JobError, not_found_message
+    from .prediction.inverse import INVERSE_COLUMNS, inverse_predict, line_problem, quantification_limits
     from .results.headers import shown_names
 
     store = at_level(store_of(results_or_path), level)
+    problem = line_problem(store)
+    if problem:
+        raise JobError(f"read_back: {problem}; fit one x column with a constant to read values back")
     given = [str(c) for c in new_rows.columns]
+    for name in (*store.group_columns, store.y, *((replicates,) if replicates else ())):
+        if name not in given:
+            raise ColumnNotFoundError(not_found_message("column", name, given))
     column = {c: new_rows.iloc[:, given.index(c)] for c in (*store.group_columns, store.y, replicates) if c in given}
     gpos, why = group_positions(store, {c: v.tolist() for c, v in column.items()}, len(new_rows))
     counts = None if replicates is None else column[replicates].to_numpy(dtype=object)

@@ -303,6 +303,13 @@ class FitJob:
         if self.calibration and (len(self.x) != 1 or not self.intercept or self.change_point != "none"):
             raise JobError("--calibration needs a straight line in one input with a constant: one --x column, "
                            "without --no-intercept or --change-point")
+        thr = self.thresholds
+        if not self.calibration and (thr.back_calc_limit, thr.back_calc_limit_lowest) != (15.0, 20.0):
+            raise JobError("--back-calc-limit and --back-calc-limit-lowest apply to calibration lines; add "
+                           "--calibration or leave them out")
+        if self.change_point == "none" and self.change_point_input is not None:
+            raise JobError("--change-point-input names the temperature of a change-point model; add "
+                           "--change-point SHAPE or leave it out")
         if self.change_point != "none" and not self.intercept:
             raise JobError("--change-point needs the constant (the use where the temperature has no effect); "
                            "leave out --no-intercept")

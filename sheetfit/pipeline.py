@@ -20,7 +20,7 @@ from . import checks
 from .checks import robust
 from .checks.lack_of_fit import replicate_keys
 from .checks.verdicts import Verdicts, verdicts
-from .errors import NoUsableDataError, UnusableRowsError
+from .errors import JobError, NoUsableDataError, UnusableRowsError
 from .job import FitJob
 from .memory import ordinary_pages
 from .model.engine import EngineFit, fit_groups
@@ -118,6 +118,9 @@ class FittedModel:
 
 def _fit_model(obs: Observations, job: FitJob, rows: GroupedRows) -> FittedModel:
     """Ordinary fit, or a change-point run's search and fit (--change-point)."""
+    if job.calibration and obs.terms[0].kind != "column":
+        raise JobError(f"--calibration needs the input itself as the term, not {obs.terms[0].label}: back-"
+                       f"calculated values and limits are in the input's units; give --x {obs.terms[0].column}")
     if job.change_point == "none":
         fit = fit_groups(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept)
         return FittedModel(fit, tuple(obs.terms))
@@ -166,7 +169,8 @@ def _group_extra(job: FitJob, model: FittedModel, inf: Inference, codes: np.ndar
     if job.judge_baseline:
         extra[NMBE] = checks.baseline.nmbe(model.fit, codes)
     if job.calibration:
-        extra.update(calibration.limits(model.fit.beta, inf.residual_std_error))
+        steep = inf.p_value[:, 1] < job.thresholds.alpha
+        extra.update(calibration.limits(model.fit.beta, inf.residual_std_error, steep))
     return extra
 
 
@@ -193,7 +197,7 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
     groups = tables.groups_table(keys, fit, inf, judged.flags, judged.reasons, (n_used, dropped), group_extra)
     observations = observations_table(obs, rows.reason, rows.pos, rows.codes_all, fit, highlights)
     if job.calibration:
-        observations = _with_back_calculation(observations, obs, job, fit, rows)
+        observations = _with_back_calculation(observations, obs, job, fit, inf, rows)
     ranges = tables.observed_ranges(rows.columns, codes, G)
     return FitResults(
         job=job, group_columns=obs.group_columns, y=obs.y, terms=terms, groups=groups,
@@ -211,14 +215,14 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
 
 
 def _with_back_calculation(observations: pd.DataFrame, obs: Observations, job: FitJob, fit: EngineFit,
-                           rows: GroupedRows) -> pd.DataFrame:
+                           inf: Inference, rows: GroupedRows) -> pd.DataFrame:
     """Observations with each standard's back-calculated input, its deviation and whether it is off."""
     used = (observations[USED] == YES).to_numpy()
     x = obs.data[obs.terms[0].column].to_numpy(dtype=np.float64)
     y = obs.data[obs.y].to_numpy(dtype=np.float64)
     thr = job.thresholds
-    found = calibration.back_calculation(x, y, rows.codes_all, used, fit.beta, thr.back_calc_limit,
-                                         thr.back_calc_limit_lowest)
+    found = calibration.back_calculation(x, y, rows.codes_all, used, fit.beta, inf.p_value[:, 1], thr.alpha,
+                                         thr.back_calc_limit, thr.back_calc_limit_lowest)
     return observations.assign(**found)
 
 
@@ -360,7 +364,6 @@ def _read_back_workbook(store: Any, new: Any, target: Path, overwrite: bool, abo
                         summary: Callable[[object], None] | None) -> Path:
     """`sheetfit predict --inverse`: each row's input value read back from its measured response (in the
     column named as the fit's response) through its group's calibration line (prediction.inverse)."""
-    from .errors import JobError
     from .prediction.compute import group_positions
     from .prediction.inverse import READ_BACK, inverse_predict, line_problem, quantification_limits
     from .prediction.new_rows import inputs_as_numbers, require_columns

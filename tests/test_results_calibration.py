@@ -77,3 +77,24 @@ def test_calibration_needs_a_straight_line_with_a_constant(kw):
     df = _runs().assign(signal2=1.0)
     with pytest.raises(JobError, match="--calibration needs a straight line in one input"):
         sheetfit.fit_frame(df, y="signal", group="inst", calibration=True, **kw)
+
+
+def test_calibration_needs_the_input_itself_and_a_slope_that_says_something():
+    df = _runs()
+    with pytest.raises(JobError, match="needs the input itself"):
+        sheetfit.fit_frame(df.assign(conc=df["conc"] + 1), y="signal", x="log(conc)", group="inst",
+                           calibration=True)
+    flat = pd.DataFrame({"conc": np.tile([0.0, 1, 2, 3, 4], 2), "signal": [1.0, 2, 0, 2, 1] * 2})
+    res = sheetfit.fit_frame(flat, y="signal", x="conc", calibration=True)
+    ref = sm.OLS(flat["signal"].to_numpy(), sm.add_constant(flat["conc"].to_numpy())).fit()   # statsmodels
+    assert ref.pvalues[1] >= 0.05
+    assert np.isnan(res.groups["limit of detection"].iloc[0])
+    assert res.observations["back-calculated input"].isna().all()
+    assert res.observations["standard off"].str.startswith("not read back: the slope").all()
+
+
+def test_calibration_settings_without_calibration_are_refused():
+    with pytest.raises(JobError, match="add --calibration"):
+        sheetfit.fit_frame(_runs(), y="signal", x="conc", group="inst", back_calc_limit=10.0)
+    with pytest.raises(JobError, match="add --change-point"):
+        sheetfit.fit_frame(_runs(), y="signal", x="conc", group="inst", change_point_input="conc")

@@ -53,7 +53,8 @@ def inverse_predict(store: ModelStore, group_pos: np.ndarray, response: np.ndarr
     the centroid, so ȳ = b0 + b1·x̄ (taken from the same stored numbers as the slope's variance
     rather than from the stored response mean, which older stores lack). Then
         s_x0 = (s/|b1|)·√(1/m + 1/n + (y0 − ȳ)²/(b1²·Sxx)),   x̂0 ± t(df; level)·s_x0.
-    The interval is left empty, with the reason, when the slope is not distinguishable from zero
+    The value, its std error and interval are left empty, with the reason, when the slope is not
+    distinguishable from zero
     at `level` (|b1|/se(b1) ≤ t): the set of inputs consistent with y0 is then unbounded.
     """
     level = store.level if level is None else float(check_setting("level", level))
@@ -91,6 +92,8 @@ def inverse_predict(store: ModelStore, group_pos: np.ndarray, response: np.ndarr
 def line_problem(store: ModelStore) -> str:
     """'' when the stored models are straight lines in one input with a constant; else why not, in words."""
     found = []
+    if any(t.kind in ("below", "above") for t in store.terms):
+        return f"{NEEDS_LINE}; this is a change-point model (--change-point)"
     if not store.intercept:
         found.append("no constant")
     if len(store.terms) != 1:
@@ -143,11 +146,11 @@ def _read_back(store: ModelStore, g: np.ndarray, y0: np.ndarray, m: np.ndarray, 
         why[i].append("no std error or interval: the calibration line has no residual degrees of freedom "
                       "(as many coefficients as standards), so its scatter is unknown")
     for i in np.flatnonzero(unsure):
-        why[i].append(f"no interval: the slope is not distinguishable from zero at the {_percent(level)} level "
-                      f"(|t| = {t_slope[i]:.3g}, needs more than {t_q[i]:.3g}), so the inputs consistent with this "
-                      f"response are unbounded")
-    value = np.where(flat | huge, np.nan, x0)
-    se = np.where(flat | huge | no_spread, np.nan, se)
+        why[i].append(f"no read-back value: the slope is not distinguishable from zero at the {_percent(level)} "
+                      f"level (|t| = {t_slope[i]:.3g}, needs more than {t_q[i]:.3g}), so the inputs consistent with "
+                      f"this response are unbounded")
+    value = np.where(flat | huge | unsure, np.nan, x0)
+    se = np.where(flat | huge | no_spread | unsure, np.nan, se)
     half = np.where(unsure | ~np.isfinite(se), np.nan, t_q * se)
     return {READ_BACK: value, READ_BACK_STD_ERROR: se, READ_BACK_LOW: value - half, READ_BACK_HIGH: value + half,
             MEASUREMENTS: m, "why": why}

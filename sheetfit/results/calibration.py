@@ -22,23 +22,27 @@ CALIBRATION_ROW_HEADERS = (BACK_CALCULATED, DEVIATION, STANDARD_OFF)
 LOD_FACTOR, LOQ_FACTOR = 3.3, 10.0
 
 
-def limits(beta: np.ndarray, residual_std_error: np.ndarray) -> dict[str, np.ndarray]:
-    """Per group: 3.3·s/|b1| and 10·s/|b1| from a (G, 2) constant-and-slope coefficient array."""
+def limits(beta: np.ndarray, residual_std_error: np.ndarray, steep: np.ndarray) -> dict[str, np.ndarray]:
+    """Per group: 3.3·s/|b1| and 10·s/|b1| from a (G, 2) constant-and-slope coefficient array; empty
+    where the slope is not distinguishable from zero (`steep` false): the limits would be meaningless."""
     with np.errstate(divide="ignore", invalid="ignore"):
         per = residual_std_error / np.abs(beta[:, 1])
-    per = np.where(np.isfinite(per), per, np.nan)
+    per = np.where(np.isfinite(per) & steep, per, np.nan)
     return {LIMIT_OF_DETECTION: LOD_FACTOR * per, LIMIT_OF_QUANTIFICATION: LOQ_FACTOR * per}
 
 
 def back_calculation(x: np.ndarray, y: np.ndarray, codes: np.ndarray, used: np.ndarray, beta: np.ndarray,
-                     limit: float, limit_lowest: float) -> dict[str, np.ndarray]:
+                     slope_p: np.ndarray, alpha: float, limit: float, limit_lowest: float) -> dict[str, np.ndarray]:
     """Per input row: the back-calculated input, its deviation in % and, beyond the limit, why (text).
 
     Rows not used in the fit (or of groups not fitted) get NaN and ''. The lowest non-zero standard
-    of a group (smallest |x| > 0 among its used rows) is judged against `limit_lowest`.
+    of a group (smallest |x| > 0 among its used rows) is judged against `limit_lowest`. In a group
+    whose slope is not distinguishable from zero (p ≥ alpha) nothing is read back, and the row says why.
     """
     n_rows, G = len(x), len(beta)
     safe = np.clip(codes, 0, max(G - 1, 0))
+    flat = used & ~(slope_p[safe] < alpha)
+    used = used & ~flat
     b0, b1 = beta[safe, 0], beta[safe, 1]
     with np.errstate(divide="ignore", invalid="ignore"):
         back = np.where(used, (y - b0) / b1, np.nan)
@@ -53,4 +57,7 @@ def back_calculation(x: np.ndarray, y: np.ndarray, codes: np.ndarray, used: np.n
     for i in np.flatnonzero(off):
         where = "the lowest standard, " if at_lowest[i] else ""
         words[i] = f"back-calculated value off by {dev[i]:+.1f} % ({where}limit ±{cut[i]:g} %)"
+    for i in np.flatnonzero(flat):
+        words[i] = (f"not read back: the slope is not distinguishable from zero (p = {slope_p[safe[i]]:.3g}), "
+                    "so a response says little about the input")
     return {BACK_CALCULATED: back, DEVIATION: dev, STANDARD_OFF: words}

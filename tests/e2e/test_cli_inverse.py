@@ -80,3 +80,20 @@ def test_api_read_back_matches_the_cli_formula(m):
     se = s / abs(b1) * np.sqrt(1 / m + 1 / 6 + (15.0 - y.mean()) ** 2 / (b1**2 * np.sum((x - x.mean()) ** 2)))
     assert out["read-back input value"].iloc[0] == pytest.approx(x0, rel=1e-12)
     assert out["read-back high"].iloc[0] - x0 == pytest.approx(stats.t.ppf(0.975, 4) * se, rel=1e-10)  # scipy
+
+
+def test_api_read_back_refuses_like_the_cli():
+    import pandas as pd
+
+    import sheetfit
+    from sheetfit.errors import ColumnNotFoundError, JobError
+
+    frame = pd.DataFrame({"conc": X, "signal": Y})
+    curved = sheetfit.fit_frame(frame, y="signal", x=["conc", "conc^2"])
+    with pytest.raises(JobError, match="straight line"):
+        sheetfit.read_back(curved, pd.DataFrame({"signal": [15.0]}))
+    line = sheetfit.fit_frame(frame, y="signal", x="conc")
+    with pytest.raises(ColumnNotFoundError, match="signal"):
+        sheetfit.read_back(line, pd.DataFrame({"sig": [15.0]}))
+    with pytest.raises(ColumnNotFoundError, match="nope"):
+        sheetfit.read_back(line, pd.DataFrame({"signal": [15.0]}), replicates="nope")
