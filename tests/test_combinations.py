@@ -99,12 +99,7 @@ class KnownFault(AssertionError):
 # Sheetfit faults the matrix finds: (the comparisons it breaks, which cases, what fails). Each listed
 # case is a strict xfail that must fail with KnownFault: its comparisons of that kind run last, and
 # fail as listed, while everything else matches. A fix shows up as XPASS(strict): the entry must go.
-KNOWN_FAULTS: list[tuple[str, Callable[[Case], bool], str]] = [
-    ("shape", lambda c: c.change_point != "none" and c.sizes == "tiny",
-     "a group too small for a change point (< 6 rows) has a blank shape and no reason, not 'line' with one"),
-    ("search", lambda c: c.change_point == "heating-cooling" and c.term in ("power", "date"),
-     "heating-cooling misses the least-squares change points when they lie away from the best pair of data points"),
-]
+KNOWN_FAULTS: list[tuple[str, Callable[[Case], bool], str]] = []
 
 CASES = cases()
 

@@ -11,10 +11,12 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+import pandas as pd
 import pytest
 import statsmodels.api as sm
 from scipy import stats
 
+import sheetfit
 from sheetfit.model.change_point import (
     CHOICES,
     MIN_SIDE_ROWS,
@@ -22,6 +24,12 @@ from sheetfit.model.change_point import (
     ChangePoints,
     find_change_points,
     hinge_columns,
+)
+from sheetfit.results.change_points import (
+    CHANGE_POINT,
+    SHAPE,
+    SHAPE_NOTE,
+    UPPER_CHANGE_POINT,
 )
 
 SINGLE = ("heating", "cooling", "two-slopes")
@@ -142,6 +150,81 @@ def test_two_change_points_are_the_least_squares_optimum(k):
         assert ours <= fine.min() * (1 + 1e-9)
         b = sm.OLS(yg, X).fit().params                                        # statsmodels OLS
         np.testing.assert_allclose([cp.slope_below[g], cp.slope_above[g]], b[1:3], rtol=1e-8)
+
+
+def brute_pair(t, z, y, steps: int):
+    """Brute force over τh ≤ τc: every observed T in range and `steps` even points on each axis (numpy QR per
+    pair); returns the pairs and their RSS, the best pair's RSS confirmed by numpy lstsq."""
+    lo, hi = admissible(t)
+    axis = with_data(np.linspace(lo, hi, steps), t)
+    bh, bc = np.meshgrid(axis, axis, indexing="ij")
+    keep = bh <= bc
+    rss = rss_many(t, z, y, "heating-cooling", bh[keep], bc[keep])
+    best = np.argmin(rss)
+    assert rss_lstsq(design(t, z, "heating-cooling", bh[keep][best], bc[keep][best]), y) == pytest.approx(rss[best])
+    return bh[keep], bc[keep], rss
+
+
+def best_at_an_end(t, z, y) -> float:
+    """The least RSS of heating-cooling with τh at the low end or τc at the high end of the range: the other
+    τ over a grid with the observed T, then over a fine grid around its best (numpy QR)."""
+    lo, hi = admissible(t)
+    return min(finest(profile_rss(t, z, y, below=lo), lo, hi, t), finest(profile_rss(t, z, y, above=hi), lo, hi, t))
+
+
+def bent_data(seed: int, k: int):
+    """One group of 12–60 rows: a flat band between two random change points (which may fall outside the
+    data or coincide), random slopes and noise, and with k = 1 an input that curves with T."""
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(12, 61))
+    t = rng.uniform(0.0, 30.0, n)
+    z = (t**2 / 30.0 + rng.normal(size=n))[:, None] if k else np.zeros((n, 0))
+    th, tc = np.sort(rng.uniform(-2.0, 32.0, 2))
+    y = (40.0 + rng.uniform(0, 4) * np.maximum(0, th - t) + rng.uniform(0, 4) * np.maximum(0, t - tc)
+         + z.sum(axis=1) + rng.normal(0.0, rng.uniform(0.3, 5.0), n))
+    return y, t, z
+
+
+@pytest.mark.parametrize("k", [0, 1])
+def test_two_change_points_are_the_exact_optimum_on_any_data(k):
+    # brute force: a 2-D grid of every observed T plus 120 even points per axis, numpy QR per pair; ours
+    # at least as low, also where the optimum lies away from the best pair of observed temperatures
+    for seed in range(32):
+        y, t, z = bent_data(1000 * k + seed, k)
+        codes = np.zeros(len(y), dtype=np.int64)
+        cp = find_change_points(y, t, z, codes, 1, "heating-cooling")
+        _, _, brute = brute_pair(t, z, y, 120)
+        if cp.shape[0] == "heating-cooling":
+            ours = rss_lstsq(design(t, z, "heating-cooling", cp.below[0], cp.above[0]), y)   # numpy lstsq
+            assert cp.rss[0] == pytest.approx(ours, rel=1e-9)
+        else:              # fell back to a line: the optimum must sit at an end of the range
+            assert "at the end of the observed temperatures" in cp.note[0], cp.note[0]
+            ours = best_at_an_end(t, z, y)
+        assert ours <= brute.min() * (1 + 1e-9), (seed, len(y), cp.note[0])
+
+
+def test_two_change_points_between_observed_temperatures():
+    # a case where the best pair of observed temperatures puts both change points at the end, while
+    # (10.29…, 20.6) inside the range is lower; CDD^2 is a further straight-line input
+    T = np.array([1.25, 20.6, 8.83, 6.68, 24.46, 5.46, 23.49, 10.97, 23.18, 25.54, 23.31, 11.44, 26.32, 22.02])
+    y = np.array([85.51, 2.34, 38.09, 52.87, 5.43, 61.45, 5.46, 27.28, 3.48, 4.97, 2.42, 26.11, 8.49, 6.79])
+    groups = sheetfit.fit_frame(pd.DataFrame({"CDD": T, "kWh": y}), y="kWh", x=["CDD", "CDD^2"],
+                                change_point="heating-cooling").groups
+    assert groups[SHAPE].iloc[0] == "heating-cooling"
+    below, above = groups[CHANGE_POINT].iloc[0], groups[UPPER_CHANGE_POINT].iloc[0]
+    z = (T**2)[:, None]
+    lo, hi = admissible(T)
+    assert lo < below <= above < hi
+    ours = rss_lstsq(design(T, z, "heating-cooling", below, above), y)                 # numpy lstsq
+    bh, bc, brute = brute_pair(T, z, y, 301)
+    assert ours <= brute.min() * (1 + 1e-9)
+    assert ours < best_at_an_end(T, z, y)
+    step, best = (hi - lo) / 300, np.argmin(brute)
+    assert abs(below - bh[best]) <= 3 * step and abs(above - bc[best]) <= 3 * step
+    near = np.linspace(-step, step, 41)                   # and nothing lower on a fine grid around our pair
+    fh, fc = np.meshgrid(with_data(below + near, T), with_data(above + near, T), indexing="ij")
+    keep = fh <= fc
+    assert ours <= rss_many(T, z, y, "heating-cooling", fh[keep], fc[keep]).min() * (1 + 1e-9)
 
 
 def profile_bound(rss_min: float, n: int, p: int, level: float) -> float:
@@ -348,6 +431,33 @@ def test_groups_that_cannot_be_searched():
     assert cp.count.tolist() == [0, 0, 1, 0]
     with pytest.raises(ValueError):
         find_change_points(y, t, z, codes, 4, "curved")
+
+
+def test_every_group_with_rows_gets_a_shape():
+    # README: a group too small for a change point (fewer than 2·3 rows, common practice) is fitted as a line
+    # and says why; with no `searchable` given every group with rows is looked at
+    y, t, z, codes = make_groups(11, (30, 5, 2), "heating")
+    cp = find_change_points(y, t, z, codes, 4, "heating")
+    assert list(cp.shape) == ["heating", "line", "line", ""]
+    assert cp.note[1].startswith("too few rows for a change point (5 rows") and "straight line" in cp.note[1]
+    assert cp.note[2].startswith("too few rows for a change point (2 rows") and cp.note[3] == ""
+    rng = np.random.default_rng(0)
+    T = np.r_[rng.uniform(1, 30, 30), [3, 9, 14, 20, 27.0]]
+    y = 40 + 5 * np.maximum(0, 16 - T) + rng.normal(size=35)
+    groups = sheetfit.fit_frame(pd.DataFrame({"site": ["big"] * 30 + ["small"] * 5, "T": T, "y": y}), y="y",
+                                x="T", group="site", change_point="heating").groups.set_index("site")
+    assert groups.loc["big", SHAPE] == "heating" and groups.loc["small", SHAPE] == "line"
+    assert groups.loc["small", SHAPE_NOTE].startswith("too few rows for a change point (5 rows")
+
+
+def test_a_shape_leaving_no_residual_degree_of_freedom_is_not_used():
+    # 6 rows, one further input: heating-cooling has 4 coefficients and 2 change points, so nothing is left
+    # to estimate the error with; it falls back to a line (two-slopes, 5 parameters, still fits)
+    y, t, z, codes = make_groups(12, (6,), "two-slopes", k=1, noise=0.1)
+    hc = find_change_points(y, t, z, codes, 1, "heating-cooling")
+    assert hc.shape[0] == "line" and "too few rows for it" in hc.note[0] and "at least 7 rows" in hc.note[0]
+    auto = find_change_points(y, t, z, codes, 1, "auto")
+    assert "heating-cooling left out: too few rows for it" in auto.note[0]
 
 
 def test_hinge_columns_are_built_per_group():

@@ -110,6 +110,9 @@ def _failure(blk: Block, shape: str, below: np.ndarray, above: np.ndarray, rss: 
     else:
         out[eh | ec] = "its best change point sits " + AT_END
     out[~np.isfinite(rss)] = "no change point could be placed (the hinge column vanishes or repeats another input)"
+    coef, points = shape_size(shape, blk.z.shape[1])
+    out[blk.n <= coef + points] = (f"too few rows for it ({coef} coefficients and {points} change point"
+                                   f"{'s' if points > 1 else ''} need at least {coef + points + 1} rows)")
     out[blk.lo >= blk.hi] = "the temperatures leave no room for a change point with 3 rows on each side"
     return out
 
@@ -159,7 +162,8 @@ def _choose(blk: Block, found: dict[str, _Found], alpha: float) -> tuple[np.ndar
     passed = [np.where(why[s] == "", s + " " + _fmt("%.1f", bic[s]), "").astype(object) for s in names]
     count = sum((why[s] == "").astype(int) for s in names)
     head = np.where(count == 1, chosen + ": the only shape that passed (",
-                    chosen + ": lowest BIC of " + _fmt("%d", count) + " shapes that passed (")
+                    chosen + ": lowest BIC, n·ln(RSS/n) + p·ln n (the BIC column less n·(1 + ln 2π)), of "
+                    + _fmt("%d", count) + " shapes that passed (")
     left = [np.where(why[s] == "", "", s + " left out: " + why[s]).astype(object) for s in SHAPES]
     return chosen, _join([head + _join(passed, ", ") + ")", *left], "; ")
 
@@ -253,11 +257,12 @@ def find_change_points(y: np.ndarray, t: np.ndarray, others: np.ndarray, codes: 
                        searchable: np.ndarray | None = None) -> ChangePoints:
     """Each group's change point(s) of `shape` (a member of CHOICES), all groups at once.
 
-    Rows are sorted by group code; `others` (N, k) are the further inputs. Searched groups (default:
-    those with at least 2·MIN_SIDE_ROWS rows) get 'line' when the shape cannot be placed, with a note;
-    the rest get ''. 'auto' (common practice) takes the lowest BIC among the line and the shapes whose
-    change points are inside the range and whose slopes have the expected sign and differ from zero
-    at `alpha`; `level` sets the profile intervals.
+    Rows are sorted by group code; `others` (N, k) are the further inputs. Every group with rows gets a
+    shape unless `searchable` leaves it out (''): 'line' with a note when it has fewer than
+    2·MIN_SIDE_ROWS rows, missing values, or a shape that cannot be placed. 'auto' (common practice)
+    takes the lowest BIC among the line and the shapes whose change points are inside the range and
+    whose slopes have the expected sign and differ from zero at `alpha`; `level` sets the profile
+    intervals.
     """
     if shape not in CHOICES:
         raise ValueError(f"unknown change-point shape {shape!r}: choose one of {', '.join(CHOICES)}")
@@ -266,7 +271,7 @@ def find_change_points(y: np.ndarray, t: np.ndarray, others: np.ndarray, codes: 
     others = others[:, None] if others.ndim == 1 else others
     codes = np.asarray(codes, dtype=np.int64)
     counts = np.bincount(codes, minlength=n_groups)
-    todo = counts >= 2 * MIN_SIDE_ROWS if searchable is None else np.asarray(searchable, dtype=bool)
+    todo = counts > 0 if searchable is None else np.asarray(searchable, dtype=bool)
     bad = np.bincount(codes, weights=~np.isfinite(np.column_stack([y, t, others])).all(axis=1),
                       minlength=n_groups) > 0
     few = counts < 2 * MIN_SIDE_ROWS

@@ -9,8 +9,11 @@ a, T·a and y. As τ runs over the reals the hinge's direction sweeps the plane 
 RSS(τ) has a single minimum: τ* = −c/d of the unrestricted fit c·a + d·T·a, i.e. (CD − BE)/(BD − AE).
 RSS is taken at every observed temperature in range and at τ* where it falls inside its interval,
 which makes the search exact. The cross products come from prefix sums over rows sorted by T, so all
-groups and all candidates are done at once. Heating-cooling takes the best pair on the data-point
-grid, then refines it the same way; profile intervals solve RSS(τ) = bound exactly in each interval.
+groups and all candidates are done at once. Heating-cooling is exact too: for τh and τc each inside an
+interval (a cell) the fit is linear in a, T·a, c, T·c, so its minimum is the cell's stationary point
+in closed form or lies on the cell's edge, where one τ is an observed temperature and the other a
+one-hinge search as above; every cell is looked at. Profile intervals solve RSS(τ) = bound exactly in
+each interval.
 """
 
 from __future__ import annotations
@@ -21,9 +24,8 @@ import numpy as np
 from scipy import stats
 
 SINGULAR = 1e-10        # a partialled hinge with less than this share of its own sum of squares is collinear
-ROUNDS = 12             # at most this many refinement rounds for the two change points of heating-cooling
+ROUNDS = 12             # at most this many rounds moving a heating-cooling profile interval end
 STILL = 1e-10           # a profile end moving less than this (T in group standard deviations) has arrived
-PAIR_CELLS = 2_000_000  # (group, τh, τc) cells per step of the heating-cooling grid, bounds memory
 
 
 @dataclass(frozen=True)
@@ -170,35 +172,6 @@ def base_columns(blk: Block, *extra: np.ndarray) -> list[np.ndarray]:
     return [blk.w, *(blk.z[:, i] for i in range(blk.z.shape[1])), *extra]
 
 
-def _pair_grid(blk: Block) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Best (τh, τc) over observed temperatures in range with τh ≤ τc. With the base partialled out the
-    two hinges give a 2×2 system; its off-diagonal is −(B'hh)'W(B'hc), as the raw hinges never overlap."""
-    mb, ma = _moments(blk, base_columns(blk), "below"), _moments(blk, base_columns(blk), "above")
-    t = blk.t[:, :-1]                                   # data point j: interval j at its left end
-    G, J = t.shape
-    inside = (t >= blk.lo[:, None]) & (t <= blk.hi[:, None])
-    (ah, raw_h), (ac, raw_c) = _spread(mb, t), _spread(ma, t)
-    ok_h, ok_c = inside & (ah > SINGULAR * raw_h), inside & (ac > SINGULAR * raw_c)
-    dh, dc = t * mb.D - mb.E, ma.E - t * ma.D           # h'My (the above hinge is T·a − τ·a)
-    vh, wvc = t * mb.p - mb.q, _times(mb.W, ma.q - t * ma.p)
-    best, at_j, at_k = np.full(G, np.inf), np.zeros(G, dtype=np.int64), np.zeros(G, dtype=np.int64)
-    step = max(1, PAIR_CELLS // max(1, G * J))
-    for j0 in range(0, J, step):
-        j = np.arange(j0, min(j0 + step, J))
-        x = -sum(vh[i][:, j, None] * wvc[i][:, None, :] for i in range(len(vh)))
-        a_h, d_h, a_c, d_c = ah[:, j, None], dh[:, j, None], ac[:, None], dc[:, None]
-        det = a_h * a_c - x * x
-        use = ok_h[:, j, None] & ok_c[:, None, :] & (j[:, None] <= np.arange(J)) & (det > SINGULAR * a_h * a_c)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            fit = (a_c * d_h**2 - 2 * x * d_h * d_c + a_h * d_c**2) / det
-        rss = np.where(use, mb.ymy[:, None, None] - fit, np.inf).reshape(G, -1)
-        pos = np.argmin(rss, axis=1)
-        low = rss[np.arange(G), pos] < best
-        best = np.where(low, rss[np.arange(G), pos], best)
-        at_j, at_k = np.where(low, j0 + pos // J, at_j), np.where(low, pos % J, at_k)
-    return t[np.arange(G), at_j], t[np.arange(G), at_k], best
-
-
 def _given(blk: Block, other: np.ndarray, side: str, free: bool = False) -> HingeSearch:
     """Heating-cooling: the exact search for τh (side 'below') given τc, or for τc ('above') given τh,
     keeping τh ≤ τc. With `free` the other hinge keeps its rows but its τ is free (columns s and T·s):
@@ -216,36 +189,117 @@ def _side_rows(blk: Block, tau: np.ndarray, side: str) -> np.ndarray:
     return blk.w * (blk.t < tau[:, None] if side == "below" else blk.t > tau[:, None])
 
 
-def _polish(blk: Block, th: np.ndarray, tc: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The joint optimum over the intervals holding τh and τc: with the rows on each side fixed, the fit on
-    a, T·a, c, T·c is the hinge fit with τh = −α_a/α_Ta, τc = −α_c/α_Tc. Returns those τ and the RSS of
-    the hinge fit there (inf where they leave the range)."""
-    a, c = _side_rows(blk, th, "below"), _side_rows(blk, tc, "above")
-    alpha = ols(np.stack(base_columns(blk, a, a * blk.t, c, c * blk.t), axis=2), blk.y, blk.n)[0]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        nh, nc = -alpha[:, -4] / alpha[:, -3], -alpha[:, -2] / alpha[:, -1]
-    ok = (blk.lo <= nh) & (nh <= nc) & (nc <= blk.hi)
-    nh, nc = np.where(ok, nh, th), np.where(ok, nc, tc)
-    return nh, nc, np.where(ok, ols(design(blk, "heating-cooling", nh, nc), blk.y, blk.n)[2], np.inf)
+def _at(mo: tuple, raw: tuple, tau: np.ndarray) -> np.ndarray:
+    """RSS(τ) = Y − (τD − E)²/(τ²A − 2τB + C) of one hinge, `mo` = (A, B, C, D, E, Y) partialled cross products
+    and `raw` = its rows' (count, ΣT, ΣT²); inf where the partialled hinge vanishes."""
+    A, B, C, D, E, Y = mo
+    den = (tau * A - 2 * B) * tau + C
+    return np.where(den > SINGULAR * ((tau * raw[0] - 2 * raw[1]) * tau + raw[2]), Y - (tau * D - E) ** 2 / den, np.inf)
+
+
+def _inner(mo: tuple, raw: tuple, e1: np.ndarray, e2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The one stationary point τ* = (CD − BE)/(BD − AE) of RSS(τ) and its RSS, inf unless strictly in (e1, e2)."""
+    A, B, C, D, E, _ = mo
+    star = (C * D - B * E) / (B * D - A * E)
+    inside = (A * C - B * B > SINGULAR * A * C) & (star > e1) & (star < e2)
+    return star, np.where(inside, _at(mo, raw, np.where(inside, star, e1)), np.inf)
+
+
+def _fixed(fix: list, fix_raw: list, tau: np.ndarray, sign: float, free: list, cross: list) -> tuple:
+    """Partial one hinge at a fixed τ (sign·(τ·a − T·a): +1 below, −1 above) out of the other side's cross
+    products `free` = (A, B, C, D, E, Y); `cross` = (a, T·a) against the other side's (c, T·c) after the base,
+    as (a·c, a·Tc, Ta·c, Ta·Tc). Returns the other side's (A, B, C, D, E, Y); NaN where the fixed hinge vanishes."""
+    A, B, C, D, E = fix
+    hh, raw = (tau * A - 2 * B) * tau + C, (tau * fix_raw[0] - 2 * fix_raw[1]) * tau + fix_raw[2]
+    hy, xc, xt = sign * (tau * D - E), sign * (tau * cross[0] - cross[2]), sign * (tau * cross[1] - cross[3])
+    inv = np.where(hh > SINGULAR * raw, 1.0 / hh, np.nan)
+    fA, fB, fC, fD, fE, fY = free
+    return (fA - xc * xc * inv, fB - xc * xt * inv, fC - xt * xt * inv, fD - xc * hy * inv, fE - xt * hy * inv,
+            fY - hy * hy * inv)
+
+
+def _stationary(h: list, c: list, x: list, Y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A cell's interior stationary point: the unrestricted fit on a, T·a, c, T·c (base partialled) by 2×2
+    blocks, read as hinges: τh = −α_a/α_Ta, τc = −α_c/α_Tc. Returns τh, τc and RSS (NaN where singular)."""
+    (Ah, Bh, Ch, Dh, Eh), (Ac, Bc, Cc, Dc, Ec) = h, c
+    x11, x12, x21, x22 = x                 # rows a, T·a; columns c, T·c
+    dh = Ah * Ch - Bh * Bh
+    dh = np.where(dh > SINGULAR * Ah * Ch, dh, np.nan)
+    p11, p12 = (Ch * x11 - Bh * x21) / dh, (Ch * x12 - Bh * x22) / dh      # Sa⁻¹·X
+    p21, p22 = (Ah * x21 - Bh * x11) / dh, (Ah * x22 - Bh * x12) / dh
+    s11, s12 = Ac - (x11 * p11 + x21 * p21), Bc - (x11 * p12 + x21 * p22)  # Schur complement of Sa
+    s22 = Cc - (x12 * p12 + x22 * p22)
+    g1, g2 = Dc - (p11 * Dh + p21 * Eh), Ec - (p12 * Dh + p22 * Eh)
+    ds = s11 * s22 - s12 * s12
+    ds = np.where(ds > SINGULAR * s11 * s22, ds, np.nan)
+    c1, c2 = (s22 * g1 - s12 * g2) / ds, (s11 * g2 - s12 * g1) / ds
+    h1 = (Ch * Dh - Bh * Eh) / dh - (p11 * c1 + p12 * c2)
+    h2 = (Ah * Eh - Bh * Dh) / dh - (p21 * c1 + p22 * c2)
+    return -h1 / h2, -c1 / c2, Y - (Dh * h1 + Eh * h2 + Dc * c1 + Ec * c2)
+
+
+def _pair_row(h: dict, c: dict, ymy: np.ndarray, i: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per group, the best (τh, τc, RSS) with τh in interval i and τc in an interval k ≥ i: the corner (τh, τc)
+    = (low end of i, high end of k), τh at that low end with τc inside k, τc at that high end with τh inside
+    i, and (k > i) the cell's interior stationary point. `h`, `c`: each side's sums, (interval, group)."""
+    hs, cs = {k: v[i] for k, v in h.items()}, {k: v[i:] for k, v in c.items()}
+    mo_h, mo_c = [hs[f] for f in "ABCDE"], [cs[f] for f in "ABCDE"]
+    raw_h, raw_c = [hs[f] for f in ("n", "s", "ss")], [cs[f] for f in ("n", "s", "ss")]
+    # a'Mc and the like: the raw products vanish (the rows below τh and above τc differ), the base's remain
+    x = [-(hs[a] * cs[b]).sum(1) for a, b in (("p", "wp"), ("p", "wq"), ("q", "wp"), ("q", "wq"))]
+    free = _fixed(mo_h, raw_h, hs["e1"], 1.0, mo_c + [ymy], x)
+    corner = _at(free, raw_c, cs["e2"])
+    tc1, r1 = _inner(free, raw_c, cs["e1"], cs["e2"])
+    th2, r2 = _inner(_fixed(mo_c, raw_c, cs["e2"], -1.0, mo_h + [ymy], [x[0], x[2], x[1], x[3]]), raw_h,
+                     hs["e1"], hs["e2"])
+    th3, tc3, r3 = _stationary(mo_h, mo_c, x, ymy)
+    inside = (th3 > hs["e1"]) & (th3 < hs["e2"]) & (tc3 > cs["e1"]) & (tc3 < cs["e2"])
+    inside[0] = False                                      # k = i: the edges and τh = τc hold the minimum
+    e1h = np.broadcast_to(hs["e1"], cs["e2"].shape)
+    taus = np.stack([np.stack([e1h, e1h, th2, th3]), np.stack([cs["e2"], tc1, cs["e2"], tc3])])
+    rss = np.stack([corner, r1, r2, np.where(inside, r3, np.inf)])
+    rss = np.where(hs["keep"] & cs["keep"] & ~np.isnan(rss), rss, np.inf)
+    K, G = cs["e2"].shape
+    at = np.argmin(rss.reshape(4 * K, G), axis=0)
+    j, k, g = at // K, at % K, np.arange(G)
+    return taus[0, j, k, g], taus[1, j, k, g], rss[j, k, g]
+
+
+def _sides(blk: Block) -> tuple[dict, dict, np.ndarray]:
+    """Each side's partialled sums per interval as (interval, group) arrays (contiguous for the pair search):
+    below and above; for the above side also W·p and W·q (the base's cross products, W the base's inverse)."""
+    base = base_columns(blk)
+    mb, ma = _moments(blk, base, "below"), _moments(blk, base, "above")
+    m = blk.t.shape[1]
+    e1, e2 = np.maximum(blk.t[:, :-1], blk.lo[:, None]), np.minimum(blk.t[:, 1:], blk.hi[:, None])
+    keep = (e1 < e2) & (np.arange(m - 1)[None, :] < blk.n[:, None] - 1)   # a point lies in a longer interval
+    common = {"e1": e1, "e2": e2, "keep": keep}
+
+    def side(mo: _Moments, extra: dict) -> dict:
+        out = {"A": mo.A, "B": mo.B, "C": mo.C, "D": mo.D, "E": mo.E, "n": mo.n_a, "s": mo.st, "ss": mo.stt,
+               **common}
+        out = {k: np.ascontiguousarray(v.T) for k, v in out.items()}
+        return out | {k: np.ascontiguousarray(np.moveaxis(v, 2, 0)) for k, v in extra.items()}
+
+    return (side(mb, {"p": mb.p, "q": mb.q}), side(ma, {"wp": _times(mb.W, ma.p), "wq": _times(mb.W, ma.q)}),
+            mb.ymy)
 
 
 def best_pair(blk: Block) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Heating-cooling: the best pair on the data-point grid, then each τ refined exactly with the other
-    fixed and the pair polished jointly, in turn, for each group until its RSS stops falling."""
-    th, tc, rss = _pair_grid(blk)
-    live = np.flatnonzero(np.isfinite(rss))
-    for _ in range(ROUNDS):
-        if not len(live):
-            break
-        sub = subset(blk, live)
-        h = _given(sub, tc[live], "below")
-        c = _given(sub, h.tau, "above")
-        ph, pc, prss = _polish(sub, h.tau, c.tau)
-        polished = prss < c.rss
-        nh, nc, nrss = np.where(polished, ph, h.tau), np.where(polished, pc, c.tau), np.fmin(prss, c.rss)
-        better = nrss < rss[live] * (1 - 1e-13)
-        live = live[better]
-        th[live], tc[live], rss[live] = nh[better], nc[better], nrss[better]
+    """Heating-cooling, exact: the least-squares (τh, τc) with lo ≤ τh ≤ τc ≤ hi. Within a cell (τh and τc each
+    between two adjacent observed temperatures) the rows on each side are fixed, so the minimum is the cell's
+    interior stationary point or lies on its edge, where one τ is an observed temperature and the other an
+    exact one-hinge search; with both in one interval the edges and the line τh = τc (two slopes) hold it.
+    Every cell of every group is looked at: one step per interval of τh, all groups and τc intervals at once."""
+    h, c, ymy = _sides(blk)
+    rows = np.flatnonzero(h["keep"].any(axis=1))
+    tied = search_hinge(blk, base_columns(blk, blk.w * blk.t), "below", blk.lo, blk.hi)
+    th, tc, rss = tied.tau, tied.tau.copy(), tied.rss
+    for i in range(rows[0], rows[-1] + 1) if len(rows) else ():
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            bh, bc, r = _pair_row(h, c, ymy, i)
+        low = r < rss
+        th, tc, rss = np.where(low, bh, th), np.where(low, bc, tc), np.where(low, r, rss)
     return th, tc, rss
 
 
