@@ -484,3 +484,22 @@ def test_units_far_from_one_change_nothing_but_the_units(t_scale, y_scale):
     assert list(cp.shape) == list(ref.shape)
     for name in ("below", "above", "below_low", "below_high", "above_low", "above_high"):
         np.testing.assert_allclose(getattr(cp, name), getattr(ref, name) * t_scale, rtol=1e-12)
+
+
+def test_a_requested_shape_with_the_wrong_sign_says_so():
+    # seeded data whose use falls as it gets colder; statsmodels on the hinge column at the found τ gives
+    # the same negative slope that the note quotes
+    import pandas as pd
+    import statsmodels.api as sm
+
+    import sheetfit
+
+    rng = np.random.default_rng(3)
+    T = rng.uniform(0, 30, 36)
+    y = 500 - 4 * np.maximum(0, 20 - T) + rng.normal(0, 3, 36)
+    res = sheetfit.fit_frame(pd.DataFrame({"T": T, "y": y}), y="y", x="T", change_point="heating")
+    row = res.groups.iloc[0]
+    tau = row["change point"]
+    slope = sm.OLS(y, sm.add_constant(np.maximum(0, tau - T))).fit().params[1]              # statsmodels
+    assert row["shape"] == "heating" and slope < 0
+    assert f"the fitted heating slope is {slope:.4g}, not positive" in row["why this shape"]

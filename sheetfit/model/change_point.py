@@ -286,7 +286,22 @@ def find_change_points(y: np.ndarray, t: np.ndarray, others: np.ndarray, codes: 
     for blk in _blocks(y, t, others, codes, counts, todo & ~few & ~bad):
         for key, values in _block_result(blk, shape, alpha, level).items():
             out[key][blk.ids] = values
+    if shape != "auto":
+        _note_unexpected_signs(out)
     return ChangePoints(**out)
+
+
+def _note_unexpected_signs(out: dict) -> None:
+    """A requested heating or cooling slope that came out zero or negative is kept but noted (auto
+    would leave such a shape out)."""
+    for side, word, shapes in (("slope_below", "heating", ("heating", "heating-cooling")),
+                               ("slope_above", "cooling", ("cooling", "heating-cooling"))):
+        odd = np.isin(out["shape"], shapes) & ~(out[side] > 0) & np.isfinite(out[side])
+        for g in np.flatnonzero(odd):
+            extra = (f"the fitted {word} slope is {out[side][g]:.4g}, not positive: use does not rise "
+                     f"beyond the change point as the {word} shape expects (--change-point auto would not "
+                     "choose it)")
+            out["note"][g] = f"{out['note'][g]}; {extra}" if out["note"][g] else extra
 
 
 def hinge_columns(t: np.ndarray, codes: np.ndarray, cp: ChangePoints) -> tuple[np.ndarray, np.ndarray]:
