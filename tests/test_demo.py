@@ -27,6 +27,7 @@ from sheetfit.job import load_job_file
 ROOT = Path(__file__).resolve().parents[1]
 COMMITTED = ROOT / "workbooks" / demo.FILE_NAME
 JOB_FILE = ROOT / "workbooks" / "cold-storage-sites.toml"
+CAL_JOB_FILE = ROOT / "workbooks" / "lab-calibration.toml"
 BEHAVIOUR = {site: how for site, _, how in demo.SITES}
 SITE_OF = {how: site for site, _, how in demo.SITES if how != "ok"}
 
@@ -155,11 +156,13 @@ def test_readme_names_every_misbehaving_site():
         assert f"| {site} |" in readme
 
 
-def test_job_file_matches_the_demo_job():
-    settings = load_job_file(JOB_FILE)
-    assert settings.pop("workbook") == demo.FILE_NAME
-    assert {k: tuple(v) if isinstance(v, list) else v for k, v in settings.items()} == demo.DEMO_JOB
-    assert tomllib.loads(JOB_FILE.read_text(encoding="utf-8"))  # plain TOML
+@pytest.mark.parametrize("job_file, file_name, job", [(JOB_FILE, demo.FILE_NAME, demo.DEMO_JOB),
+                                                       (CAL_JOB_FILE, cal.FILE_NAME, cal.CALIBRATION_JOB)])
+def test_job_file_matches_the_demo_job(job_file, file_name, job):
+    settings = load_job_file(job_file)
+    assert settings.pop("workbook") == file_name
+    assert {k: tuple(v) if isinstance(v, list) else v for k, v in settings.items()} == job
+    assert tomllib.loads(job_file.read_text(encoding="utf-8"))  # plain TOML
 
 
 def test_cli_writes_to_its_folder(tmp_path, cli):
@@ -226,7 +229,6 @@ def test_module_entry_writes_the_scenarios_workbook(tmp_path, scenario, committe
 # ── the calibration demo: invented lab instruments ──
 
 CAL_COMMITTED = ROOT / "workbooks" / cal.FILE_NAME
-CAL_JOB_FILE = ROOT / "workbooks" / "lab-calibration.toml"
 HOW = {name: how for name, _, how in cal.INSTRUMENTS}
 INSTRUMENT_OF = {how: name for name, how in HOW.items() if how != "ok"}
 ORDINARY = [name for name, how in HOW.items() if how == "ok"]
@@ -297,13 +299,6 @@ def test_calibration_layout(runs):
     assert unknowns[cal.MEASUREMENTS].between(1, 3).all() and unknowns[cal.SAMPLE].is_unique
     per = unknowns.groupby(cal.INSTRUMENT).size()
     assert per.drop(cal.UNKNOWN_INSTRUMENT).between(2, 5).all() and set(per.index) - set(HOW) == {cal.UNKNOWN_INSTRUMENT}
-
-
-def test_calibration_job_file_matches_the_demo_job():
-    settings = load_job_file(CAL_JOB_FILE)
-    assert settings.pop("workbook") == cal.FILE_NAME
-    assert {k: tuple(v) if isinstance(v, list) else v for k, v in settings.items()} == cal.CALIBRATION_JOB
-    assert tomllib.loads(CAL_JOB_FILE.read_text(encoding="utf-8"))  # plain TOML
 
 
 def test_calibration_fit_shows_what_each_instrument_was_built_for(calibration_fit, runs):

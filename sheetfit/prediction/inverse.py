@@ -18,6 +18,7 @@ import pandas as pd
 
 from ..job import check_setting
 from ..read.cells import cell_number
+from ..results.calibration import LIMIT_OF_QUANTIFICATION, limits
 from ..results.headers import PREDICTION_REASON
 from ..results.store import ModelStore
 
@@ -113,8 +114,9 @@ def quantification_limits(store: ModelStore) -> np.ndarray:
     if line_problem(store):
         return np.full(len(store), np.nan)
     with np.errstate(all="ignore"):
-        limit = 10.0 * np.sqrt(store.sigma2) / np.abs(store.beta[:, 1])
-    return np.where(np.isfinite(limit) & (store.df > 0), limit, np.nan)
+        sigma = np.sqrt(store.sigma2)
+    limit = limits(store.beta, sigma, np.ones(len(store), dtype=bool))[LIMIT_OF_QUANTIFICATION]
+    return np.where(store.df > 0, limit, np.nan)
 
 
 def _read_back(store: ModelStore, g: np.ndarray, y0: np.ndarray, m: np.ndarray, level: float) -> dict:
