@@ -72,8 +72,8 @@ def fit_shapes(y: np.ndarray, columns: Mapping[str, np.ndarray], codes: np.ndarr
     run_terms = with_change_point_terms(terms, temperature)
     engine_terms = tuple(Term(x.label, _hidden_column(x), "column") if x.kind in HINGES else x
                          for x in run_terms)
-    cols = {**columns, _hidden_column(run_terms[[x.kind for x in run_terms].index("below")]): below,
-            _hidden_column(run_terms[[x.kind for x in run_terms].index("above")]): above}
+    hinge_values = {"below": below, "above": above}
+    cols = {**columns, **{_hidden_column(x): hinge_values[x.kind] for x in run_terms if x.kind in HINGES}}
     active = active_slots(run_terms, temperature, points.shape, intercept)
     fit = fit_patterns(y, cols, codes, n_groups, engine_terms, intercept, active,
                        points.count.astype(np.int64))
