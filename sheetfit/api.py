@@ -13,6 +13,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from .job import FitJob, job_file_settings, make_job
@@ -54,7 +55,7 @@ def fit_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str] | str, group: Seq
               order: str | None = None, **settings: Any) -> FitResults:
     """Fit one OLS model per group of an in-memory DataFrame of numbers (same tables as fit_workbook)."""
     job = make_job({"workbook": "(data frame)", "y": y, "x": x, "group": group, "order": order, **settings})
-    obs = observations_from_frame(frame, y=job.y, x=job.x, group=job.group, order=job.order)
+    obs = observations_from_frame(frame, y=job.y, x=job.x, group=job.group, order=job.order, weights=job.weights)
     return fit_observations(obs, job)
 
 
@@ -88,8 +89,11 @@ def read_back(results_or_path: FitResults | str | Path, new_rows: pd.DataFrame, 
     column = {c: new_rows.iloc[:, given.index(c)] for c in (*store.group_columns, store.y, replicates) if c in given}
     gpos, why = group_positions(store, {c: v.tolist() for c, v in column.items()}, len(new_rows))
     counts = None if replicates is None else column[replicates].to_numpy(dtype=object)
+    extra = [c for c in store.extra_columns if c in given]      # a weighted fit's own weight column
+    weight_values = (pd.to_numeric(new_rows.iloc[:, given.index(extra[0])], errors="coerce").to_numpy(np.float64)
+                     if extra else None)
     found = inverse_predict(store, gpos, column[store.y].to_numpy(dtype=object), counts, None,
-                            quantification_limits(store), group_reasons=why)
+                            quantification_limits(store), group_reasons=why, weight_values=weight_values)
     front = pd.DataFrame({c: v.to_numpy() for c, v in column.items()}, index=new_rows.index)
     front.columns = shown_names(list(column), INVERSE_COLUMNS)
     return pd.concat([front, found.set_axis(new_rows.index)], axis=1)

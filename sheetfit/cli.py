@@ -203,6 +203,8 @@ def fit(
     max_cv_rmse: float = _opt(DEFAULTS["max_cv_rmse"], "--max-cv-rmse", help="Baseline criterion: flag fits whose CV(RMSE) in % is above this."),
     max_nmbe: float = _opt(DEFAULTS["max_nmbe"], "--max-nmbe", help="Baseline criterion: flag fits whose |NMBE| in % is above this."),
     baseline_min_r2: float = _opt(DEFAULTS["baseline_min_r2"], "--baseline-min-r2", help="Baseline criterion: flag fits whose R² is below this."),
+    previous: Path | None = _opt(None, "--previous", metavar="OLD.xlsx", show_default=False, readable=False, help="An earlier results workbook of the same model: each group is compared with its earlier fit (Chow test, coefficient changes, flags) on the sheet 'since previous run'."),
+    weights: str | None = _opt(None, "--weights", metavar="W", show_default=False, help="Weighted least squares: each row's weight is the column W, 1/COL or 1/COL^2 (COL an input or the response); weights are scaled to average 1 within each group."),
     calibration: bool = _opt(False, "--calibration", show_default=False, help="Each group is a calibration line: limits of detection and quantification on groups, each standard's back-calculated value on observations."),
     back_calc_limit: float = _opt(DEFAULTS["back_calc_limit"], "--back-calc-limit", help="With --calibration: flag standards whose back-calculated value is off by more than this %."),
     back_calc_limit_lowest: float = _opt(DEFAULTS["back_calc_limit_lowest"], "--back-calc-limit-lowest", help="The same at each group's lowest non-zero standard."),
@@ -215,6 +217,11 @@ def fit(
     quiet: bool = _opt(False, "--quiet", "-q", help="No progress bar and no summary; only the results path.", show_default=False),
     debug: bool = _opt(False, "--debug", help="Show the full traceback of an error, and any warnings.", show_default=False),
 ) -> None:
+    _run_fit(ctx, job_file, quiet, debug)
+
+
+def _run_fit(ctx: typer.Context, job_file: Path | None, quiet: bool, debug: bool) -> None:
+    """The fit command's work: the job from the job file and the options typed, run, results path and summary."""
     given = _given_on_command_line(ctx)
     with error_boundary(debug):
         settings = job_file_settings(job_file) if job_file is not None else {}

@@ -111,6 +111,10 @@ SCHEMA: dict[str, Setting] = {
                                   "plain-column input)", "--change-point-input", optional=True),
     "baseline_checks": Setting("bool", "judge fits by the energy-baseline criteria (on with --change-point)",
                                "--baseline-checks", optional=True),
+    "previous": Setting("path", "an earlier results workbook of the same model to compare this run with",
+                        "--previous", optional=True),
+    "weights": Setting("text", "row weights of a weighted least-squares fit: a column, 1/COL or 1/COL^2",
+                       "--weights", optional=True),
     "calibration": Setting("bool", "treat each group as a calibration line: detection and quantification limits, "
                            "back-calculated standards", "--calibration"),
     "back_calc_limit": _threshold("flag standards whose back-calculated value deviates by more than this %",
@@ -287,6 +291,8 @@ class FitJob:
     change_point: str = "none"           # none | heating | cooling | two-slopes | heating-cooling | auto
     change_point_input: str | None = None  # the temperature column; None → the first plain-column input
     baseline_checks: bool | None = None  # energy-baseline criteria; None → on exactly when change_point is set
+    previous: Path | None = None         # an earlier results workbook: what changed since (results.changes)
+    weights: str | None = None           # weighted least squares: COL, 1/COL or 1/COL^2 (terms.parse_weights)
     calibration: bool = False            # calibration-line extras: limits on groups, back-calculated standards
     thresholds: Thresholds = field(default_factory=Thresholds)
 
@@ -310,6 +316,9 @@ class FitJob:
         if self.change_point == "none" and self.change_point_input is not None:
             raise JobError("--change-point-input names the temperature of a change-point model; add "
                            "--change-point SHAPE or leave it out")
+        if self.change_point != "none" and self.weights:
+            raise JobError("--weights cannot be combined with --change-point yet (the change-point search is "
+                           "unweighted); leave one of them out")
         if self.change_point != "none" and not self.intercept:
             raise JobError("--change-point needs the constant (the use where the temperature has no effect); "
                            "leave out --no-intercept")
@@ -340,6 +349,7 @@ class FitJob:
             unused |= set(BASELINE_SETTINGS)
         if not self.calibration:
             unused |= set(CALIBRATION_SETTINGS)
+        unused |= {name for name in OPTIONAL_FEATURES if getattr(self, name) is None}
         for f in fields(self):
             if f.name in SHOWN_ELSEWHERE or f.name in unused:
                 continue
@@ -353,6 +363,7 @@ class FitJob:
 CHANGE_POINT_SETTINGS = ("change_point", "change_point_input")      # listed on `about` only when used
 CALIBRATION_SETTINGS = ("calibration", "back_calc_limit", "back_calc_limit_lowest")
 BASELINE_SETTINGS = ("baseline_checks", "max_cv_rmse", "max_nmbe", "baseline_min_r2")
+OPTIONAL_FEATURES = ("weights", "previous")     # listed on `about` only when given
 SHOWN_ELSEWHERE = ("thresholds", "workbook", "y", "x", "intercept", "sheets", "header_row")
 
 
@@ -418,9 +429,9 @@ def _read_toml(path: Path) -> dict[str, Any]:
 
 
 def job_file_settings(path: Path) -> dict[str, Any]:
-    """The job file's settings, with its relative workbook/out paths taken from the job file's folder."""
+    """The job file's settings, with its relative workbook/out/previous paths taken from the job file's folder."""
     settings = load_job_file(path)
-    for key in ("workbook", "out"):
+    for key in ("workbook", "out", "previous"):
         value = settings.get(key)
         if isinstance(value, str) and value and not Path(value).expanduser().is_absolute():
             settings[key] = str(Path(path).parent / Path(value).expanduser())

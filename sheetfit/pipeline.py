@@ -20,7 +20,7 @@ from . import checks
 from .checks import robust
 from .checks.lack_of_fit import replicate_keys
 from .checks.verdicts import Verdicts, verdicts
-from .errors import JobError, NoUsableDataError, UnusableRowsError
+from .errors import JobError, NoUsableDataError, ResultsWorkbookError, UnusableRowsError
 from .job import FitJob
 from .memory import ordinary_pages
 from .model.engine import EngineFit, fit_groups
@@ -35,7 +35,8 @@ from .results.headers import (CONDITION_NUMBER, FLAGS, HIGH_LEVERAGE_ROWS, INFLU
     STATUS, USED, YES)
 from .results.observations import observations_table
 from .results.types import FitResults
-from .terms import Term, change_point_input, coefficient_labels, source_columns
+from .model.sums import group_sums
+from .terms import Term, change_point_input, coefficient_labels, design_matrix, source_columns
 
 ProgressCallback = Callable[[str], None]
 STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
@@ -56,6 +57,7 @@ class GroupedRows:
     codes: np.ndarray           # (N,) group code per engine row
     columns: dict[str, np.ndarray]  # source column → (N,) values
     y: np.ndarray               # (N,)
+    weights: np.ndarray | None = None   # (N,) row weights of a weighted fit
 
     @property
     def n_groups(self) -> int:
@@ -63,12 +65,16 @@ class GroupedRows:
 
 
 def row_reasons(obs: Observations) -> np.ndarray:
-    """Reader reasons plus term-domain problems (log of ≤ 0, sqrt of < 0)."""
+    """Reader reasons plus term-domain problems (log of ≤ 0, sqrt of < 0) and weights that are not positive."""
     reason = obs.data[REASON].to_numpy(dtype=object).copy()
     for term in obs.terms:
         bad = term.domain_problem(obs.data[term.column].to_numpy(dtype=np.float64))
         for i in np.flatnonzero(bad):
             reason[i] = f"{reason[i]}; {term.domain_reason()}" if reason[i] else term.domain_reason()
+    if obs.weights is not None:
+        problem = obs.weights.row_problem(obs.data[obs.weights.column].to_numpy(dtype=np.float64))
+        for i in np.flatnonzero(problem != ""):
+            reason[i] = f"{reason[i]}; {problem[i]}" if reason[i] else problem[i]
     return reason
 
 
@@ -87,13 +93,19 @@ def group_rows(obs: Observations, reason: np.ndarray) -> GroupedRows:
     seq = data[obs.order].to_numpy(dtype=np.float64)[pos] if obs.order else pos.astype(np.float64)
     pos = pos[np.lexsort((pos, seq, codes_all[pos]))]
     columns = {c: data[c].to_numpy(dtype=np.float64)[pos] for c in source_columns(obs.terms)}
+    weights = (None if obs.weights is None else
+               obs.weights.values(data[obs.weights.column].to_numpy(dtype=np.float64)[pos]))
     return GroupedRows(keys=keys, codes_all=codes_all, reason=reason, pos=pos, codes=codes_all[pos],
-                       columns=columns, y=data[obs.y].to_numpy(dtype=np.float64)[pos])
+                       columns=columns, y=data[obs.y].to_numpy(dtype=np.float64)[pos], weights=weights)
 
 
-def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback | None = None) -> FitResults:
-    """Fit, check and flag every group of already-read observations."""
+def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback | None = None,
+                     earlier: Any = None) -> FitResults:
+    """Fit, check and flag every group of already-read observations; with --previous, say what changed
+    since that run (`earlier`: its model store when already read)."""
     progress = progress or _no_progress
+    if job.previous is not None and earlier is None:
+        earlier = _previous_store(job)
     with ordinary_pages():
         reason = row_reasons(obs)
         if job.strict:
@@ -104,7 +116,8 @@ def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback 
         if not model.fit.fitted_ok.any():
             raise NoUsableDataError(_nothing_fitted(model.fit, rows.n_groups))
         progress("checking")
-        return _check_and_tabulate(obs, job, rows, model, progress)
+        results = _check_and_tabulate(obs, job, rows, model, progress)
+    return results if earlier is None else with_changes(results, earlier, job)
 
 
 @dataclass(frozen=True)
@@ -122,7 +135,8 @@ def _fit_model(obs: Observations, job: FitJob, rows: GroupedRows) -> FittedModel
         raise JobError(f"--calibration needs the input itself as the term, not {obs.terms[0].label}: back-"
                        f"calculated values and limits are in the input's units; give --x {obs.terms[0].column}")
     if job.change_point == "none":
-        fit = fit_groups(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept)
+        fit = fit_groups(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept,
+                         weights=rows.weights)
         return FittedModel(fit, tuple(obs.terms))
     from .model.shaped_fit import fit_shapes
 
@@ -199,6 +213,7 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
     if job.calibration:
         observations = _with_back_calculation(observations, obs, job, fit, inf, rows)
     ranges = tables.observed_ranges(rows.columns, codes, G)
+    X = _design_rows(job, model, rows)
     return FitResults(
         job=job, group_columns=obs.group_columns, y=obs.y, terms=terms, groups=groups,
         coefficients=tables.coefficients_table(keys, fit, inf, labels, coef_extra),
@@ -211,7 +226,36 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
         info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)), order=obs.order,
         change_points=None if model.shaped is None else model.shaped.change_points,
         response_mean=fit.ymean.copy(), residual_lag1=residual_lag1(fit.resid, codes, G),
+        weights=None if obs.weights is None else obs.weights.label,
+        weight_mean=fit.weight_mean, sums=group_sums(X, rows.y, codes, G, fit.fitted_ok, fit.weights),
+        comparison=_across_groups(job, model, rows, X),
     )
+
+
+def _design_rows(job: FitJob, model: FittedModel, rows: GroupedRows) -> np.ndarray:
+    """The raw design rows (N, p) in engine order, each group's change points in place; 0 on unused slots."""
+    fit = model.fit
+    cps = None
+    if model.shaped is not None:
+        tau = np.asarray(model.shaped.change_points, dtype=np.float64)[rows.codes]
+        cps = {"below": tau[:, 0], "above": tau[:, 1]}
+    with np.errstate(invalid="ignore", over="ignore"):
+        X = design_matrix(model.terms, job.intercept, rows.columns, cps) if len(rows.y) else np.zeros((0, fit.p))
+    return np.where(fit.active[rows.codes], X, 0.0)
+
+
+def _across_groups(job: FitJob, model: FittedModel, rows: GroupedRows, X: np.ndarray) -> Any:
+    """Which groups respond differently (results.comparison), when two or more groups were fitted with the
+    same terms and no change points (those give each group its own terms); else None."""
+    fit = model.fit
+    if model.shaped is not None or not fit.active.all() or int(fit.fitted_ok.sum()) < 2:
+        return None
+    from .results.comparison import compare_across_groups, comparison_tables
+
+    comp = compare_across_groups(rows.y, X, rows.codes, fit.fitted_ok, intercept=job.intercept,
+                                 thresholds=job.thresholds, level=job.level, weights=fit.weights)
+    inputs = coefficient_labels(model.terms, job.intercept)[1 if job.intercept else 0:]
+    return comparison_tables(comp, rows.keys, inputs, job.thresholds)
 
 
 def _with_back_calculation(observations: pd.DataFrame, obs: Observations, job: FitJob, fit: EngineFit,
@@ -251,12 +295,37 @@ def fit_job(job: FitJob, progress: ProgressCallback | None = None) -> FitResults
     progress = progress or _no_progress
     progress("reading")
     t0 = time.perf_counter()
+    earlier = _previous_store(job)
     obs = read_observations(job)
     t1 = time.perf_counter()
-    results = fit_observations(obs, job, progress)
+    results = fit_observations(obs, job, progress, earlier)
     t2 = time.perf_counter()
     return with_about(results, [("time to read (s)", round(t1 - t0, 3)),
                                 ("time to fit and check (s)", round(t2 - t1, 3))])
+
+
+def _previous_store(job: FitJob) -> Any:
+    """The model store of --previous (read first: a wrong file is said before any work), else None."""
+    if job.previous is None:
+        return None
+    from .read import check_path
+    from .results.store import read_store
+
+    check_path(Path(job.previous))
+    try:
+        return read_store(job.previous)
+    except ResultsWorkbookError as exc:
+        raise ResultsWorkbookError(f"--previous: {exc}") from None
+
+
+def with_changes(results: FitResults, earlier: Any, job: FitJob) -> FitResults:
+    """The results with what changed since the earlier run whose model store is `earlier`."""
+    from .results.changes import compare_runs
+    from .results.store import store_from_results
+
+    changes = compare_runs(earlier, store_from_results(results), job.previous, job.thresholds, job.level)
+    return with_about(dataclasses.replace(results, changes=changes),
+                      [("compared with", f"{Path(job.previous).name}: {changes.summary()}")])
 
 
 def run_job(job: FitJob, progress: ProgressCallback | None = None) -> tuple[FitResults, Path]:
@@ -291,6 +360,8 @@ def summary_lines(results: FitResults) -> list[str]:
     used = int((results.observations[USED] == YES).sum())
     lines.append(f"{results.info.rows_read} rows read: {used} used, {results.info.rows_read - used} not used "
                  f"(reasons on the observations sheet)")
+    if results.changes is not None:
+        lines.append(results.changes.summary())
     return lines
 
 
@@ -340,7 +411,8 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
     if actual is not None:
         check_actual_column([str(c) for c in new.frame.columns], actual, store, new.where())
     progress("predicting")
-    raw = {c: new.frame[c].tolist() for c in (*store.group_columns, *store.sources)}
+    raw = {c: new.frame[c].tolist() for c in (*store.group_columns, *store.sources, *store.extra_columns)
+           if c in new.frame.columns}
     preds = predict_cells(store, raw, len(new.frame))
     done = count_predicted(preds)
     if done == 0:
@@ -377,8 +449,11 @@ def _read_back_workbook(store: Any, new: Any, target: Path, overwrite: bool, abo
     progress("predicting")
     gpos, why = group_positions(store, {c: new.frame[c].tolist() for c in store.group_columns}, len(new.frame))
     counts = None if replicates is None else np.asarray(new.frame[replicates].tolist(), dtype=object)
+    extra = [c for c in store.extra_columns if c in new.frame.columns]
+    weight_values = (np.asarray(pd.to_numeric(new.frame[extra[0]], errors="coerce"), dtype=np.float64)
+                     if extra else None)
     table = inverse_predict(store, gpos, np.asarray(new.frame[store.y].tolist(), dtype=object), counts, None,
-                            quantification_limits(store), group_reasons=why)
+                            quantification_limits(store), group_reasons=why, weight_values=weight_values)
     done = int(table[READ_BACK].notna().sum())
     if done == 0:
         raise nothing_predicted(table, new.source_rows, new.where())

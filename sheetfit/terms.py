@@ -202,3 +202,57 @@ def design_matrix(terms: Sequence[Term], intercept: bool, source: Mapping[str, n
     parts = [np.ones(k)] if intercept else []
     parts += [term.values(np.atleast_1d(source[term.column]), cps.get(term.kind)) for term in terms]
     return np.column_stack(parts) if parts else np.zeros((k, 0))
+
+
+_INVERSE = re.compile(r"^1\s*/\s*(?P<col>.+?)(\s*\^\s*(?P<k>2))?$")
+
+
+@dataclass(frozen=True)
+class WeightSpec:
+    """Row weights of a weighted fit: the column itself (inverse_power 0), 1/COL (1) or 1/COL^2 (2)."""
+
+    column: str
+    inverse_power: int = 0
+
+    @property
+    def label(self) -> str:
+        return {0: self.column, 1: f"1/{self.column}", 2: f"1/{self.column}^2"}[self.inverse_power]
+
+    def values(self, x: np.ndarray) -> np.ndarray:
+        """Each row's weight from its source value (inf or NaN where COL is 0 in 1/COL)."""
+        x = np.asarray(x, dtype=np.float64)
+        if self.inverse_power == 0:
+            return x.copy()
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            return 1.0 / x**self.inverse_power
+
+    def row_problem(self, x: np.ndarray) -> np.ndarray:
+        """Per row: '' when the weight is a positive finite number, else the reason in plain words."""
+        w = self.values(x)
+        out = np.full(w.shape, "", dtype=object)
+        with np.errstate(invalid="ignore"):
+            out[np.isfinite(x) & ~(np.isfinite(w) & (w > 0))] = (
+                f"weight {self.label} is zero, negative or infinite here, so the row cannot be weighted")
+        return out
+
+
+def parse_weights(spec: str, columns: Sequence[str]) -> WeightSpec:
+    """`COL`, `1/COL` or `1/COL^2` against the header names (an exact column name always wins)."""
+    names = [str(c) for c in columns]
+    text = str(spec).strip()
+    if text in names:
+        return WeightSpec(text)
+    m = _INVERSE.match(text)
+    if m:
+        return WeightSpec(_column(m.group("col"), names, text), 2 if m.group("k") else 1)
+    if text.startswith("1/") or "^" in text or any(ch in text for ch in "~*()"):
+        raise TermSyntaxError(f'weights "{text}" are not understood; give a column, 1/COL or 1/COL^2')
+    raise ColumnNotFoundError(not_found_message("column", text, names) + " (in --weights)")
+
+
+def weights_from_label(label: str) -> WeightSpec:
+    """The WeightSpec a stored label (WeightSpec.label) stands for."""
+    m = _INVERSE.match(str(label))
+    if m:
+        return WeightSpec(m.group("col"), 2 if m.group("k") else 1)
+    return WeightSpec(str(label))

@@ -254,7 +254,7 @@ def test_store_keeps_unused_slots_as_zero_and_leaves_out_the_unfitted(built):
     res, data = built
     store = store_from_results(res)
     assert store.labels == tuple(s for s, *_ in FITTED_SITES)
-    assert store.format == 2 and store.has_change_points
+    assert store.format == 3 and store.has_change_points
     assert store.shapes == tuple(s[1] for s in FITTED_SITES)
     for g, (site, shape, tau, _) in enumerate(FITTED_SITES):
         act = active_slots(shape, True)
@@ -284,7 +284,7 @@ def test_store_round_trip_keeps_change_points_mean_and_lag1_exactly(built, tmp_p
     pd.testing.assert_frame_equal(sheetfit.predict(path, new), sheetfit.predict(res, new), rtol=0, atol=0)
 
 
-def test_store_sheet_is_format_2_with_the_new_columns_last(built, tmp_path):
+def test_store_sheet_is_format_3_with_the_new_columns_last(built, tmp_path):
     res, _ = built
     path = write_results(res, tmp_path / "fit.xlsx")
     direct = store_from_results(res)
@@ -292,26 +292,30 @@ def test_store_sheet_is_format_2_with_the_new_columns_last(built, tmp_path):
     ws = openpyxl.load_workbook(path, read_only=True)[STORE_SHEET]
     rows = [list(r) for r in ws.iter_rows(values_only=True)]
     settings = {r[0]: r[1] for r in rows[lay.first_setting:lay.first_setting + 8]}
-    assert settings["store format"] == 2
+    assert settings["store format"] == 3
     header = rows[lay.group_header]
-    assert tuple(header[lay.width - len(EXTRA_HEADERS):lay.width]) == EXTRA_HEADERS
-    # every format-1 position is where format 1 has it: the last observed maximum just before the new columns
-    assert header[lay.col_max(lay.m - 1)] == f"max: {Z}" and lay.col_max(lay.m - 1) == lay.width - 6
+    first_new = lay.col_max(lay.m - 1) + 1
+    assert tuple(header[first_new:first_new + len(EXTRA_HEADERS)]) == EXTRA_HEADERS
+    # every format-1 position is where format 1 has it: the last observed maximum just before the new columns;
+    # format 3's weight mean and sums come after format 2's columns, the last one y'y
+    assert header[lay.col_max(lay.m - 1)] == f"max: {Z}"
+    assert header[lay.col_weight_mean()] == "weight mean" and header[lay.width - 1] == "sum y·y"
     heating = rows[lay.first]
     assert heating[lay.col_coef(2)] == 0 and heating[lay.col_change_point(1)] is None
     assert heating[lay.col_extra("shape")] == "heating"
 
 
-def _as_format_1(path, out):
-    """The same results workbook as an older sheetfit wrote it: store format 1, without the new columns."""
+def _as_format(path, out, version=1):
+    """The same results workbook as an older sheetfit wrote it: store format 1 (or 2), without the newer columns."""
     wb = openpyxl.load_workbook(path)
     ws = wb[STORE_SHEET]
     store = read_store(path)
     lay = store_layout(store)
     for r in range(1, ws.max_row + 1):
         if ws.cell(r, 1).value == "store format":
-            ws.cell(r, 2).value = 1
-    ws.delete_cols(lay.width - len(EXTRA_HEADERS) + 1, len(EXTRA_HEADERS))
+            ws.cell(r, 2).value = version
+    first_gone = lay.col_min(lay.m) + (len(EXTRA_HEADERS) if version == 2 else 0)
+    ws.delete_cols(first_gone + 1, lay.width - first_gone)
     wb.save(out)
     return out
 
@@ -323,10 +327,12 @@ def test_an_ordinary_run_keeps_mean_and_lag1_and_an_older_store_still_predicts(t
     res = sheetfit.fit_frame(df, y="y", x=["x"], group="g")
     path = write_results(res, tmp_path / "fit.xlsx")
     store = read_store(path)
-    assert store.format == 2 and np.isnan(store.change_points).all()
+    assert store.format == 3 and np.isnan(store.change_points).all()
     new = pd.DataFrame({"g": ["a", "b"], "x": [1.0, 8.5]})
-    older = read_store(_as_format_1(path, tmp_path / "older.xlsx"))
+    older = read_store(_as_format(path, tmp_path / "older.xlsx"))
     assert np.isnan(older.response_mean).all() and np.isnan(older.residual_lag1).all()
+    second = read_store(_as_format(path, tmp_path / "second.xlsx", version=2))
+    assert not second.has_sums and np.allclose(second.response_mean, store.response_mean)
     for i, g in enumerate("ab"):
         d = df[df["g"] == g]
         fit = sm.OLS(d["y"].to_numpy(), sm.add_constant(d["x"].to_numpy())).fit()
@@ -334,7 +340,7 @@ def test_an_ordinary_run_keeps_mean_and_lag1_and_an_older_store_still_predicts(t
         e = fit.resid
         assert store.residual_lag1[i] == pytest.approx((e[1:] * e[:-1]).sum() / (e * e).sum(), rel=1e-9)
         expected = fit.get_prediction(np.array([[1.0, new["x"][i]]])).summary_frame(alpha=0.05).iloc[0]
-        for source in (path, tmp_path / "older.xlsx"):
+        for source in (path, tmp_path / "older.xlsx", tmp_path / "second.xlsx"):
             pred = sheetfit.predict(source, new)
             for ours, theirs in ORACLE.items():
                 assert pred[ours][i] == pytest.approx(expected[theirs], rel=1e-9)   # statsmodels
@@ -346,9 +352,9 @@ def test_a_newer_store_format_is_refused_in_one_line(built, tmp_path):
     wb = openpyxl.load_workbook(path)
     ws = wb[STORE_SHEET]
     cell = next(r[1] for r in ws.iter_rows() if r[0].value == "store format")
-    cell.value = 3
+    cell.value = 4
     wb.save(tmp_path / "newer.xlsx")
-    with pytest.raises(ResultsWorkbookError, match="format 3; this sheetfit reads formats 1 and 2"):
+    with pytest.raises(ResultsWorkbookError, match="format 4; this sheetfit reads formats 1, 2 and 3"):
         read_store(tmp_path / "newer.xlsx")
 
 

@@ -55,7 +55,11 @@ def batch_terms(b: Batch, terms: Sequence[Term], intercept: bool) -> list[Term]:
 
 
 def with_constant(b: Batch, intercept: bool) -> np.ndarray:
-    """The batch's working design with a constant column in front when it has none."""
+    """The batch's working design with a constant column in front when it has none: the inputs a
+    residual's spread is tested against. In a weighted batch these are the inputs themselves (the
+    working columns divided by √w), so its constant is a column of ones, not √w."""
+    W = b.W if b.sqrt_w is None else np.where(b.mask[:, :, None], b.W / np.where(b.mask, b.sqrt_w, 1.0)[:, :, None],
+                                              0.0)
     if batch_has_constant(b, intercept):
-        return b.W
-    return np.concatenate([b.mask[:, :, None].astype(np.float64), b.W], axis=2)
+        return W
+    return np.concatenate([b.mask[:, :, None].astype(np.float64), W], axis=2)

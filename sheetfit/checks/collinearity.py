@@ -48,7 +48,11 @@ def vif(fit: EngineFit) -> np.ndarray:
         if len(b.slots) - off < 2:
             continue
         X = b.W @ b.T
-        if constant:
+        if b.sqrt_w is not None:        # weighted: X is √w·X, so this is Σ w·(x − x̄_w)² (Σ w·x² without a constant)
+            root = b.sqrt_w[:, :, None]
+            mean = (root * X).sum(axis=1) / (root**2).sum(axis=1)
+            ss = ((X - root * mean[:, None, :]) ** 2).sum(axis=1) if constant else (X**2).sum(axis=1)
+        elif constant:
             mean = X.sum(axis=1) / b.n[:, None]
             ss = (((X - mean[:, None, :]) * b.mask[:, :, None]) ** 2).sum(axis=1)
         else:

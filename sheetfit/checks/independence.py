@@ -95,10 +95,13 @@ def _beta_lower_tail(b: Batch, dw: np.ndarray) -> np.ndarray:
 
 
 def breusch_godfrey(fit: EngineFit, lags: int, order_note: str) -> CheckResult:
-    """n·R² of residuals on the inputs and their own first `lags` lags (zeros before the start)."""
+    """n·R² of residuals on the inputs and their own first `lags` lags (zeros before the start).
+
+    A weighted batch is tested as the weighted model it is: its own design (√w·X, which need not
+    hold a constant) and the uncentred R², n·e'P e/e'e."""
     stat, pval, note = empty_arrays(fit.n_groups)
     for b in fit.batches:
-        Z0 = with_constant(b, fit.intercept)
+        Z0 = with_constant(b, fit.intercept) if b.sqrt_w is None else b.W
         lagged = []
         for lag in range(1, lags + 1):
             col = np.zeros_like(b.resid)
@@ -106,7 +109,10 @@ def breusch_godfrey(fit: EngineFit, lags: int, order_note: str) -> CheckResult:
             lagged.append(col * b.mask)
         Z = np.concatenate([Z0, np.stack(lagged, axis=2)], axis=2)
         small = b.n <= Z.shape[2]
-        r2, _, ok = aux_r2(Z, b.resid, b.mask)
+        r2, rss, ok = aux_r2(Z, b.resid, b.mask)
+        if b.sqrt_w is not None:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                r2 = 1.0 - rss / (b.resid**2).sum(axis=1)
         lm = b.n * r2
         bad = small | ~ok | ~np.isfinite(lm)
         lm[bad] = np.nan

@@ -6,6 +6,8 @@ point's residuals about their mean, n − m degrees of freedom) and lack of fit 
 n_j·(mean residual)², m − p degrees of freedom). Both are taken from the residuals: rows at one
 input point share one fitted value, so their residuals scatter as their responses do, and no
 sum of squares is found by subtracting two nearly equal ones. F = (SS_LOF/(m − p))/(SS_PE/(n − m)).
+In a weighted fit both sums carry the weights: SS_PE = Σ w·(e − ē_j)² with ē_j the weighted mean
+residual at point j, SS_LOF = Σ_j (Σw)_j·ē_j²; they still add up to the weighted residual sum.
 Sums run in the units of y / y_scale (exact powers of two), so the test is scale-free.
 """
 
@@ -63,12 +65,14 @@ def pure_error_split(fit: EngineFit, design_keys: np.ndarray, codes: np.ndarray,
     ok_rows = fit.fitted_ok[codes]
     c, k = codes[ok_rows], np.asarray(design_keys)[ok_rows]
     e = fit.resid[ok_rows] / fit.y_scale[c]                        # exact: y_scale is a power of two
+    w = np.ones(len(e)) if fit.weights is None else fit.weights[ok_rows]
     point, first = _dense_ids(c, k)
     owner = c[first]                                              # the group of each point
     size = np.bincount(point).astype(np.float64)
-    mean_e = np.bincount(point, weights=e) / size
-    ss_pe = np.bincount(c, weights=(e - mean_e[point]) ** 2, minlength=G)
-    ss_lof = np.bincount(owner, weights=size * mean_e**2, minlength=G)
+    total_w = np.bincount(point, weights=w)
+    mean_e = np.bincount(point, weights=w * e) / total_w         # weighted: Σw·e/Σw at each point
+    ss_pe = np.bincount(c, weights=w * (e - mean_e[point]) ** 2, minlength=G)
+    ss_lof = np.bincount(owner, weights=total_w * mean_e**2, minlength=G)
     m = np.bincount(owner, minlength=G)
     repeated = np.bincount(owner, weights=size > 1, minlength=G).astype(np.int64)
     ss_pe[~fit.fitted_ok] = np.nan

@@ -21,11 +21,12 @@ def reset(fit: EngineFit) -> CheckResult:
     """Ramsey's RESET, F form: do squares and cubes of the fitted values add to the model?"""
     stat, pval, note = empty_arrays(fit.n_groups)
     for b in fit.batches:
-        f = (b.y - b.resid) * b.mask
+        f = b.raw_fitted
         scale = np.abs(f).max(axis=1, keepdims=True)
         f = f / np.where(scale > 0, scale, 1.0)
         f2 = f * f
-        Z = np.concatenate([b.W, f2[:, :, None], (f2 * f)[:, :, None]], axis=2)
+        root = 1.0 if b.sqrt_w is None else b.sqrt_w     # weighted: the powers enter the weighted model as √w·ŷ^k
+        Z = np.concatenate([b.W, (root * f2)[:, :, None], (root * f2 * f)[:, :, None]], axis=2)
         df2 = b.df_resid - 2
         small = df2 < 1
         _, rss_u, ok = aux_r2(Z, b.y, b.mask)

@@ -33,7 +33,7 @@ def breusch_pagan(fit: EngineFit) -> CheckResult:
     """Koenker's studentized form: n·R² of squared residuals on the model's inputs."""
     stat, pval, note = empty_arrays(fit.n_groups)
     for b in fit.batches:
-        if batch_has_constant(b, fit.intercept):   # the group's own design holds the constant: reuse its QR
+        if batch_has_constant(b, fit.intercept) and b.sqrt_w is None:   # the design holds the constant: reuse its QR
             k = b.Q.shape[2]
             r2, _ = projection_r2(b.Q, b.resid**2, b.mask)
             ok = np.ones(len(b.groups), dtype=bool)

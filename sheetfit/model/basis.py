@@ -38,12 +38,15 @@ def masked_absmax(v: np.ndarray, mask: np.ndarray) -> np.ndarray:
 
 
 def working_design(cols: Mapping[str, np.ndarray], mask: np.ndarray, n: np.ndarray,
-                   terms: Sequence[Term], intercept: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                   terms: Sequence[Term], intercept: bool, sqrt_w: np.ndarray | None = None
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Working basis W (G, m, p), T (G, p, p) and column scales c (G, p) with X = W·T·diag(c) for a batch.
 
     Source columns must hold a valid value (inside every term's domain) on padding rows too;
     W is zero there. c_j is a power of two (1 for the intercept); a column whose values or scale
-    fall outside double precision shows as a non-finite or zero c_j.
+    fall outside double precision shows as a non-finite or zero c_j. With `sqrt_w` (G, m) the
+    basis is of the weighted design, √w·X = W·T·diag(c): columns are centred and scaled by the
+    weighted mean and spread, then multiplied by √w.
     """
     G, m = mask.shape
     off = 1 if intercept else 0
@@ -52,10 +55,11 @@ def working_design(cols: Mapping[str, np.ndarray], mask: np.ndarray, n: np.ndarr
     T = np.zeros((G, p, p))
     scale = np.ones((G, p))
     maskf = mask.astype(np.float64)
+    wt = maskf if sqrt_w is None else sqrt_w**2          # each row's weight in the centring (0 on padding)
     if intercept:
         W[:, :, 0] = maskf
         T[:, 0, 0] = 1.0
-    nn = n.astype(np.float64)[:, None]
+    nn = n.astype(np.float64)[:, None] if sqrt_w is None else wt.sum(axis=1)[:, None]
     family = _family_bases(cols, mask, terms, intercept)
     for j, term in enumerate(terms):
         k = off + j
@@ -66,17 +70,19 @@ def working_design(cols: Mapping[str, np.ndarray], mask: np.ndarray, n: np.ndarr
         c = pow2_scale(masked_absmax(r, mask))
         r = r / c[:, None]
         if intercept:
-            mu = r.sum(axis=1, keepdims=True) / nn
-            sd = np.sqrt((((r - mu) * maskf) ** 2).sum(axis=1, keepdims=True) / nn)
+            mu = (r * wt).sum(axis=1, keepdims=True) / nn
+            sd = np.sqrt(((((r - mu) * maskf) ** 2) * wt).sum(axis=1, keepdims=True) / nn)
         else:
             mu = np.zeros((G, 1))
-            sd = np.sqrt((r**2).sum(axis=1, keepdims=True) / nn)
+            sd = np.sqrt((r**2 * wt).sum(axis=1, keepdims=True) / nn)
         sd = np.where(sd > 0, sd, 1.0)
         W[:, :, k] = (r - mu) / sd * maskf
         T[:, k, k] = sd[:, 0]
         if intercept:
             T[:, 0, k] = mu[:, 0]
         scale[:, k] = c
+    if sqrt_w is not None:
+        W *= sqrt_w[:, :, None]
     return W, T, scale
 
 

@@ -6,7 +6,13 @@ W with X = W·T·diag(c) (see basis.py), so coefficients and covariance convert 
 β = diag(c)⁻¹T⁻¹γ and (X'X)⁻¹ = diag(c)⁻¹(RT)⁻¹(RT)⁻ᵀdiag(c)⁻¹. X'X is never formed or inverted.
 
 Padding rows repeat a real row's source values (so a term such as log(x) is defined there) and
-are zero in W and y. y is divided by a power of two per group (`y_scale`) before anything is
+are zero in W and y.
+
+A weighted fit (weights w > 0 per row) is ordinary least squares of √w·y on √w·X: every batch
+quantity (W, Q, y, resid, leverage, rss) is then of the weighted ("whitened") model, which is
+what the checks test. Weights are scaled within each group to average 1, so the residual std
+error is in the response's units for a row of average weight; a group whose weights are all
+equal is fitted unweighted (the same estimates), so only groups with varying weights are whitened. y is divided by a power of two per group (`y_scale`) before anything is
 squared; the scales c_j and y_scale are exact, so results keep their bits, and values near
 1e±300 neither overflow nor vanish.
 """
@@ -70,6 +76,15 @@ class Batch:
     col_scale: np.ndarray   # (G, p) a power of two per raw column (1 for the intercept)
     slots: np.ndarray       # (p,) positions of these coefficients among the EngineFit's slots
     extra_params: np.ndarray  # (G,) parameters estimated outside least squares (change points)
+    sqrt_w: np.ndarray | None = None  # (G, m) √weight of a weighted batch (0 on padding); None: unweighted
+
+    @property
+    def raw_fitted(self) -> np.ndarray:
+        """Fitted values / y_scale in the response's own units (not multiplied by √w); 0 on padding."""
+        f = (self.y - self.resid) * self.mask
+        if self.sqrt_w is None:
+            return f
+        return np.where(self.mask, f / np.where(self.mask, self.sqrt_w, 1.0), 0.0)
 
     @property
     def df_resid(self) -> np.ndarray:
@@ -110,6 +125,19 @@ class EngineFit:
     active: np.ndarray          # (G, p) bool: the coefficient slots each group uses
     n_coef: np.ndarray          # (G,) int: active coefficients per group
     extra_params: np.ndarray    # (G,) int: parameters estimated outside least squares (change points)
+    weights: np.ndarray | None = None       # (N,) weights as fitted (scaled to average 1 per group); None: unweighted
+    weight_mean: np.ndarray | None = None   # (G,) the mean of the given weights each group's were divided by
+    half_log_weights: np.ndarray | None = None  # (G,) ½·Σ log w of the scaled weights (log-likelihood term)
+
+    @property
+    def weighted(self) -> bool:
+        """Whether this is a weighted least-squares fit."""
+        return self.weights is not None
+
+    @property
+    def whitened_resid(self) -> np.ndarray:
+        """(N,) residuals of the weighted model, √w·(y − ŷ) (the plain residuals when unweighted)."""
+        return self.resid if self.weights is None else self.resid * np.sqrt(self.weights)
 
     @property
     def n_params(self) -> np.ndarray:
@@ -149,10 +177,11 @@ def group_bounds(codes: np.ndarray, n_groups: int) -> tuple[np.ndarray, np.ndarr
     return starts, counts
 
 
-def _batches(counts: np.ndarray, eligible: np.ndarray) -> list[np.ndarray]:
-    """Split eligible groups into batches of similar size."""
+def _batches(counts: np.ndarray, eligible: np.ndarray, weighted: np.ndarray | None = None) -> list[np.ndarray]:
+    """Split eligible groups into batches of similar size (weighted and unweighted groups apart)."""
+    kind = np.zeros(len(counts), dtype=bool) if weighted is None else weighted
     ids = np.flatnonzero(eligible)
-    ids = ids[np.argsort(counts[ids], kind="stable")]
+    ids = ids[np.lexsort((counts[ids], kind[ids]))]
     out: list[np.ndarray] = []
     start = 0
     while start < len(ids):
@@ -160,7 +189,8 @@ def _batches(counts: np.ndarray, eligible: np.ndarray) -> list[np.ndarray]:
         stop = start + 1
         while stop < len(ids):
             m = counts[ids[stop]]
-            if m > max(lo * PAD_RATIO, lo + 4) or m * (stop + 1 - start) > BATCH_ROWS:
+            if (m > max(lo * PAD_RATIO, lo + 4) or m * (stop + 1 - start) > BATCH_ROWS
+                    or kind[ids[stop]] != kind[ids[start]]):
                 break
             stop += 1
         out.append(ids[start:stop])
@@ -174,26 +204,49 @@ def _pad(values: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarray:
 
 
 def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray, n_groups: int,
-               terms: Sequence[Term], intercept: bool, extra_params: np.ndarray | None = None) -> EngineFit:
-    """Fit y on the terms for every group at once.
+               terms: Sequence[Term], intercept: bool, extra_params: np.ndarray | None = None,
+               weights: np.ndarray | None = None) -> EngineFit:
+    """Fit y on the terms for every group at once (weighted least squares when `weights` are given).
 
     Rows must be sorted by group code (and by sequence within a group); `cols` holds the
     source columns (float64, finite) the terms need, aligned with y. `extra_params` (G,) counts
     parameters estimated outside least squares per group (change points, default none): they
-    reduce the residual degrees of freedom.
+    reduce the residual degrees of freedom. `weights` (N,) must be positive and finite.
     """
     y = np.asarray(y, dtype=np.float64)
     p = len(terms) + (1 if intercept else 0)
     extra = (np.zeros(n_groups, dtype=np.int64) if extra_params is None
              else np.asarray(extra_params, dtype=np.int64))
     starts, counts = group_bounds(codes, n_groups)
+    scaled = None if weights is None else scaled_weights(np.asarray(weights, dtype=np.float64), codes, n_groups)
+    sw = None if scaled is None else np.sqrt(scaled[0])
     reason = reasons_before_solving(cols, terms, starts, counts, n_groups, p, intercept, extra)
     out = _Collected.empty(n_groups, p, len(y))
-    for ids in _batches(counts, reason == ""):
-        solved = _fit_batch(y, cols, starts, counts, ids, terms, intercept, reason, extra)
+    for ids in _batches(counts, reason == "", None if scaled is None else scaled[2]):
+        bsw = None if sw is None or not scaled[2][ids[0]] else sw
+        solved = _fit_batch(y, cols, starts, counts, ids, terms, intercept, reason, extra, bsw)
         if solved is not None:
             out.add(*solved, p=p, intercept=intercept)
-    return _engine_fit(out, reason, codes, counts, p, intercept, extra)
+    fit = _engine_fit(out, reason, codes, counts, p, intercept, extra)
+    if scaled is None:
+        return fit
+    half_log = 0.5 * np.bincount(codes, weights=np.log(scaled[0]), minlength=n_groups)
+    return dataclasses.replace(fit, weights=scaled[0], weight_mean=scaled[1], half_log_weights=half_log)
+
+
+def scaled_weights(weights: np.ndarray, codes: np.ndarray, n_groups: int
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Weights divided by their group's mean (exactly 1 where a group's weights are all equal), the
+    means, and per group whether its weights vary (only those groups are whitened)."""
+    counts = np.bincount(codes, minlength=n_groups)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.bincount(codes, weights=weights, minlength=n_groups) / counts
+    hi = np.full(n_groups, -np.inf)
+    lo = np.full(n_groups, np.inf)
+    np.maximum.at(hi, codes, weights)
+    np.minimum.at(lo, codes, weights)
+    varies = hi > lo
+    return np.where(varies[codes], weights / mean[codes], 1.0), mean, varies
 
 
 @dataclass(frozen=True)
@@ -210,6 +263,7 @@ class _Part:
     T: np.ndarray
     scale: np.ndarray
     extra: np.ndarray
+    sw: np.ndarray | None = None      # (G, m) √w of a weighted batch
     Q: np.ndarray | None = None
     R: np.ndarray | None = None
 
@@ -237,12 +291,15 @@ def _pad_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray
 
 def _fit_batch(y: np.ndarray, cols: Mapping[str, np.ndarray], starts: np.ndarray, counts: np.ndarray,
                ids: np.ndarray, terms: Sequence[Term], intercept: bool, reason: np.ndarray,
-               extra: np.ndarray) -> tuple[Batch, np.ndarray, np.ndarray] | None:
-    """Pad, factor and solve one batch; groups out of range or exactly collinear are dropped (reasons set)."""
+               extra: np.ndarray, sqrt_w: np.ndarray | None = None) -> tuple[Batch, np.ndarray, np.ndarray] | None:
+    """Pad, factor and solve one batch; groups out of range or exactly collinear are dropped (reasons set).
+
+    With `sqrt_w` (N,) the batch is weighted: its design and response are multiplied by √w."""
     mask, rows, yp, colp = _pad_batch(y, cols, starts, counts, ids)
     n = counts[ids]
-    W, T, scale = working_design(colp, mask, n, terms, intercept)
-    part = _Part(ids, rows, mask, n, yp, colp, W, T, scale, extra[ids])
+    swp = None if sqrt_w is None else np.where(mask, _pad(sqrt_w, rows, mask), 0.0)
+    W, T, scale = working_design(colp, mask, n, terms, intercept, swp)
+    part = _Part(ids, rows, mask, n, yp, colp, W, T, scale, extra[ids], swp)
     part = part.only(~values_out_of_range(W, T, scale, ids, terms, intercept, reason))
     if not len(part.ids):
         return None
@@ -267,10 +324,13 @@ def _solve_batch(part: _Part, terms: Sequence[Term], intercept: bool) -> tuple[B
     """Least squares of a factored batch, refined once: the batch, β·c/y_scale (G, p) and fitted values / y_scale."""
     ids, rows, mask, n, W, T, scale, yp, colp = (part.ids, part.rows, part.mask, part.n, part.W, part.T,
                                                  part.scale, part.yp, part.colp)
-    Q, R = part.Q, part.R
+    Q, R, sw = part.Q, part.R, part.sw
     assert Q is not None and R is not None
     p = R.shape[-1]
     order = triangular_order(terms, intercept)
+    y_raw = yp
+    if sw is not None:
+        yp = yp * sw
     y_scale = pow2_scale(masked_absmax(yp, mask))
     yp = yp / y_scale[:, None]
     qty = np.einsum("gmk,gm->gk", Q, yp)
@@ -281,17 +341,20 @@ def _solve_batch(part: _Part, terms: Sequence[Term], intercept: bool) -> tuple[B
     # One step of iterative refinement with the residual taken in the raw basis in
     # extended precision recovers digits lost between the working and the raw basis.
     # The refined fit's residual is r minus the projection of r, so it needs no second pass.
-    r = raw_residual(colp, yp, mask, terms, intercept, b, scale)
+    if sw is None:
+        r = raw_residual(colp, yp, mask, terms, intercept, b, scale)
+    else:
+        r = raw_residual(colp, y_raw / y_scale[:, None], mask, terms, intercept, b, scale) * sw
     qtr = np.einsum("gmk,gm->gk", Q, r)
     b = b + from_working(T, np.linalg.solve(R, qtr[..., None]), order)[..., 0]
     e = r - np.einsum("gmk,gk->gm", Q, qtr)
-    fit = (yp - e) * mask
     A = from_working(T, rinv, order)
     h = (Q**2).sum(axis=2)
     r_ss = (e**2).sum(axis=1)
     batch = Batch(groups=ids, rows=rows, mask=mask, n=n, W=W, T=T, Q=Q, R=R, A=A, y=yp, resid=e, leverage=h,
-                  rss=r_ss, y_scale=y_scale, col_scale=scale, slots=np.arange(p), extra_params=part.extra)
-    return batch, b, fit
+                  rss=r_ss, y_scale=y_scale, col_scale=scale, slots=np.arange(p), extra_params=part.extra,
+                  sqrt_w=sw)
+    return batch, b, batch.raw_fitted
 
 
 @dataclass
@@ -326,8 +389,11 @@ class _Collected:
         Scaled values are multiplied by powers of two only: exact, unless the true value is
         outside double precision (then inf or 0, silently).
         """
-        ids, mask, rows, yp, n, r_ss = batch.groups, batch.mask, batch.rows, batch.y, batch.n, batch.rss
+        ids, mask, rows, n, r_ss = batch.groups, batch.mask, batch.rows, batch.n, batch.rss
         ys = batch.y_scale
+        sw = batch.sqrt_w
+        raw_resid = batch.resid if sw is None else np.where(mask, batch.resid / np.where(mask, sw, 1.0), 0.0)
+        raw_y = batch.y if sw is None else np.where(mask, batch.y / np.where(mask, sw, 1.0), 0.0)
         ey, ec = pow2_exponent(ys)[:, None], pow2_exponent(batch.col_scale)
         s2 = r_ss / (n - p - batch.extra_params)
         aat = batch.A @ np.swapaxes(batch.A, 1, 2)
@@ -335,16 +401,24 @@ class _Collected:
             self.beta[ids] = np.ldexp(b, ey - ec)
             self.se[ids] = np.ldexp(np.sqrt(s2[:, None] * np.diagonal(aat, axis1=1, axis2=2)), ey - ec)
             self.xtx_inv[ids] = np.ldexp(aat, -ec[:, :, None] - ec[:, None, :])
-            self.ymean[ids] = yp.sum(axis=1) / n * ys
+            self.ymean[ids] = raw_y.sum(axis=1) / n * ys
             self.fitted[rows[mask]] = (fit * ys[:, None])[mask]
-            self.resid[rows[mask]] = (batch.resid * ys[:, None])[mask]
+            self.resid[rows[mask]] = (raw_resid * ys[:, None])[mask]
         self.y_scale[ids] = ys
         self.rss[ids] = r_ss
-        ym = yp.sum(axis=1) / n
-        self.tss[ids] = (((yp - ym[:, None]) * mask) ** 2).sum(axis=1) if intercept else (yp**2).sum(axis=1)
+        self.tss[ids] = _total_sum_of_squares(batch.y, mask, sw, intercept)
         self.resid_scaled[rows[mask]] = batch.resid[mask]
         self.leverage[rows[mask]] = batch.leverage[mask]
         self.batches.append(batch)
+
+
+def _total_sum_of_squares(yw: np.ndarray, mask: np.ndarray, sw: np.ndarray | None, intercept: bool) -> np.ndarray:
+    """Σ w·(y − ȳ_w)² from the (whitened) y of a batch, ȳ_w the weighted mean (Σ y² without a constant)."""
+    if not intercept:
+        return ((yw * mask) ** 2).sum(axis=1)
+    root = mask.astype(np.float64) if sw is None else sw
+    ybar = (root * yw).sum(axis=1) / (root**2).sum(axis=1)
+    return (((yw - root * ybar[:, None]) * mask) ** 2).sum(axis=1)
 
 
 def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: np.ndarray,

@@ -66,6 +66,8 @@ def inference(fit: EngineFit, level: float) -> Inference:
         f = ((tss - rss) / df_model) / (rss / df)
         f_p = stats.f.sf(f, df_model, df)
         llf = -n / 2.0 * (np.log(2 * np.pi) + np.log(rss / n) + 2.0 * np.log(ys) + 1.0)
+        if fit.half_log_weights is not None:         # weighted: the density of y, not of √w·y
+            llf = llf + fit.half_log_weights
         aic = -2.0 * llf + 2.0 * fit.n_params
         bic = -2.0 * llf + np.log(n) * fit.n_params
     return Inference(t=t, p_value=pval, ci_low=fit.beta - half, ci_high=fit.beta + half, t_quantile=q,

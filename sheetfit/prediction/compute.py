@@ -28,7 +28,7 @@ from ..results.store import (
     read_store,
     store_from_results,
 )
-from ..terms import design_matrix
+from ..terms import design_matrix, weights_from_label
 
 if TYPE_CHECKING:
     from ..results.types import FitResults
@@ -49,8 +49,8 @@ def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: p
     if not isinstance(new_rows, pd.DataFrame):
         raise TypeError("new_rows must be a pandas DataFrame")
     given = [str(c) for c in new_rows.columns]
-    raw = {c: new_rows.iloc[:, given.index(c)].tolist() for c in (*store.group_columns, *store.sources)
-           if c in given}
+    raw = {c: new_rows.iloc[:, given.index(c)].tolist()
+           for c in (*store.group_columns, *store.sources, *store.extra_columns) if c in given}
     out = predict_cells(store, raw, len(new_rows))
     front = pd.DataFrame({c: new_rows.iloc[:, given.index(c)].to_numpy() for c in raw}, index=new_rows.index)
     front.columns = shown_names(list(raw), out.columns)
@@ -87,6 +87,8 @@ def predict_cells(store: ModelStore, raw: dict[str, list], n_rows: int) -> pd.Da
     for r, why in too_large.items():
         reasons[r].append(why)
         ok[r] = False
+    if store.weights:
+        _weighted_new_row_intervals(store, raw, gidx, X, results, ok, reasons)
     out = pd.DataFrame(results)
     extrap = np.full(n_rows, "", dtype=object)
     for r in np.flatnonzero(ok):
@@ -221,6 +223,49 @@ def _intervals(store: ModelStore, gidx: np.ndarray, D: np.ndarray, rows: np.ndar
     for name, values in found.items():
         res[name][rows[~bad]] = values[~bad]
     return res, too_large
+
+
+def new_row_weights(store: ModelStore, raw: dict[str, list], gidx: np.ndarray, X: np.ndarray,
+                    response: np.ndarray) -> tuple[np.ndarray, str]:
+    """Each row's weight relative to its group's (w0 = weight / the group's weight mean) in a weighted
+    fit, from an input, from `response` (when the weights are of the response) or from the weight
+    column of the new rows; NaN where it cannot be had, with the reason shared by those rows."""
+    spec = weights_from_label(store.weights)
+    if spec.column == store.y:
+        value = response
+    elif spec.column in store.sources:
+        value = X[:, store.sources.index(spec.column)]
+    elif spec.column in raw:
+        value = np.array([cell_number(v)[0] if cell_number(v)[1] is None else np.nan for v in raw[spec.column]],
+                         dtype=np.float64)
+    else:
+        return np.full(len(gidx), np.nan), (f'no weight column "{spec.column}" in the new rows: the range for a '
+                                            f'new row of a weighted fit needs its weight')
+    with np.errstate(all="ignore"):
+        w0 = spec.values(value) / np.where(gidx >= 0, store.weight_mean[gidx], np.nan)
+    w0 = np.where(np.isfinite(w0) & (w0 > 0), w0, np.nan)
+    return w0, f"weight {spec.label} is not a positive number here: no range for a new row"
+
+
+def _weighted_new_row_intervals(store: ModelStore, raw: dict[str, list], gidx: np.ndarray, X: np.ndarray,
+                                results: dict[str, np.ndarray], ok: np.ndarray, reasons: list[list[str]]) -> None:
+    """A weighted fit's range for a new row: σ²·(1/w0 + x'(X'WX)⁻¹x), w0 the row's relative weight (weights
+    of the response are taken at the predicted value). Rows without a weight keep the rest, with a reason."""
+    from scipy import stats
+
+    w0, why = new_row_weights(store, raw, gidx, X, results[PREDICTED])
+    rows = np.flatnonzero(ok)
+    g = gidx[rows]
+    with np.errstate(all="ignore"):
+        s2 = store.sigma2[g]
+        quad = (results[MEAN_STD_ERROR][rows] ** 2) / s2
+        se_obs = np.sqrt(np.maximum(s2 * (1.0 / w0[rows] + quad), 0.0))
+        t_q = stats.t.ppf(0.5 + store.level / 2.0, store.df[g])
+    pred = results[PREDICTED][rows]
+    results[NEW_ROW_LOW][rows] = pred - t_q * se_obs
+    results[NEW_ROW_HIGH][rows] = pred + t_q * se_obs
+    for r in rows[~np.isfinite(w0[rows])]:
+        reasons[r].append(why)
 
 
 def _close_label(name: str, labels: Sequence[str]) -> str | None:

@@ -21,6 +21,7 @@ from ..read.cells import cell_number
 from ..results.calibration import LIMIT_OF_QUANTIFICATION, limits
 from ..results.headers import PREDICTION_REASON
 from ..results.store import ModelStore
+from ..terms import weights_from_label
 
 READ_BACK = "read-back input value"
 READ_BACK_STD_ERROR = "std error of read-back value"
@@ -37,7 +38,8 @@ UNKNOWN_GROUP = ("no fitted calibration line for this row's group (not in the re
 
 def inverse_predict(store: ModelStore, group_pos: np.ndarray, response: np.ndarray, replicates: np.ndarray | None,
                     level: float | None, loq: np.ndarray | None = None, *,
-                    group_reasons: Sequence[Sequence[str]] | None = None) -> pd.DataFrame:
+                    group_reasons: Sequence[Sequence[str]] | None = None,
+                    weight_values: np.ndarray | None = None) -> pd.DataFrame:
     """Each row's input value read back from its measured response, with std error and interval.
 
     `group_pos` (n,) is each row's group in the store (−1 unknown); `response` (n,) the measured
@@ -54,6 +56,10 @@ def inverse_predict(store: ModelStore, group_pos: np.ndarray, response: np.ndarr
     the centroid, so ȳ = b0 + b1·x̄ (taken from the same stored numbers as the slope's variance
     rather than from the stored response mean, which older stores lack). Then
         s_x0 = (s/|b1|)·√(1/m + 1/n + (y0 − ȳ)²/(b1²·Sxx)),   x̂0 ± t(df; level)·s_x0.
+    In a weighted fit (weights scaled to average 1, so Σw = n) x̄ and ȳ are the weighted means the
+    stored (X'WX)⁻¹ gives, Sxx = Σw(x − x̄)², and 1/m becomes 1/(m·w0), w0 the unknown's weight relative
+    to the group's: taken at y0 (weights of the response), at x̂0 (weights of the input) or from
+    `weight_values` (n,), the weight column's values in the new rows.
     The value, its std error and interval are left empty, with the reason, when the slope is not
     distinguishable from zero
     at `level` (|b1|/se(b1) ≤ t): the set of inputs consistent with y0 is then unbounded.
@@ -80,7 +86,8 @@ def inverse_predict(store: ModelStore, group_pos: np.ndarray, response: np.ndarr
     y0 = _numbers(response, "response", reasons)
     m = np.ones(n_rows) if replicates is None else _replicates(replicates, reasons)
     rows = np.flatnonzero(np.array([not r for r in reasons], dtype=bool))
-    found = _read_back(store, group_pos[rows], y0[rows], m[rows], level)
+    found = _read_back(store, group_pos[rows], y0[rows], m[rows], level,
+                       None if weight_values is None else np.asarray(weight_values, dtype=np.float64)[rows])
     for i, r in enumerate(rows):
         reasons[r] += found["why"][i]
     for name in INVERSE_COLUMNS[:5]:
@@ -119,7 +126,8 @@ def quantification_limits(store: ModelStore) -> np.ndarray:
     return np.where(store.df > 0, limit, np.nan)
 
 
-def _read_back(store: ModelStore, g: np.ndarray, y0: np.ndarray, m: np.ndarray, level: float) -> dict:
+def _read_back(store: ModelStore, g: np.ndarray, y0: np.ndarray, m: np.ndarray, level: float,
+               weight_values: np.ndarray | None = None) -> dict:
     """The read-back value, std error and interval for rows of known groups (see inverse_predict),
     with each row's reasons (`why`) where a part is missing."""
     from scipy import stats
@@ -131,7 +139,8 @@ def _read_back(store: ModelStore, g: np.ndarray, y0: np.ndarray, m: np.ndarray, 
         x0 = (y0 - b0) / b1
         x_bar = -inv01 / inv11
         y_bar = b0 + b1 * x_bar
-        se = np.sqrt(s2 * (1.0 / m + 1.0 / n + (y0 - y_bar) ** 2 * inv11 / b1**2)) / np.abs(b1)
+        w0 = _unknown_weight(store, g, y0, x0, weight_values)
+        se = np.sqrt(s2 * (1.0 / (m * w0) + 1.0 / n + (y0 - y_bar) ** 2 * inv11 / b1**2)) / np.abs(b1)
         t_q = stats.t.ppf(0.5 + level / 2.0, np.where(df > 0, df, np.nan))
         t_slope = np.abs(b1) / np.sqrt(s2 * inv11)
     no_spread = ~((df > 0) & np.isfinite(s2) & (s2 >= 0))
@@ -151,11 +160,33 @@ def _read_back(store: ModelStore, g: np.ndarray, y0: np.ndarray, m: np.ndarray, 
         why[i].append(f"no read-back value: the slope is not distinguishable from zero at the {_percent(level)} "
                       f"level (|t| = {t_slope[i]:.3g}, needs more than {t_q[i]:.3g}), so the inputs consistent with "
                       f"this response are unbounded")
+    for i in np.flatnonzero(~flat & ~huge & ~no_spread & ~unsure & ~np.isfinite(w0)):
+        why[i].append(f"no std error or interval: the weight {store.weights} of this unknown is not a positive "
+                      f"number (a weight column outside the inputs must be in the new rows)")
     value = np.where(flat | huge | unsure, np.nan, x0)
     se = np.where(flat | huge | no_spread | unsure, np.nan, se)
     half = np.where(unsure | ~np.isfinite(se), np.nan, t_q * se)
     return {READ_BACK: value, READ_BACK_STD_ERROR: se, READ_BACK_LOW: value - half, READ_BACK_HIGH: value + half,
             MEASUREMENTS: m, "why": why}
+
+
+def _unknown_weight(store: ModelStore, g: np.ndarray, y0: np.ndarray, x0: np.ndarray,
+                   weight_values: np.ndarray | None) -> np.ndarray:
+    """Each unknown's weight relative to its group's (1 in an unweighted fit; NaN where it has none)."""
+    if not store.weights:
+        return np.ones(len(g))
+    spec = weights_from_label(store.weights)
+    if spec.column == store.y:
+        value = y0
+    elif spec.column in store.sources:
+        value = x0
+    elif weight_values is not None:
+        value = weight_values
+    else:
+        return np.full(len(g), np.nan)
+    with np.errstate(all="ignore"):
+        w0 = spec.values(value) / store.weight_mean[g]
+    return np.where(np.isfinite(w0) & (w0 > 0), w0, np.nan)
 
 
 def _flag_rows(store: ModelStore, group_pos: np.ndarray, y0: np.ndarray, x0: np.ndarray, rows: np.ndarray,

@@ -8,19 +8,22 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ColumnNotFoundError, JobError, not_found_message
-from ..terms import parse_terms, source_columns
+from ..terms import parse_terms, parse_weights, source_columns
 from .cells import EPOCH
 from .tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations, ReadInfo, days_from_group_start
 
 
 def observations_from_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str], group: Sequence[str] = (),
-                            order: str | None = None, name: str = "(data frame)") -> Observations:
+                            order: str | None = None, name: str = "(data frame)",
+                            weights: str | None = None) -> Observations:
     """Observations from an in-memory table of numbers and dates (no parsing of text; NaN, NaT → unusable).
 
     Date/time columns (datetime64) become days since the group's earliest date, as a workbook's do."""
     header = [str(c) for c in frame.columns]
     terms = parse_terms(list(x), header)
-    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else [])]))
+    spec = parse_weights(weights, header) if weights else None
+    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else []),
+                                  *([spec.column] if spec else [])]))
     _check_columns(header, list(group) + numeric)
     data = pd.DataFrame({SOURCE_SHEET: name, SOURCE_ROW: np.arange(2, len(frame) + 2)})
     for gcol in group:
@@ -42,7 +45,7 @@ def observations_from_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str], gr
                     sheets=(name,), region="whole table", header_row=1, rows_read=len(frame),
                     date_columns=tuple(dated))
     return Observations(data=data, group_columns=tuple(group), y=y, terms=terms, order=order,
-                        numeric_columns=tuple(numeric), info=info, dates=dates)
+                        numeric_columns=tuple(numeric), info=info, dates=dates, weights=spec)
 
 
 def _day_numbers(dates: pd.Series) -> np.ndarray:

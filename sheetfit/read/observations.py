@@ -42,7 +42,7 @@ from ..errors import (
 )
 from ..job import FitJob
 from ..provenance import file_sha256
-from ..terms import parse_terms, source_columns
+from ..terms import parse_terms, parse_weights, source_columns
 from .book import Book
 from .cells import BLANK_LABEL, group_labels_and_forms, is_blank, shown
 from .columns import parse_column
@@ -153,7 +153,8 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
         hidden_rows=sum(p.hidden_rows for p in parts), hidden_columns=sum(p.hidden_cols for p in parts),
         date_columns=tuple(dates.columns), warnings=tuple(warnings))
     return Observations(data=data, group_columns=tuple(spec.group_out), y=spec.y, terms=spec.terms,
-                        order=spec.order, numeric_columns=tuple(spec.numeric), info=info, dates=dates)
+                        order=spec.order, numeric_columns=tuple(spec.numeric), info=info, dates=dates,
+                        weights=spec.weights)
 
 
 def _plan(book: Book, job: FitJob) -> list[tuple[str, Region | None]]:
@@ -186,6 +187,7 @@ class _Spec:
     group_out: list[str]                 # group columns of the output (the sheet key first when added)
     numeric: list[str]
     sheet_key: str | None
+    weights: object = None               # terms.WeightSpec of a weighted fit
 
     @property
     def columns(self) -> list[str]:
@@ -204,6 +206,7 @@ def _spec(job: FitJob, header: Header, sheet: str, multi: bool) -> _Spec:
 
     try:
         terms = parse_terms(job.x, names)
+        weights = parse_weights(job.weights, names) if job.weights else None
     except ColumnNotFoundError as exc:
         raise ColumnNotFoundError(f"{exc}{where}") from None
     y = find(job.y)
@@ -217,7 +220,8 @@ def _spec(job: FitJob, header: Header, sheet: str, multi: bool) -> _Spec:
         while sheet_key in header.names:
             k += 1
             sheet_key = "sheet name" if k == 2 else f"sheet name {k - 1}"
-    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else [])]))
+    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else []),
+                                  *([weights.column] if weights else [])]))
     for t in terms:
         if t.column == y:
             raise JobError(f'column "{y}" is both the response and an input ({t.label}); choose other --x terms')
@@ -230,7 +234,7 @@ def _spec(job: FitJob, header: Header, sheet: str, multi: bool) -> _Spec:
                        f'({SOURCE_SHEET}, {SOURCE_ROW}, {REASON}); rename it in the workbook')
     no_duplicates(header, group_in + numeric)
     group_out = ([sheet_key] if sheet_key else []) + group_in
-    return _Spec(y, terms, order, group_in, group_out, numeric, sheet_key)
+    return _Spec(y, terms, order, group_in, group_out, numeric, sheet_key, weights)
 
 
 def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> _Part:
@@ -353,6 +357,8 @@ def _check_usable(data, spec: _Spec, parts: list[_Part]) -> None:
         roles.setdefault(t.column, "input")
     if spec.order:
         roles.setdefault(spec.order, "order")
+    if spec.weights:
+        roles.setdefault(spec.weights.column, "weight")
     for name in spec.numeric:
         if np.isfinite(data[name].to_numpy()).any():
             continue

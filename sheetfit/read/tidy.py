@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from ..terms import Term
+from ..terms import Term, WeightSpec
 from .cells import EPOCH
 
 SOURCE_SHEET = "source sheet"
@@ -56,9 +56,10 @@ class Observations:
     y: str
     terms: tuple[Term, ...]
     order: str | None
-    numeric_columns: tuple[str, ...]      # y, term source columns, order column (no repeats)
+    numeric_columns: tuple[str, ...]      # y, term source columns, order column, weight column (no repeats)
     info: ReadInfo
     dates: pd.DataFrame = field(default_factory=pd.DataFrame)   # date column → the dates as read
+    weights: WeightSpec | None = None     # a weighted fit's row weights (their column is among numeric_columns)
 
 
 def serial_dates(days: np.ndarray) -> np.ndarray:

@@ -1,6 +1,7 @@
 """The results workbook: formats FitResults into sheets; computes no statistics.
 
-Sheets, in order: attention, groups, coefficients, checks, observations, charts, overview, about, then
+Sheets, in order: attention, groups, coefficients, checks, since previous run and coefficient changes
+(with --previous), across groups (two or more groups fitted alike), observations, charts, overview, about, then
 add-on sheets (`_extra_sheets()`), then the data sheets that charts and formulas read.
 
 Adding a sheet: write a function `build(ctx: WriteContext) -> None` that calls
@@ -40,7 +41,10 @@ def core_sheets() -> list[SheetBuilder]:
         groups_sheet,
         observations_sheet,
     )
-    return [attention_sheet, groups_sheet, coefficients_sheet, checks_sheet, observations_sheet, charts_sheets, about_sheet]
+    from .changes import changes_sheet
+    from .comparison import comparison_sheet
+    return [attention_sheet, groups_sheet, coefficients_sheet, checks_sheet, changes_sheet, comparison_sheet,
+            observations_sheet, charts_sheets, about_sheet]
 
 
 def _extra_sheets() -> list[SheetBuilder]:

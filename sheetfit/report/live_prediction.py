@@ -311,7 +311,9 @@ def _result_cells(cells: Cells, st: Any, ps: PredictSheet, yf: Any, top: int, ca
         (MEAN_STD_ERROR, f"=SQRT({r_s2}*{quad})", pre[MEAN_STD_ERROR], yf,
          "√(residual variance × x'(X'X)⁻¹x)"),
         (NEW_ROW_STD_ERROR, f"=SQRT({r_s2}*(1+{quad}))", se_obs, yf,
-         "√(residual variance × (1 + x'(X'X)⁻¹x))"),
+         "√(residual variance × (1 + x'(X'X)⁻¹x))" + (
+             "; weighted fit: for a row of average weight (sheetfit predict uses each row's own weight)"
+             if store.weights else "")),
         (AVERAGE_LOW, f"={r_pred}-{r_t}*{r_se}", pre[AVERAGE_LOW], yf,
          "where the group's average lies at these inputs (confidence interval of the mean)"),
         (AVERAGE_HIGH, f"={r_pred}+{r_t}*{r_se}", pre[AVERAGE_HIGH], yf, ""),
@@ -340,6 +342,8 @@ def _preset_predictions(ps: PredictSheet) -> pd.Series:
     """sheetfit's own prediction for the preset group, inputs and level: the results' cached values."""
     store = ps.store
     at_level = store if ps.level == store.level else dataclasses.replace(store, level=ps.level)
+    if store.weights:        # the sheet's new-row range is for a row of average weight (w0 = 1)
+        at_level = dataclasses.replace(at_level, weights="")
     raw = {**{c: [k] for c, k in zip(store.group_columns, store.keys[ps.g])},
            **{c: [v] for c, v in zip(store.sources, ps.values)}}
     return predict_cells(at_level, raw, 1).iloc[0]

@@ -18,7 +18,8 @@ from ..read.tidy import REASON
 from ..results.calibration import CALIBRATION_ROW_HEADERS, STANDARD_OFF
 from ..results.change_points import SHAPE_NOTE
 from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, INTERVAL_HIGH, INTERVAL_LOW,
-    LOOK_HERE, NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, rename_note, renamed)
+    LOOK_HERE, NO, REASONS, ROW_FLAGS, STATUS, STD_ERROR, USED, WEIGHT_USED, rename_note,
+    renamed)
 from ..results.observations import OBSERVATION_HEAD, OBSERVATION_TAIL, day_count_headers
 from ..terms import source_columns
 from . import fastrows
@@ -273,7 +274,7 @@ def observation_columns(res: Any, obs: pd.DataFrame) -> list[str]:
     user = [*res.group_columns, *res.number_columns]
     days = {res.observation_header(c): h for c, h in day_count_headers(user, res.info.date_columns).items()}
     data_cols = [res.observation_header(c) for c in (res.y, *source_columns(res.terms))]
-    ours_after = [c for c in CALIBRATION_ROW_HEADERS if c in obs.columns]
+    ours_after = [c for c in (WEIGHT_USED, *CALIBRATION_ROW_HEADERS) if c in obs.columns]
     extra_data = [c for c in obs.columns
                   if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL, *days.values(), *ours_after)]
     user_cols: list[str] = []

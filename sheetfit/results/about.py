@@ -18,6 +18,14 @@ from ..read.tidy import ReadInfo
 from .headers import FLAGS
 
 
+WEIGHTED_NOTE = ("weighted least squares with weights {weights}, scaled to average 1 within each group "
+                 "(a group whose weights are all equal is an ordinary fit). R² is the weighted form "
+                 "1 − Σw·e²/Σw·(y − ȳw)², ȳw the weighted mean; the residual std error, F, AIC and BIC are of "
+                 "the weighted residuals (the std error is that of a row of average weight); every check and "
+                 "Cook's distance use the weighted residuals √w·e; fitted values and residuals on "
+                 "observations are in the response's own units")
+
+
 def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit) -> list[tuple[str, Any]]:
     """The `about` sheet's rows: what was read, how it was fitted, with which versions, when."""
     used = int(fit.n[fit.fitted_ok].sum())
@@ -34,6 +42,7 @@ def about_rows(job: FitJob, info: ReadInfo, groups: pd.DataFrame, fit: EngineFit
         ("groups flagged", int((groups[FLAGS] > 0).sum())),
         ("response", job.y), ("terms", ", ".join(job.x)),
         ("intercept", "yes" if job.intercept else "no"),
+        *((("weights", WEIGHTED_NOTE.format(weights=job.weights)),) if fit.weighted else ()),
         ("collinearity check", COLLINEARITY_MEASURE), ("Durbin–Watson p-value", DW_METHOD),
     ]
     rows += [(f"warning {i + 1}", w) for i, w in enumerate(info.warnings)]

@@ -38,6 +38,7 @@ USED, ROW_FLAGS = "used in fit", "row flags"
 FITTED, RESIDUAL, STUDENTIZED, LEVERAGE, COOKS = ("fitted value", "residual", "studentized residual", "leverage",
                                                   "Cook's distance")
 YES, NO = "yes", "no"
+WEIGHT_USED = "weight as fitted"        # a weighted fit's row weight, scaled to average 1 in its group
 # the words in `row flags`: a row is shaded when one of LOOK_HERE is among them; the other two are softer
 # signals that a few rows of most healthy fits carry, listed but not shaded
 LEVERAGE_ONE_FLAG, OUTLYING_FLAG, MOVES_FIT_FLAG = "leverage 1", "outlying", "moves the fit"

@@ -14,7 +14,8 @@ import pandas as pd
 from ..model.engine import EngineFit
 from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations
 from .headers import (COOKS, DAYS_MARK, FITTED, FLAG_SEPARATOR, HIGH_LEVERAGE_FLAG, INFLUENTIAL_FLAG, LEVERAGE,
-    LEVERAGE_ONE_FLAG, MOVES_FIT_FLAG, NO, OUTLYING_FLAG, RESIDUAL, ROW_FLAGS, STUDENTIZED, USED, YES, shown_names)
+    LEVERAGE_ONE_FLAG, MOVES_FIT_FLAG, NO, OUTLYING_FLAG, RESIDUAL, ROW_FLAGS, STUDENTIZED, USED, WEIGHT_USED, YES,
+    shown_names)
 
 # our columns on `observations`, around the user's group keys (first) and number columns (after the source)
 OBSERVATION_HEAD = (SOURCE_SHEET, SOURCE_ROW)
@@ -94,6 +95,10 @@ def observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, c
     out[STUDENTIZED] = stud
     out[LEVERAGE] = lev
     out[COOKS] = cooks
+    if fit.weights is not None:
+        weight = np.full(N, np.nan)
+        weight[pos] = fit.weights
+        out[WEIGHT_USED] = weight
     return out
 
 

@@ -20,13 +20,13 @@ import numpy as np
 import pandas as pd
 
 from ..errors import ResultsWorkbookError
-from ..terms import HINGES, Term, coefficient_labels, source_columns
+from ..terms import HINGES, Term, coefficient_labels, source_columns, weights_from_label
 from .change_points import SHAPE
-from .headers import (CELL_LIMIT, COEFFICIENT, COEFFICIENT_COUNT, INPUT, PREDICTION_HEADERS,
+from .headers import (CELL_LIMIT, COEFFICIENT, COEFFICIENT_COUNT, FLAGS, INPUT, PREDICTION_HEADERS,
     RESIDUAL_STD_ERROR, ROWS_USED, STATUS, cell_text, shown_names)
 from .store_layout import (ABOVE_HEADER, BELOW_HEADER, EXTRA_HEADERS, FORMATS_READ, GROUP_HEADER, LAG1_HEADER,
     MEAN_HEADER, SETTING_HEADER, SETTING_NAMES, SHAPE_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER,
-    StoreLayout)
+    FLAGS_HEADER, WEIGHT_MEAN_HEADER, StoreLayout)
 
 if TYPE_CHECKING:
     from .types import FitResults
@@ -44,8 +44,9 @@ class ModelStore:
 
     In a change-point run a group uses only the slots of its shape: on the others `beta` is 0 and
     `xtx_inv` has a row and column of 0, so every product over all slots is right as it stands.
-    The last four fields may be left out (None): they then hold NaN and '' (unknown, as in a
-    format-1 results workbook; `shapes` is '' in every run without change points).
+    The fields from `change_points` on may be left out (None): they then hold NaN and '' (unknown, as
+    in an older results workbook; `shapes` is '' in every run without change points, `weights` '' in
+    every unweighted run). `xtx`, `xty` and `yty` are each group's sufficient statistics (format 3).
     """
 
     y: str
@@ -67,12 +68,19 @@ class ModelStore:
     response_mean: np.ndarray | None = None   # (G,) mean of the response over the rows used
     residual_lag1: np.ndarray | None = None   # (G,) lag-1 autocorrelation of the residuals in row order
     shapes: tuple[str, ...] | None = None     # (G,) shape of a change-point run's group; '' otherwise
+    weights: str = ""                         # the weights of a weighted fit (COL, 1/COL, 1/COL^2); '' unweighted
+    weight_mean: np.ndarray | None = None     # (G,) mean of the given weights each group's were divided by
+    flags: np.ndarray | None = None           # (G,) the group's number of flags in its run
+    xtx: np.ndarray | None = None             # (G, p, p) X'X of the rows used (√w·X when weighted)
+    xty: np.ndarray | None = None             # (G, p) X'y
+    yty: np.ndarray | None = None             # (G,) y'y
 
     def __post_init__(self) -> None:
         """Fields left out become NaN (numbers) or '' (shapes), one per group."""
-        G = len(self.keys)
+        G, p = len(self.keys), len(self.term_labels)
         filled = {"change_points": np.full((G, 2), np.nan), "response_mean": np.full(G, np.nan),
-                  "residual_lag1": np.full(G, np.nan), "shapes": ("",) * G}
+                  "residual_lag1": np.full(G, np.nan), "shapes": ("",) * G, "weight_mean": np.full(G, np.nan), "flags": np.full(G, np.nan),
+                  "xtx": np.full((G, p, p), np.nan), "xty": np.full((G, p), np.nan), "yty": np.full(G, np.nan)}
         for name, empty in filled.items():
             if getattr(self, name) is None:
                 object.__setattr__(self, name, empty)
@@ -80,6 +88,19 @@ class ModelStore:
     @property
     def term_labels(self) -> tuple[str, ...]:
         return coefficient_labels(self.terms, self.intercept)
+
+    @property
+    def extra_columns(self) -> tuple[str, ...]:
+        """A weighted fit's weight column when it is neither the response nor an input (new rows may carry it)."""
+        if not self.weights:
+            return ()
+        column = weights_from_label(self.weights).column
+        return () if column in (self.y, *self.sources) else (column,)
+
+    @property
+    def has_sums(self) -> bool:
+        """Whether every group's sufficient statistics are known (a format-3 store)."""
+        return bool(len(self) and np.isfinite(self.xtx).all() and np.isfinite(self.yty).all())
 
     @property
     def has_change_points(self) -> bool:
@@ -202,7 +223,12 @@ def store_from_results(results: "FitResults") -> ModelStore:
         df=(n - pd.to_numeric(sub[COEFFICIENT_COUNT]).to_numpy(np.int64)).astype(np.float64), sigma2=rse**2,
         beta=beta[ok], xtx_inv=inv[ok], lo=lo[ok], hi=hi[ok], change_points=cps,
         response_mean=per_group(results.response_mean), residual_lag1=per_group(results.residual_lag1),
-        shapes=_shapes(sub, cps) if results.change_points is not None else None)
+        shapes=_shapes(sub, cps) if results.change_points is not None else None,
+        weights=results.weights or "", weight_mean=per_group(results.weight_mean),
+        flags=pd.to_numeric(sub[FLAGS], errors="coerce").to_numpy(np.float64) if FLAGS in sub.columns else None,
+        xtx=per_group(None if results.sums is None else results.sums.xtx, (p, p)),
+        xty=per_group(None if results.sums is None else results.sums.xty, (p,)),
+        yty=per_group(None if results.sums is None else results.sums.yty))
 
 
 def _optional_slots(results: "FitResults") -> np.ndarray:
@@ -237,13 +263,14 @@ class StoreColumn:
 def store_layout(store: ModelStore) -> StoreLayout:
     """The store sheet's layout for this store."""
     return StoreLayout(k=len(store.group_columns), p=len(store.term_labels), m=len(store.sources),
-                       groups=len(store), extras=store.format == 2)
+                       groups=len(store), extras=store.format >= 2, sums=store.format >= 3)
 
 
 def store_settings(store: ModelStore) -> list[tuple[str, list]]:
     """The rows of the settings table: (setting, its values)."""
     values = ([store.format], [store.y], ["yes" if store.intercept else "no"], [store.level],
-              list(store.group_columns), list(store.sources), list(store.date_columns), [len(store)])
+              list(store.group_columns), list(store.sources), list(store.date_columns), [len(store)],
+              [store.weights] if store.weights else [])
     return list(zip(SETTING_NAMES, values))
 
 
@@ -261,8 +288,11 @@ def group_headers(store: ModelStore) -> list[str]:
     ours += [f"(X'X)⁻¹: {a} × {b}" for a in labels for b in labels]
     for c in store.sources:
         ours += [f"min: {c}", f"max: {c}"]
-    if store.format == 2:
+    if store.format >= 2:
         ours += list(EXTRA_HEADERS)
+    if store.format >= 3:
+        ours += [WEIGHT_MEAN_HEADER, FLAGS_HEADER, *(f"sum x·x: {a} × {b}" for a in labels for b in labels),
+                 *(f"sum x·y: {a}" for a in labels), "sum y·y"]
     keys = shown_names(store.group_columns, [GROUP_HEADER, *ours])
     return [cell_text(h) for h in (GROUP_HEADER, *keys, *ours)]
 
@@ -288,6 +318,14 @@ def group_columns(store: ModelStore, lay: StoreLayout) -> list[StoreColumn]:
                  StoreColumn(lay.col_extra(ABOVE_HEADER), "change point", store.change_points[:, 1]),
                  StoreColumn(lay.col_extra(MEAN_HEADER), "mean", np.asarray(store.response_mean, np.float64)),
                  StoreColumn(lay.col_extra(LAG1_HEADER), "lag-1", np.asarray(store.residual_lag1, np.float64))]
+    if lay.sums:
+        p = lay.p
+        xtx = np.asarray(store.xtx, np.float64).reshape(G, p * p)
+        cols += [StoreColumn(lay.col_weight_mean(), "weight mean", np.asarray(store.weight_mean, np.float64)),
+                 StoreColumn(lay.col_flags(), "flags", np.asarray(store.flags, np.float64))]
+        cols += [StoreColumn(lay.col_xtx(i, j), "sum", xtx[:, i * p + j]) for i in range(p) for j in range(p)]
+        cols += [StoreColumn(lay.col_xty(j), "sum", np.asarray(store.xty, np.float64)[:, j]) for j in range(p)]
+        cols += [StoreColumn(lay.col_yty(), "sum", np.asarray(store.yty, np.float64))]
     return cols
 
 
@@ -345,7 +383,7 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
     version = int(_number(settings["store format"][0]))
     if version not in FORMATS_READ:
         raise ResultsWorkbookError(f'"{name}" stores models in format {version}; this sheetfit reads formats '
-                                   f'{" and ".join(map(str, FORMATS_READ))}: fit again with this version')
+                                   f'{", ".join(map(str, FORMATS_READ[:-1]))} and {FORMATS_READ[-1]}: fit again with this version')
 
     def names(key: str) -> tuple[str, ...]:
         return tuple(_text(v) for v in settings.get(key, []) if _text(v))
@@ -357,7 +395,7 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
     h = first.index(GROUP_HEADER, end)
     body = [r for r in rows[h + 1:] if r and _text(r[0])]
     lay = StoreLayout(k=len(group_cols), p=len(term_table), m=len(source_columns(terms)), groups=len(body),
-                      extras=version >= 2)
+                      extras=version >= 2, sums=version >= 3)
     body = [(r + [None] * lay.width)[:lay.width] for r in body]
     nums = np.array([[_number(v) for v in r] for r in body], dtype=np.float64).reshape(len(body), lay.width)
     if not np.isfinite(nums[:, lay.col_n():lay.col_min(0)]).all():
@@ -370,17 +408,23 @@ def _parse_store(rows: list[list], name: str) -> ModelStore:
         n=nums[:, lay.col_n()].astype(np.int64), df=nums[:, lay.col_df()], sigma2=nums[:, lay.col_s2()],
         beta=nums[:, lay.coef_columns()], xtx_inv=nums[:, lay.inv_columns()].reshape(len(body), lay.p, lay.p),
         lo=nums[:, [lay.col_min(j) for j in range(lay.m)]], hi=nums[:, [lay.col_max(j) for j in range(lay.m)]],
-        **_extras(body, nums, lay))
+        weights=_text(settings["weights"][0]) if settings.get("weights") else "", **_extras(body, nums, lay))
 
 
 def _extras(body: list[list], nums: np.ndarray, lay: StoreLayout) -> dict[str, Any]:
     """The format-2 fields from the group rows (none from a format-1 store: they stay NaN)."""
     if not lay.extras:
         return {}
-    return {"change_points": nums[:, [lay.col_change_point(0), lay.col_change_point(1)]],
-            "response_mean": nums[:, lay.col_extra(MEAN_HEADER)],
-            "residual_lag1": nums[:, lay.col_extra(LAG1_HEADER)],
-            "shapes": tuple(_text(r[lay.col_extra(SHAPE_HEADER)]) for r in body)}
+    out = {"change_points": nums[:, [lay.col_change_point(0), lay.col_change_point(1)]],
+           "response_mean": nums[:, lay.col_extra(MEAN_HEADER)],
+           "residual_lag1": nums[:, lay.col_extra(LAG1_HEADER)],
+           "shapes": tuple(_text(r[lay.col_extra(SHAPE_HEADER)]) for r in body)}
+    if lay.sums:
+        p, G = lay.p, len(body)
+        out.update(weight_mean=nums[:, lay.col_weight_mean()], flags=nums[:, lay.col_flags()],
+                   xtx=nums[:, [lay.col_xtx(i, j) for i in range(p) for j in range(p)]].reshape(G, p, p),
+                   xty=nums[:, [lay.col_xty(j) for j in range(p)]], yty=nums[:, lay.col_yty()])
+    return out
 
 
 def _table(rows: list[list], first: list[str], i: int) -> tuple[int, list[list]]:

@@ -7,7 +7,10 @@ from the same positions. All rows and columns are 0-based.
 Format 1 (every run before change points, and every run without them) ends each group row with the
 observed min and max of every input. Format 2 (a change-point run) adds, after those, the group's
 shape, its two change points, the response mean and the residuals' lag-1 autocorrelation; every
-format-1 position stays where it was, so formulas pointing at them keep working.
+format-1 position stays where it was, so formulas pointing at them keep working. Format 3 adds the
+setting `weights` (the weights of a weighted fit, empty otherwise) and, after the format-2 columns,
+each group's weight mean, its number of flags and its sufficient statistics X'X, X'y and y'y (of
+√w·X and √w·y in a weighted fit): enough to compare a later run's fit of the same group with this one.
 """
 
 from __future__ import annotations
@@ -16,8 +19,8 @@ from dataclasses import dataclass
 
 STORE_SHEET = "model store"
 STORE_TITLE = "sheetfit model store"
-STORE_FORMAT = 2                # the newest format this sheetfit writes and reads
-FORMATS_READ = (1, 2)
+STORE_FORMAT = 3                # the newest format this sheetfit writes and reads
+FORMATS_READ = (1, 2, 3)
 STORE_NOTE = ("The fitted models, one row per group: the live prediction sheet and `sheetfit predict` read "
               "them from here. Do not edit, sort, insert or delete cells.")
 INACTIVE_NOTE = ("A group uses only the change-point terms of its shape: a term it does not use has "
@@ -27,7 +30,7 @@ TERM_HEADER = "coefficient"
 TERM_COLUMNS = (TERM_HEADER, "source column", "kind", "power")
 GROUP_HEADER = "group"
 SETTING_NAMES = ("store format", "response", "intercept", "confidence level", "group columns",
-                 "source columns", "date/time inputs", "fitted groups")
+                 "source columns", "date/time inputs", "fitted groups", "weights")
 # the format-2 columns after the observed ranges, in order
 SHAPE_HEADER = "shape"
 BELOW_HEADER = "change point of the 'below' term"
@@ -35,6 +38,8 @@ ABOVE_HEADER = "change point of the 'above' term"
 MEAN_HEADER = "response mean"
 LAG1_HEADER = "residual lag-1 autocorrelation"
 EXTRA_HEADERS = (SHAPE_HEADER, BELOW_HEADER, ABOVE_HEADER, MEAN_HEADER, LAG1_HEADER)
+WEIGHT_MEAN_HEADER = "weight mean"     # format 3, then the group's flags and the sums
+FLAGS_HEADER = "flags"
 
 TITLE_ROW = 0
 NOTE_ROW = 1
@@ -57,6 +62,7 @@ class StoreLayout:
     m: int
     groups: int = 0
     extras: bool = False
+    sums: bool = False             # format 3: weight mean and sufficient statistics after the extras
 
     @property
     def first_setting(self) -> int:
@@ -82,7 +88,8 @@ class StoreLayout:
 
     @property
     def width(self) -> int:
-        return 1 + self.k + 3 + self.p + self.p * self.p + 2 * self.m + (len(EXTRA_HEADERS) if self.extras else 0)
+        return (1 + self.k + 3 + self.p + self.p * self.p + 2 * self.m + (len(EXTRA_HEADERS) if self.extras else 0)
+                + (2 + self.p * self.p + self.p + 1 if self.sums else 0))
 
     def col_key(self, j: int) -> int: return 1 + j
     def col_n(self) -> int: return 1 + self.k
@@ -98,6 +105,17 @@ class StoreLayout:
         if not self.extras:
             raise KeyError(f"a format-1 store has no column {header!r}")
         return self.col_min(self.m) + EXTRA_HEADERS.index(header)
+
+    def col_weight_mean(self) -> int:
+        """The group's weight mean (format 3)."""
+        if not self.sums:
+            raise KeyError("a store before format 3 has no sufficient statistics")
+        return self.col_min(self.m) + len(EXTRA_HEADERS)
+
+    def col_flags(self) -> int: return self.col_weight_mean() + 1
+    def col_xtx(self, i: int, j: int) -> int: return self.col_weight_mean() + 2 + i * self.p + j
+    def col_xty(self, j: int) -> int: return self.col_weight_mean() + 2 + self.p * self.p + j
+    def col_yty(self) -> int: return self.col_weight_mean() + 2 + self.p * self.p + self.p
 
     def col_change_point(self, i: int) -> int:
         """The change point of the 'below' (i = 0) or the 'above' (i = 1) term."""

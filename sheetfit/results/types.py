@@ -45,6 +45,11 @@ class FitResults:
                   shape has none); None when the run has no change points
     response_mean (G,) mean of the response over the rows used (NaN when not fitted)
     residual_lag1 (G,) lag-1 autocorrelation of the residuals in row order (NaN when undefined)
+    weights       the weights of a weighted fit as written (COL, 1/COL, 1/COL^2); None when unweighted
+    weight_mean   (G,) mean of the given weights each group's were divided by (None when unweighted)
+    sums          each group's sufficient statistics X'X, X'y, y'y (model.sums.GroupSums), or None
+    comparison    the across-groups comparison (results.comparison.ComparisonTables), or None
+    changes       what changed since an earlier run (results.changes.RunChanges), or None
     """
 
     job: FitJob
@@ -65,6 +70,11 @@ class FitResults:
     change_points: np.ndarray | None = None
     response_mean: np.ndarray | None = None
     residual_lag1: np.ndarray | None = None
+    weights: str | None = None
+    weight_mean: np.ndarray | None = None
+    sums: Any = None
+    comparison: Any = None
+    changes: Any = None
 
     @property
     def number_columns(self) -> tuple[str, ...]:
