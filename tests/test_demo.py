@@ -28,6 +28,7 @@ ROOT = Path(__file__).resolve().parents[1]
 COMMITTED = ROOT / "workbooks" / demo.FILE_NAME
 JOB_FILE = ROOT / "workbooks" / "cold-storage-sites.toml"
 CAL_JOB_FILE = ROOT / "workbooks" / "lab-calibration.toml"
+CAL_WEIGHTED_JOB_FILE = ROOT / "workbooks" / "lab-calibration-weighted.toml"
 BEHAVIOUR = {site: how for site, _, how in demo.SITES}
 SITE_OF = {how: site for site, _, how in demo.SITES if how != "ok"}
 
@@ -279,9 +280,11 @@ def test_calibration_workbook_holds_the_frames(runs):
     assert list(sheets) == [cal.SHEET, cal.UNKNOWNS_SHEET]
     standards, unknowns = sheets[cal.SHEET], sheets[cal.UNKNOWNS_SHEET]
     assert standards[0] == cal.COLUMNS and unknowns[0] == cal.UNKNOWN_COLUMNS
-    want = [(n, d.to_pydatetime(), c, r, s) for n, d, c, r, s in runs.standards.itertuples(index=False)]
-    assert standards[1:] == want
-    assert unknowns[1:] == list(runs.unknowns.itertuples(index=False, name=None))
+    want = [(n, d.to_pydatetime(), c, r, s) for n, d, c, r, s, _ in runs.standards.itertuples(index=False)]
+    assert [row[:-1] for row in standards[1:]] == want
+    assert [row[:-1] for row in unknowns[1:]] == list(runs.unknowns.iloc[:, :-1].itertuples(index=False, name=None))
+    for rows, frame in ((standards, runs.standards), (unknowns, runs.unknowns)):   # xlsxwriter writes numbers
+        np.testing.assert_allclose([row[-1] for row in rows[1:]], frame[cal.WEIGHT], rtol=1e-15)  # to 16 digits
 
 
 def test_calibration_layout(runs):
@@ -406,3 +409,143 @@ def test_demo_command_writes_the_calibration_scenario(tmp_path):
     assert f"demo workbook: {tmp_path / cal.FILE_NAME}" in r.stdout
     assert f"results: {tmp_path / cal.RESULTS_NAME}" in r.stdout
     assert run_cli("demo", "--dir", tmp_path, "--scenario", "nowhere", cwd=tmp_path).returncode == 2
+
+
+# ── the calibration demo fitted with the method's weights ──
+
+SPREAD = INSTRUMENT_OF["growing spread"]
+VARIANCE = ("constant variance (Breusch–Pagan)", "constant variance (White)")
+
+
+@pytest.fixture(scope="module")
+def weighted_fit(tmp_path_factory):
+    """The calibration demo fitted through the public API with the sheet's Weight column."""
+    import sheetfit
+
+    workbook = cal.write_calibration_workbook(tmp_path_factory.mktemp("weighted") / cal.FILE_NAME)
+    job = cal.WEIGHTED_JOB
+    return sheetfit.fit_workbook(workbook, sheet=job["sheets"], group=job["group"], y=job["y"], x=job["x"],
+                                 weights=job["weights"])
+
+
+def test_weighted_job_file_is_the_demo_job_with_weights():
+    settings = load_job_file(CAL_WEIGHTED_JOB_FILE)
+    assert settings.pop("workbook") == cal.FILE_NAME
+    assert settings.pop("out") == cal.WEIGHTED_RESULTS_NAME
+    assert {k: tuple(v) if isinstance(v, list) else v for k, v in settings.items()} == cal.WEIGHTED_JOB
+    assert cal.WEIGHTED_JOB == {**cal.CALIBRATION_JOB, "weights": cal.WEIGHT}
+
+
+def test_weight_columns_follow_the_method(runs):
+    """Standards: 1/(1 + 0.5·c)² on the growing-spread instrument, 1 elsewhere. Unknowns: the same at the
+    provisional read-back value (unweighted line by numpy.polyfit, rounded to 0.01 mg/L, at least 0)."""
+    std = runs.standards
+    spread = (std[cal.INSTRUMENT] == SPREAD).to_numpy()
+    conc = std[cal.CONCENTRATION].to_numpy(float)
+    np.testing.assert_array_equal(std[cal.WEIGHT].to_numpy(float),
+                                  np.where(spread, 1.0 / (1.0 + cal.SPREAD_GROWTH * conc) ** 2, 1.0))
+    lines = lines_by_numpy(std)
+    unknowns = runs.unknowns
+    mine = unknowns[unknowns[cal.INSTRUMENT] == SPREAD]
+    b0, b1, _ = lines[SPREAD]
+    provisional = np.maximum(np.round((mine[cal.SIGNAL].to_numpy(float) - b0) / b1, 2), 0.0)
+    np.testing.assert_allclose(mine[cal.WEIGHT].to_numpy(float),
+                               1.0 / (1.0 + cal.SPREAD_GROWTH * provisional) ** 2, rtol=1e-12)
+    assert (unknowns.loc[unknowns[cal.INSTRUMENT] != SPREAD, cal.WEIGHT] == 1.0).all()
+    assert provisional.min() < 2.0 and provisional.max() > 10.0          # one low and one high sample
+
+
+def test_weighting_settles_the_growing_spread_and_leaves_the_rest(calibration_fit, weighted_fit, runs):
+    """Unweighted, Breusch–Pagan and White fail on the growing-spread instrument; weighted they pass, their
+    statistics those of statsmodels' het_breuschpagan and het_white on √w·e (WLS by statsmodels, weights
+    w/mean(w)). Every other instrument's weights are all 1, so its coefficients keep every bit."""
+    import statsmodels.api as sm
+    from statsmodels.stats.diagnostic import het_breuschpagan, het_white
+
+    def verdicts(fit):
+        c = fit.checks[(fit.checks[cal.INSTRUMENT] == SPREAD) & fit.checks["check"].isin(VARIANCE)]
+        return c.set_index("check")
+    assert (verdicts(calibration_fit)["verdict"] == "fail").all()
+    weighted = verdicts(weighted_fit)
+    assert (weighted["verdict"] == "pass").all()
+    rows = runs.standards[runs.standards[cal.INSTRUMENT] == SPREAD]
+    X = sm.add_constant(rows[cal.CONCENTRATION].to_numpy(float))
+    w = rows[cal.WEIGHT].to_numpy(float) / rows[cal.WEIGHT].mean()
+    wls = sm.WLS(rows[cal.SIGNAL].to_numpy(float), X, weights=w).fit()                # statsmodels WLS
+    e = np.sqrt(w) * wls.resid
+    for check, (stat, p, _, _) in zip(VARIANCE, (het_breuschpagan(e, X), het_white(e, X))):   # statsmodels
+        np.testing.assert_allclose(weighted.loc[check, ["statistic", "p-value"]].to_numpy(float), [stat, p],
+                                   rtol=1e-8)
+    coef = weighted_fit.coefficients
+    mine = coef[coef[cal.INSTRUMENT] == SPREAD]
+    np.testing.assert_allclose(mine["coefficient"].to_numpy(float), wls.params, rtol=1e-9)
+    np.testing.assert_allclose(mine["std error"].to_numpy(float), wls.bse, rtol=1e-9)
+    group = weighted_fit.groups.set_index(cal.INSTRUMENT).loc[SPREAD]
+    np.testing.assert_allclose(group["residual std error"], np.sqrt(wls.scale), rtol=1e-9)
+
+    def others(table):
+        return table[table[cal.INSTRUMENT] != SPREAD].reset_index(drop=True)
+    pd.testing.assert_frame_equal(others(weighted_fit.coefficients), others(calibration_fit.coefficients),
+                                  check_exact=True)
+    same = [c for c in calibration_fit.groups.columns if c != "reasons"]   # reasons quote p-values adjusted
+    pd.testing.assert_frame_equal(others(weighted_fit.groups)[same], others(calibration_fit.groups)[same],
+                                  check_exact=True)                        # across instruments
+
+
+def weighted_read_back(rows: pd.DataFrame, y0: float, m: float, w0_raw: float, level: float = 0.95
+                       ) -> tuple[float, float]:
+    """(x̂0, half-width) by the classical weighted inverse-prediction formula with weights scaled to
+    average 1: s_x0 = (s/|b1|)·√(1/(m·w0) + 1/Σw + (y0 − ȳw)²/(b1²·Σw(x − x̄w)²)) (Miller & Miller,
+    Statistics and Chemometrics for Analytical Chemistry, weighted regression), b0, b1, s from statsmodels WLS."""
+    import statsmodels.api as sm
+    from scipy import stats
+
+    x, y = rows[cal.CONCENTRATION].to_numpy(float), rows[cal.SIGNAL].to_numpy(float)
+    raw = rows[cal.WEIGHT].to_numpy(float)
+    w = raw / raw.mean()
+    fit = sm.WLS(y, sm.add_constant(x), weights=w).fit()
+    b0, b1 = fit.params
+    x_bar = (w * x).sum() / w.sum()
+    y_bar = (w * y).sum() / w.sum()
+    s_x0 = np.sqrt(fit.scale) / abs(b1) * np.sqrt(1.0 / (m * w0_raw / raw.mean()) + 1.0 / w.sum()
+                                                  + (y0 - y_bar) ** 2 / (b1**2 * (w * (x - x_bar) ** 2).sum()))
+    return (y0 - b0) / b1, float(stats.t.ppf(0.5 + level / 2.0, len(x) - 2) * s_x0)
+
+
+def test_weighted_job_file_runs_and_reads_unknowns_back(tmp_path, runs):
+    """The weighted job file through the real CLI, then `predict --inverse` on the Unknowns sheet: the
+    growing-spread instrument's samples match the weighted formula; its low sample's interval is narrower
+    and its high sample's wider than unweighted (built in: scatter grows with concentration), and
+    workbooks/README.md quotes both intervals."""
+    import sheetfit
+    from tests.conftest import run_cli
+
+    out = tmp_path / cal.WEIGHTED_RESULTS_NAME
+    fit = run_cli("fit", "--job", CAL_WEIGHTED_JOB_FILE, "--out", out, cwd=tmp_path)
+    assert fit.returncode == 0, fit.stderr
+    predicted = tmp_path / "weighted-read-back.xlsx"
+    back = run_cli("predict", out, CAL_COMMITTED, "--sheet", cal.UNKNOWNS_SHEET, "--inverse", "--replicates",
+                   cal.MEASUREMENTS, "--out", predicted, cwd=tmp_path)
+    assert back.returncode == 0, back.stderr
+    sheet = cell_values(predicted)["predictions"]
+    table = pd.DataFrame(sheet[1:], columns=sheet[0])
+    table = table[table[cal.INSTRUMENT] == SPREAD].set_index(cal.SAMPLE)
+    assert len(table) >= 2
+    rows = runs.standards[runs.standards[cal.INSTRUMENT] == SPREAD]
+    plain = rows.assign(**{cal.WEIGHT: 1.0})
+    unweighted = sheetfit.read_back(sheetfit.fit_workbook(CAL_COMMITTED, sheet=cal.SHEET, group=cal.INSTRUMENT,
+                                                          y=cal.SIGNAL, x=cal.CONCENTRATION),
+                                    runs.unknowns, replicates=cal.MEASUREMENTS).set_axis(runs.unknowns[cal.SAMPLE])
+    readme = (ROOT / "workbooks" / "README.md").read_text(encoding="utf-8")
+    low, high = table[cal.SIGNAL].idxmin(), table[cal.SIGNAL].idxmax()
+    for sample, row in table.iterrows():
+        x0, half = weighted_read_back(rows, row[cal.SIGNAL], row[cal.MEASUREMENTS], row[cal.WEIGHT])
+        np.testing.assert_allclose([row["read-back input value"], row["read-back high"] - row["read-back input value"]],
+                                   [x0, half], rtol=1e-9)
+        x0_plain, half_plain = weighted_read_back(plain, row[cal.SIGNAL], row[cal.MEASUREMENTS], 1.0)
+        np.testing.assert_allclose(unweighted.loc[sample, ["read-back input value", "read-back high"]].to_numpy(float),
+                                   [x0_plain, x0_plain + half_plain], rtol=1e-9)   # the same formula, w = 1
+        if sample in (low, high):
+            assert (half < half_plain) == (sample == low)
+            for value, width in ((x0, half), (x0_plain, half_plain)):
+                assert f"{value - width:.3f}–{value + width:.3f}" in readme, (sample, value, width)

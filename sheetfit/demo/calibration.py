@@ -3,7 +3,9 @@
 Twelve fictional instruments each measure a fictional analyte (quillate, in mg/L) on a run of
 standards in triplicate, blank included. Most give a straight line with constant scatter; four are
 built to misbehave in one way each, so the calibration results have something to show. A second
-sheet holds unknown samples to read back through the lines. Regenerated from the seed, byte for byte.
+sheet holds unknown samples to read back through the lines. Both sheets carry the weight the (invented)
+method prescribes for each row: 1, except on the instrument whose scatter grows with concentration.
+Regenerated from the seed, byte for byte.
 """
 
 from __future__ import annotations
@@ -21,14 +23,16 @@ SHEET = "Standards"
 UNKNOWNS_SHEET = "Unknowns"
 FILE_NAME = "lab-calibration.xlsx"
 RESULTS_NAME = "lab-calibration-fit.xlsx"
+WEIGHTED_RESULTS_NAME = "lab-calibration-weighted-fit.xlsx"
+WEIGHT_FORMAT = "0.00000"                   # weights are written at full precision; five decimals are shown
 CREATED = dt.datetime(2025, 1, 1, 0, 0, 0)  # fixed creation time → reproducible bytes
 FIRST_RUN = dt.date(2025, 3, 3)             # the first instrument's run; one working day apart after it
 
 INSTRUMENT, RUN_DATE, CONCENTRATION = "Instrument", "Run date", "Concentration (mg/L)"
-REPLICATE, SIGNAL = "Replicate", "Signal"
+REPLICATE, SIGNAL, WEIGHT = "Replicate", "Signal", "Weight"
 SAMPLE, MEASUREMENTS = "Sample ID", "Measurements"
-COLUMNS = (INSTRUMENT, RUN_DATE, CONCENTRATION, REPLICATE, SIGNAL)
-UNKNOWN_COLUMNS = (INSTRUMENT, SAMPLE, SIGNAL, MEASUREMENTS)
+COLUMNS = (INSTRUMENT, RUN_DATE, CONCENTRATION, REPLICATE, SIGNAL, WEIGHT)
+UNKNOWN_COLUMNS = (INSTRUMENT, SAMPLE, SIGNAL, MEASUREMENTS, WEIGHT)
 
 # The job the calibration demo runs; workbooks/lab-calibration.toml holds the same settings.
 CALIBRATION_JOB: dict[str, Any] = {
@@ -38,6 +42,8 @@ CALIBRATION_JOB: dict[str, Any] = {
     "x": (CONCENTRATION,),
     "calibration": True,
 }
+# The same job fitted with the method's weights; workbooks/lab-calibration-weighted.toml holds it.
+WEIGHTED_JOB: dict[str, Any] = {**CALIBRATION_JOB, "weights": WEIGHT}
 
 # Standard levels (mg/L), blank first. Ordinary runs use eight or seven; one instrument only three.
 EIGHT_LEVELS = (0.0, 0.5, 1.0, 2.0, 5.0, 10.0, 15.0, 20.0)
@@ -68,6 +74,8 @@ SPREAD_GROWTH = 0.5       # "growing spread": scatter at c mg/L is (1 + 0.5·c) 
 UNKNOWN_INSTRUMENT = "Quarrybank"  # named on the Unknowns sheet, absent from the standards
 ABOVE_RANGE = ("Birchwell", 27.0)   # a sample of this instrument at 27 mg/L, beyond its top standard (20 mg/L)
 BELOW_LOQ = ("Hollinbrae", 0.5)     # a sample of this instrument at half its (true) limit of quantification
+LOW_SAMPLE = ("Gorsemoor", 1.0)     # a low sample (mg/L) on the growing-spread instrument, beside its high ones
+PROVISIONAL_DECIMALS = 2            # the provisional read-back value behind an unknown's weight, in 0.01 mg/L
 
 
 @dataclass(frozen=True)
@@ -126,6 +134,17 @@ def _scatter(line: Line, behaviour: str, concentration: Any) -> Any:
     return np.full(x.shape, line.slope * line.scatter)
 
 
+def method_weight(behaviour: str, concentration: Any) -> Any:
+    """The weight the method prescribes at each concentration: 1/(1 + 0.5·c)², the inverse of the
+    validated variance, on the growing-spread instrument; 1 (an ordinary fit) on every other."""
+    import numpy as np
+
+    x = np.asarray(concentration, dtype=np.float64)
+    if behaviour == "growing spread":
+        return 1.0 / (1.0 + SPREAD_GROWTH * x) ** 2
+    return np.ones(x.shape)
+
+
 def _standards(lines: dict[str, Line], rng: Any) -> pd.DataFrame:
     """The standards: per instrument, its levels in increasing order, each measured REPLICATES times."""
     import numpy as np
@@ -137,33 +156,66 @@ def _standards(lines: dict[str, Line], rng: Any) -> pd.DataFrame:
         signal = true_signal(lines[name], behaviour, x) + rng.normal(0.0, 1.0, len(x)) * _scatter(
             lines[name], behaviour, x)
         replicate = np.tile(np.arange(1, REPLICATES + 1), len(levels))
-        rows += [(name, pd.Timestamp(day), float(x[i]), int(replicate[i]), round(float(signal[i]), 1))
-                 for i in range(len(x))]
+        weight = method_weight(behaviour, x)
+        rows += [(name, pd.Timestamp(day), float(x[i]), int(replicate[i]), round(float(signal[i]), 1),
+                  float(weight[i])) for i in range(len(x))]
     return pd.DataFrame(rows, columns=list(COLUMNS))
 
 
-def _unknowns(lines: dict[str, Line], rng: Any) -> pd.DataFrame:
+def _unknowns(lines: dict[str, Line], standards: pd.DataFrame, rng: Any) -> pd.DataFrame:
     """Two to four samples per instrument, each the mean of 1–3 measurements, plus the special cases:
-    one above the calibrated range, one below the limit of quantification, one of an unknown instrument."""
+    one above the calibrated range, one below the limit of quantification, one low sample on the
+    growing-spread instrument, and one of an unknown instrument. The low sample's draws come last,
+    so every other sample keeps the values it had before that sample was added."""
     import numpy as np
     import pandas as pd
 
-    rows: list[tuple[str, str, float, int]] = []
-    for name, levels, behaviour in INSTRUMENTS:
-        line = lines[name]
+    drawn: list[tuple[str, float, int, float]] = []     # (instrument, concentration, measurements, z)
+    for name, levels, _ in INSTRUMENTS:
         top = max(levels)
         conc = list(rng.uniform(0.1 * top, 0.9 * top, int(rng.integers(2, 5))))
         if name == ABOVE_RANGE[0]:
             conc.append(ABOVE_RANGE[1])
         if name == BELOW_LOQ[0]:
-            conc.append(BELOW_LOQ[1] * 10.0 * line.scatter)     # 10·σ/slope in mg/L is 10·scatter
-        for c in conc:
-            m = int(rng.integers(1, 4))
-            noise = rng.normal(0.0, 1.0) * float(_scatter(line, behaviour, c)) / np.sqrt(m)
-            rows.append((name, f"U-{len(rows) + 1:03d}", round(float(true_signal(line, behaviour, c)) + noise, 1), m))
+            conc.append(BELOW_LOQ[1] * 10.0 * lines[name].scatter)   # 10·σ/slope in mg/L is 10·scatter
+        drawn += [(name, c, int(rng.integers(1, 4)), float(rng.normal(0.0, 1.0))) for c in conc]
+    low = (LOW_SAMPLE[0], LOW_SAMPLE[1], int(rng.integers(1, 4)), float(rng.normal(0.0, 1.0)))
+    after = max(i for i, d in enumerate(drawn) if d[0] == LOW_SAMPLE[0])
+    drawn.insert(after + 1, low)
+    behaviour = {name: how for name, _, how in INSTRUMENTS}
+    rows: list[tuple[str, str, float, int]] = []
+    for name, c, m, z in drawn:
+        line, how = lines[name], behaviour[name]
+        noise = z * float(_scatter(line, how, c)) / np.sqrt(m)
+        rows.append((name, f"U-{len(rows) + 1:03d}", round(float(true_signal(line, how, c)) + noise, 1), m))
     like = lines[INSTRUMENTS[0][0]]                               # a plausible signal, for no known line
     rows.append((UNKNOWN_INSTRUMENT, f"U-{len(rows) + 1:03d}", round(like.blank + 8.0 * like.slope, 1), 2))
-    return pd.DataFrame(rows, columns=list(UNKNOWN_COLUMNS))
+    frame = pd.DataFrame(rows, columns=list(UNKNOWN_COLUMNS[:-1]))
+    return frame.assign(**{WEIGHT: sample_weights(frame, standards)})
+
+
+def provisional_read_back(unknowns: pd.DataFrame, standards: pd.DataFrame) -> Any:
+    """Each sample's concentration read back through its instrument's unweighted straight line
+    (numpy least squares), rounded to PROVISIONAL_DECIMALS and never below 0; NaN for no known line."""
+    import numpy as np
+
+    out = np.full(len(unknowns), np.nan)
+    for name, rows in standards.groupby(INSTRUMENT, sort=False):
+        slope, constant = np.polyfit(rows[CONCENTRATION].to_numpy(float), rows[SIGNAL].to_numpy(float), 1)
+        here = (unknowns[INSTRUMENT] == name).to_numpy()
+        out[here] = (unknowns.loc[here, SIGNAL].to_numpy(float) - constant) / slope
+    return np.maximum(np.round(out, PROVISIONAL_DECIMALS), 0.0)
+
+
+def sample_weights(unknowns: pd.DataFrame, standards: pd.DataFrame) -> Any:
+    """Each sample's weight under the method, taken at its provisional (unweighted) read-back value;
+    1 where the instrument's weights are all 1 or the instrument is unknown."""
+    import numpy as np
+
+    behaviour = {name: how for name, _, how in INSTRUMENTS}
+    level = provisional_read_back(unknowns, standards)
+    how = unknowns[INSTRUMENT].map(behaviour).fillna("ok").to_numpy(dtype=object)
+    return np.array([float(method_weight(h, c)) for h, c in zip(how, level)])
 
 
 def generate_calibration(seed: int = SEED) -> CalibrationRuns:
@@ -173,7 +225,7 @@ def generate_calibration(seed: int = SEED) -> CalibrationRuns:
     rng = np.random.default_rng(seed)
     lines = _lines(rng)
     standards = _standards(lines, rng)
-    return CalibrationRuns(standards=standards, unknowns=_unknowns(lines, rng))
+    return CalibrationRuns(standards=standards, unknowns=_unknowns(lines, standards, rng))
 
 
 def write_calibration_workbook(path: Path | str, seed: int = SEED) -> Path:
@@ -206,24 +258,28 @@ def _write_standards(book: Any, sheet: Any, frame: pd.DataFrame) -> None:
     date_fmt = book.add_format({"num_format": "yyyy-mm-dd"})
     conc_fmt = book.add_format({"num_format": "0.00"})
     signal_fmt = book.add_format({"num_format": "#,##0.0"})
+    weight_fmt = book.add_format({"num_format": WEIGHT_FORMAT})
     sheet.write_row(0, 0, COLUMNS, head)
-    for r, (name, day, conc, rep, signal) in enumerate(frame.itertuples(index=False), start=1):
+    for r, (name, day, conc, rep, signal, weight) in enumerate(frame.itertuples(index=False), start=1):
         sheet.write_string(r, 0, name)
         sheet.write_datetime(r, 1, day.to_pydatetime(), date_fmt)
         sheet.write_number(r, 2, conc, conc_fmt)
         sheet.write_number(r, 3, rep)
         sheet.write_number(r, 4, signal, signal_fmt)
-    _finish(sheet, len(frame), (13, 11, 20, 10, 11))
+        sheet.write_number(r, 5, weight, weight_fmt)
+    _finish(sheet, len(frame), (13, 11, 20, 10, 11, 10))
 
 
 def _write_unknowns(book: Any, sheet: Any, frame: pd.DataFrame) -> None:
-    """The unknowns sheet: instrument, sample, mean signal and how many measurements it averages."""
+    """The unknowns sheet: instrument, sample, mean signal, how many measurements it averages, its weight."""
     head = book.add_format({"bold": True, "bottom": 1})
     signal_fmt = book.add_format({"num_format": "#,##0.0"})
+    weight_fmt = book.add_format({"num_format": WEIGHT_FORMAT})
     sheet.write_row(0, 0, UNKNOWN_COLUMNS, head)
-    for r, (name, sample, signal, m) in enumerate(frame.itertuples(index=False), start=1):
+    for r, (name, sample, signal, m, weight) in enumerate(frame.itertuples(index=False), start=1):
         sheet.write_string(r, 0, name)
         sheet.write_string(r, 1, sample)
         sheet.write_number(r, 2, signal, signal_fmt)
         sheet.write_number(r, 3, m)
-    _finish(sheet, len(frame), (13, 11, 11, 14))
+        sheet.write_number(r, 4, weight, weight_fmt)
+    _finish(sheet, len(frame), (13, 11, 11, 14, 10))
