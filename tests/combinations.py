@@ -1,7 +1,6 @@
 """The combination matrix behind tests/test_combinations.py: its dimensions, a deterministic
-all-pairs covering design over them (impossible pairs left out), seeded data per case, the input
-files in every format, and the per-group statsmodels reference fit with its brute-force
-change-point search (the oracle).
+all-pairs covering design over them (impossible pairs left out), seeded data per case and the input
+files in every format. The per-group reference (the oracle) lives in tests/combination_oracle.py.
 
 Data are invented (seeded numpy); only the reference values come from statsmodels and scipy.
 `python -m tests.combinations` prints the cases of the design.
@@ -21,16 +20,15 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import statsmodels.api as sm
 
 from tests.corpus import writers
 
 # ---------------------------------------------------------------- the dimensions
 # One entry per dimension; a new level joins the matrix by being added to its list (and, for a new
-# term kind, to TERMS, REFERENCE_COLUMNS and SOURCE below). The design below covers every possible
-# pair of levels.
+# term kind, to TERMS, REFERENCE_COLUMNS and SOURCE below; for a new --weights level, to WEIGHTS). The
+# design below covers every possible pair of levels.
 DIMENSIONS: dict[str, list] = {
-    "term": ["plain", "power", "log", "sqrt", "date"],       # kind of the second input term (TERMS)
+    "term": ["plain", "power", "log", "sqrt", "date", "one"],  # kind of the input terms (TERMS)
     "sizes": ["equal", "unequal", "tiny", "one"],            # group sizes (Case.group_sizes)
     "intercept": [True, False],                              # intercept= / --no-intercept
     "order": [False, True],                                  # order="Seq" / --order Seq, rows shuffled in the file
@@ -39,24 +37,47 @@ DIMENSIONS: dict[str, list] = {
     "format": ["xlsx", "csv", "ods", "xls"],                 # input file format (write_input)
     "route": ["api", "cli"],                                 # fit_workbook + write_results, or the real CLI
     "change_point": ["none", "heating", "two-slopes", "auto", "heating-cooling"],  # change_point= / --change-point
+    "weights": ["none", "1/Pallets^2", "Weight"],            # weights= / --weights (WEIGHTS)
+    "calibration": [False, True],                            # calibration= / --calibration
 }
-# Pairs of levels no run can have: neither required of the design nor generated. README: --change-point
-# needs the constant (with --no-intercept it is refused with a JobError).
+# Pairs of levels no run can have: neither required of the design nor generated. Each is refused with a
+# JobError (README): --change-point needs the constant and takes no --weights; --calibration needs one
+# plain --x column with the constant and no change point.
 IMPOSSIBLE: list[tuple[str, object, str, object]] = [
-    ("intercept", False, "change_point", cp) for cp in DIMENSIONS["change_point"] if cp != "none"]
+    *(("intercept", False, "change_point", cp) for cp in DIMENSIONS["change_point"] if cp != "none"),
+    *(("weights", w, "change_point", cp) for w in DIMENSIONS["weights"] if w != "none"
+      for cp in DIMENSIONS["change_point"] if cp != "none"),
+    ("calibration", True, "intercept", False),
+    *(("calibration", True, "term", t) for t in DIMENSIONS["term"] if t != "one"),
+    *(("calibration", True, "change_point", cp) for cp in DIMENSIONS["change_point"] if cp != "none"),
+]
 PREFER = {"route": "api"}     # where pairs allow: a CLI case starts a process (about 3 s more per case)
+DESIGN_SEED = 2021            # of the seeds 2000–2059, the design with the fewest CLI cases (6: one per term kind)
 
-# Columns of every input file. Site: group key; Seq: the sequence (time order) of the rows; Day: a date.
-GROUP, SEQ, DAY, Y = "Site", "Seq", "Day", "kWh"
-HEADER = [GROUP, SEQ, DAY, "CDD", "Pallets", Y]
+# Columns of every input file. Site: group key; Seq: the sequence (time order) of the rows; Day: a date;
+# Weight: positive row weights (some zero or negative where the case weights by it: WEIGHT_PROBLEMS).
+GROUP, SEQ, DAY, WEIGHT, Y = "Site", "Seq", "Day", "Weight", "kWh"
+HEADER = [GROUP, SEQ, DAY, "CDD", "Pallets", WEIGHT, Y]
 
-TERMS: dict[str, list[str]] = {          # the --x terms of each term kind (two inputs: VIF applies)
+TERMS: dict[str, list[str]] = {          # the --x terms of each term kind (two inputs: VIF applies, but to "one")
     "plain": ["CDD", "Pallets"],
     "power": ["CDD", "CDD^2"],
     "log": ["CDD", "log(Pallets)"],
     "sqrt": ["CDD", "sqrt(Pallets)"],
     "date": ["CDD", DAY],
+    "one": ["CDD"],                      # a straight line in one input: what --calibration needs
 }
+# the input levels of a one-input line without change points: a calibration run's standards, a blank
+# (0) among them, repeated so that groups of more than 7 rows have replicates (lack of fit runs)
+STANDARDS = np.array([0.0, 1.0, 2.0, 5.0, 10.0, 20.0, 30.0])
+# each --weights level: 1/Pallets^2 a function of an input (of a number column that is no input where the
+# terms leave Pallets out), Weight a plain column
+WEIGHTS = {"1/Pallets^2": ("Pallets", 2), "Weight": (WEIGHT, 0)}     # level → (column, inverse power)
+# where the case weights by the Weight column: extra rows in S01 and S02 (group index 0, 1) whose weight is
+# not positive (README: such a row is not used, with a reason); S03's weights are all equal (README: that
+# group gets the ordinary fit)
+WEIGHT_PROBLEMS = {0: [0.0, -1.5], 1: [0.0]}
+EQUAL_WEIGHT_GROUP, EQUAL_WEIGHT = 2, 2.5
 
 TEMPERATURE = "CDD"     # the first plain-column --x of every term kind: the change-point input by default (README)
 # the temperature part of y for each shape of the data: README's shapes with change points at 16 (11 and 21)
@@ -185,12 +206,16 @@ class Case:
     format: str
     route: str
     change_point: str = "none"
+    weights: str = "none"
+    calibration: bool = False
 
     @property
     def id(self) -> str:
+        weights = "unweighted" if self.weights == "none" else "w_" + self.weights.replace("1/", "inv_").replace("^", "")
         return "-".join([self.term, self.sizes, "icpt" if self.intercept else "noicpt",
                          "order" if self.order else "roworder", f"obs_{self.observations}", self.inference,
-                         self.format, self.route, f"cp_{self.change_point}"])
+                         self.format, self.route, f"cp_{self.change_point}", weights,
+                         "calib" if self.calibration else "nocalib"])
 
     @property
     def seed(self) -> int:
@@ -221,7 +246,8 @@ class Case:
         """Keyword settings of fit_workbook."""
         return {"y": Y, "x": self.terms, "group": self.group, "intercept": self.intercept,
                 "order": SEQ if self.order else None, "observations": self.observations,
-                "inference": self.inference, "change_point": self.change_point}
+                "inference": self.inference, "change_point": self.change_point,
+                "weights": None if self.weights == "none" else self.weights, "calibration": self.calibration}
 
     def cli_args(self) -> list[str]:
         """The same settings as `sheetfit fit` options."""
@@ -236,15 +262,28 @@ class Case:
             args += ["--order", SEQ]
         if self.change_point != "none":
             args += ["--change-point", self.change_point]
+        if self.weights != "none":
+            args += ["--weights", self.weights]
+        if self.calibration:
+            args.append("--calibration")
         return args + ["--observations", self.observations, "--inference", self.inference]
 
     def data_shape(self, g: int) -> str:
         """The shape of the temperature part of group g's data (TEMPERATURE_PART)."""
         return {"none": "line", "auto": AUTO_DATA[g % len(AUTO_DATA)]}.get(self.change_point, self.change_point)
 
+    @property
+    def standards(self) -> bool:
+        """Whether the temperature takes the STANDARDS' levels (a one-input line without change points)."""
+        return self.term == "one" and self.change_point == "none"
+
+    def weight_problems(self, g: int) -> list[float]:
+        """The not-positive weights of group g's extra rows (only where the case weights by WEIGHT)."""
+        return WEIGHT_PROBLEMS.get(g, []) if self.weights == WEIGHT else []
+
 
 def cases() -> list[Case]:
-    return [Case(**c) for c in all_pairs(DIMENSIONS, impossible=IMPOSSIBLE, prefer=PREFER)]
+    return [Case(**c) for c in all_pairs(DIMENSIONS, seed=DESIGN_SEED, impossible=IMPOSSIBLE, prefer=PREFER)]
 
 
 # ---------------------------------------------------------------- seeded data
@@ -253,36 +292,32 @@ def make_table(case: Case) -> pd.DataFrame:
     """The rows of the input file, in file order (seeded by the case id).
 
     Per group: inputs on different scales, a temperature part of the case's shape (a clear bend in
-    CDD for change-point cases), errors that are heteroscedastic (group 1), AR(1) along the
-    sequence (group 2) or plain (group 3), so robust std errors come into play where groups are big
-    enough. Groups interleave in the file; with an order column the rows are shuffled and Seq gives
-    the sequence, without one the file order is the sequence.
+    CDD for change-point cases; the STANDARDS' levels for a one-input line), errors that are
+    heteroscedastic (group 1), AR(1) along the sequence (group 2) or plain (group 3), so robust std
+    errors come into play where groups are big enough, and positive weights (all equal in group 3, a
+    few extra rows with weights that are not positive where the case weights by them). Groups
+    interleave in the file; with an order column the rows are shuffled and Seq gives the sequence,
+    without one the file order is the sequence.
     """
     rng = np.random.default_rng(case.seed)
     parts = []
     for g, n in enumerate(case.group_sizes()):
         extra = 1 if (g == 0 and case.term in BAD_VALUE) else 0
-        m = n + extra
+        bad_weights = case.weight_problems(g)
+        m = n + extra + len(bad_weights)
         cdd = rng.uniform(1.0, 30.0, m)
+        if case.standards:
+            cdd = rng.permutation(np.resize(STANDARDS, m))
         pallets = rng.uniform(5.0, 200.0, m)
         offsets = np.sort(rng.choice(4 * m, size=m, replace=False)) + 11 * g
         days = [FIRST_DAY + dt.timedelta(days=int(o)) for o in offsets]
         second = {"plain": pallets, "power": cdd**2, "log": np.log(pallets), "sqrt": np.sqrt(pallets),
-                  "date": (offsets - offsets.min()).astype(float)}[case.term]
-        slope2 = {"plain": 0.4, "power": -0.08, "log": 12.0, "sqrt": 2.5, "date": 0.3}[case.term]
-        kind = g % 3
-        if kind == 0:                                      # spread grows with CDD
-            err = rng.normal(size=m) * 0.004 * cdd**2.5
-        elif kind == 1:                                    # AR(1) along the sequence
-            e = rng.normal(scale=2.0, size=m)
-            err = np.empty(m)
-            err[0] = e[0]
-            for i in range(1, m):
-                err[i] = 0.9 * err[i - 1] + e[i]
-        else:
-            err = rng.normal(scale=2.0, size=m)
-        y = 40.0 * case.intercept + TEMPERATURE_PART[case.data_shape(g)](cdd) + slope2 * second + err
-        frame = pd.DataFrame({GROUP: f"S{g + 1:02d}", DAY: days, "CDD": cdd, "Pallets": pallets, Y: y})
+                  "date": (offsets - offsets.min()).astype(float), "one": np.zeros(m)}[case.term]
+        slope2 = {"plain": 0.4, "power": -0.08, "log": 12.0, "sqrt": 2.5, "date": 0.3, "one": 0.0}[case.term]
+        y = 40.0 * case.intercept + TEMPERATURE_PART[case.data_shape(g)](cdd) + slope2 * second + _errors(rng, g, cdd)
+        weight = np.full(m, EQUAL_WEIGHT) if g == EQUAL_WEIGHT_GROUP else rng.uniform(0.5, 4.0, m)
+        weight[m - len(bad_weights):] = bad_weights           # extra rows at the end of the group's sequence
+        frame = pd.DataFrame({GROUP: f"S{g + 1:02d}", DAY: days, "CDD": cdd, "Pallets": pallets, WEIGHT: weight, Y: y})
         if extra:
             frame.loc[m // 2, "Pallets"] = BAD_VALUE[case.term]
         frame["_time"] = np.cumsum(rng.exponential(size=m))
@@ -294,10 +329,26 @@ def make_table(case: Case) -> pd.DataFrame:
     return table[HEADER].reset_index(drop=True)
 
 
+def _errors(rng: np.random.Generator, g: int, cdd: np.ndarray) -> np.ndarray:
+    """Group g's errors: spread growing with CDD (g mod 3 = 0), AR(1) along the sequence (1) or plain (2)."""
+    m = len(cdd)
+    kind = g % 3
+    if kind == 0:
+        return rng.normal(size=m) * 0.004 * cdd**2.5
+    if kind == 1:
+        e = rng.normal(scale=2.0, size=m)
+        err = np.empty(m)
+        err[0] = e[0]
+        for i in range(1, m):
+            err[i] = 0.9 * err[i - 1] + e[i]
+        return err
+    return rng.normal(scale=2.0, size=m)
+
+
 # ---------------------------------------------------------------- input files
 
 def _rows(table: pd.DataFrame) -> list[list]:
-    return [[r[GROUP], int(r[SEQ]), r[DAY], float(r["CDD"]), float(r["Pallets"]), float(r[Y])]
+    return [[r[GROUP], int(r[SEQ]), r[DAY], float(r["CDD"]), float(r["Pallets"]), float(r[WEIGHT]), float(r[Y])]
             for r in table.to_dict("records")]
 
 
@@ -348,118 +399,6 @@ def convert_to_xls(sources: list[Path], outdir: Path) -> None:
     subprocess.run([soffice(), "--headless", f"-env:UserInstallation=file://{outdir}/profile", "--convert-to",
                     "xls", "--outdir", str(outdir), *map(str, sources)], check=True, capture_output=True,
                    timeout=300)
-
-
-# ---------------------------------------------------------------- the oracle
-
-@dataclass(frozen=True)
-class Shape:
-    """A group's shape as sheetfit reports it: 'line' or a README shape, with τ of the max(0, τ − T)
-    column (`below`) and of the max(0, T − τ) column (`above`); NaN where the shape has none."""
-
-    name: str = "line"
-    below: float | np.ndarray = np.nan
-    above: float | np.ndarray = np.nan
-
-    @property
-    def change_points(self) -> int:
-        return CHANGE_POINTS.get(self.name, 0)
-
-
-def temperature_columns(t: np.ndarray, shape: Shape) -> list[np.ndarray]:
-    """README: a shape's columns in place of T, max(0, τ − T) before max(0, T − τ); T itself for a line."""
-    cols = []
-    if shape.name in ("heating", "two-slopes", "heating-cooling"):
-        cols.append(np.maximum(0.0, shape.below - t))
-    if shape.name in ("cooling", "two-slopes", "heating-cooling"):
-        cols.append(np.maximum(0.0, t - shape.above))
-    return cols or [t]
-
-
-@dataclass
-class GroupReference:
-    """One group's usable rows in sequence, its design and its statsmodels OLS fit."""
-
-    key: str | None
-    rows: pd.DataFrame          # usable rows in the order the fit sees them (file rows in `_file_row`)
-    X: np.ndarray               # design as fitted (intercept column first when there is one)
-    fit: object                 # statsmodels RegressionResults, change points counted in its df
-    dropped: int                # rows of the group the model could not use
-    shape: Shape                # the change-point shape the design was built at
-    sources: list[str]          # the input of every non-constant design column (for the GVIF)
-    others: np.ndarray          # the design without the temperature's columns (the brute-force search)
-
-    @property
-    def k(self) -> int:
-        return self.X.shape[1]
-
-    @property
-    def c(self) -> int:
-        return self.shape.change_points
-
-
-def reference_fits(case: Case, table: pd.DataFrame, shapes: dict | None = None) -> list[GroupReference]:
-    """statsmodels OLS (the reference implementation) of every group, in order of first appearance, at
-    the shape and change points `shapes` gives per group key (sheetfit's; a straight line without)."""
-    table = table.assign(_file_row=np.arange(2, len(table) + 2))
-    keyed = table.groupby(GROUP, sort=False) if case.group else [(None, table)]
-    out = []
-    for key, g in keyed:
-        shape = (shapes or {}).get(key, Shape()) if case.change_point != "none" else Shape()
-        with np.errstate(divide="ignore", invalid="ignore"):     # log(0) = −inf, sqrt(−3.5) = NaN
-            plain = np.column_stack([REFERENCE_COLUMNS[t](g) for t in case.terms])
-        ok = np.isfinite(plain).all(axis=1)
-        rows, plain = g.loc[ok].copy(), plain[ok]
-        seq = rows[SEQ].to_numpy() if case.order else rows["_file_row"].to_numpy()
-        sort = np.argsort(seq, kind="stable")
-        rows, plain = rows.iloc[sort], plain[sort]
-        cols, sources, others = [], [], [np.ones(len(rows))] if case.intercept else []
-        for j, term in enumerate(case.terms):
-            own = temperature_columns(plain[:, j], shape) if term == TEMPERATURE else [plain[:, j]]
-            cols += own
-            sources += [SOURCE[term]] * len(own)
-            others += [] if term == TEMPERATURE else own
-        X = np.column_stack(cols)
-        if case.intercept:
-            X = sm.add_constant(X, has_constant="add")
-        n, k = X.shape
-        model = sm.OLS(rows[Y].to_numpy(float), X)
-        # README: change points count as parameters, residual df n − k − c. statsmodels keeps degrees of
-        # freedom set before fit() (RegressionModel.fit fills them only while None) and takes from them
-        # scale = RSS/df_resid, bse, t, p-values and conf_int (t with df_resid), F = (ESS/df_model)/scale
-        # with F(df_model, df_resid), adjusted R² and AIC/BIC (df_model + k_constant parameters).
-        model.df_resid = n - k - shape.change_points
-        model.df_model = k - int(case.intercept) + shape.change_points
-        out.append(GroupReference(key=key, rows=rows, X=X, fit=model.fit(), dropped=int((~ok).sum()),
-                                  shape=shape, sources=sources, others=np.column_stack(others)))
-    return out
-
-
-def hinge_rss(gr: GroupReference, shape: Shape) -> np.ndarray:
-    """RSS of the least-squares fit of y on the group's other columns and the hinge columns of `shape`
-    at every candidate (arrays of below/above τ): numpy SVD, minimum norm where rank-deficient."""
-    t, y = gr.rows[TEMPERATURE].to_numpy(float), gr.rows[Y].to_numpy(float)
-    below, above = np.atleast_1d(shape.below)[:, None], np.atleast_1d(shape.above)[:, None]
-    hinges = temperature_columns(t[None, :], Shape(shape.name, below, above))
-    m = max(len(below), len(above))
-    X = np.concatenate([np.broadcast_to(gr.others, (m, *gr.others.shape)),
-                        np.stack(np.broadcast_arrays(*hinges), axis=2)], axis=2)
-    U, sv, _ = np.linalg.svd(X, full_matrices=False)
-    U = U * (sv > 1e-12 * sv[:, :1])[:, None, :]
-    fitted = np.einsum("bnk,bk->bn", U, np.einsum("bnk,n->bk", U, y))
-    return ((y - fitted) ** 2).sum(axis=1)
-
-
-def grid_search(gr: GroupReference, name: str, steps: int) -> tuple[Shape, np.ndarray, float, float]:
-    """Brute-force change points of a shape: every observed T in the admissible range (README: 3 rows on
-    each side, from the 3rd smallest to the 3rd largest T) and `steps` points spread evenly over it (for
-    heating-cooling every pair τh ≤ τc of them); the candidates, their RSS and the range's ends."""
-    t = np.sort(gr.rows[TEMPERATURE].to_numpy(float))
-    lo, hi = t[2], t[-3]
-    taus = np.union1d(t[(t >= lo) & (t <= hi)], np.linspace(lo, hi, steps))
-    i, j = np.triu_indices(len(taus)) if name == "heating-cooling" else (np.arange(len(taus)),) * 2
-    grid = Shape(name, taus[i], taus[j])
-    return grid, hinge_rss(gr, grid), lo, hi
 
 
 if __name__ == "__main__":

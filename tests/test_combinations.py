@@ -1,29 +1,34 @@
 """The combination matrix: options and inputs in combination, every group against statsmodels.
 
-Oracle: statsmodels OLS fitted group by group (tests/combinations.py builds the design by hand from
-the README's term definitions, hinge columns at sheetfit's change points included), statsmodels
-OLSInfluence, statsmodels diagnostics (Jarque–Bera, Breusch–Pagan in Koenker's form, White,
-Durbin–Watson statistic, Breusch–Godfrey, RESET F form, VIF, robust HC3 / Newey–West covariances and
-their Wald F), scipy (Shapiro–Wilk, t and F laws), statsmodels `multipletests` (Benjamini–Hochberg)
-and a brute-force numpy search for the change points. Rules of thumb for the softer row flags are
-common practice (README). Data are invented and seeded.
+Oracle (tests/combination_oracle.py): statsmodels OLS fitted group by group, or WLS with the case's
+weights divided by their group's mean (the design built by hand from the README's term definitions,
+hinge columns at sheetfit's change points included), statsmodels OLSInfluence of the whitened model
+√w·y on √w·X, statsmodels diagnostics of the residuals √w·e (Jarque–Bera, Breusch–Pagan in Koenker's
+form, White, Durbin–Watson statistic, Breusch–Godfrey, RESET F form, VIF, robust HC3 / Newey–West
+covariances and their Wald F, the lack-of-fit F against the cell-means model), scipy (Shapiro–Wilk, t,
+F and chi² laws; the exact Durbin–Watson p-value by Imhof's formula with scipy.integrate.quad over numpy
+eigenvalues), statsmodels `multipletests` (Benjamini–Hochberg), a brute-force numpy search for the
+change points, and the ICH Q2 formulas for calibration limits and back-calculated standards. Rules of
+thumb for the softer row flags and the standards' deviation limits are common practice (README). Data
+are invented and seeded.
 
 Change points count as parameters (README: residual df n − k − c, k coefficients, c change points).
 The reference fit carries that df (statsmodels uses it for scale, std errors, t, p, intervals, F,
-adjusted R², AIC/BIC); where sheetfit's documented definition with c is not what statsmodels gives
-even then, the expected value is computed by hand from that definition, whose source is named.
+adjusted R², AIC/BIC); where sheetfit's documented definition with c, or with weights, is not what
+statsmodels gives even then, the expected value is computed by hand from that definition, whose source
+is named.
 
 Each value is compared at 1e-9 relative with an absolute floor of 1e-9 · the value's scale (the
 coefficient's std error, max |y|, 1 for p-values and statistics of order one). Checks that cannot
-run are n/a with a note (allowed only for White, Breusch–Godfrey and RESET in the tiny groups, and
-for the VIF check when all terms come from one input).
+run are n/a with a note (allowed only for White, Breusch–Godfrey and RESET in the tiny groups, for
+the VIF check when all terms come from one input, and for lack of fit without replicates).
 
 Cases come from a deterministic all-pairs covering design over the dimensions below (every possible
 pair of levels of any two dimensions occurs in some case; tests.combinations.IMPOSSIBLE lists the
 pairs no run can have); `python -m tests.combinations` lists them.
 How a new option joins the matrix — add a level to its list in `tests/combinations.DIMENSIONS`:
-  term          "plain" | "power" | "log" | "sqrt" | "date"  (+ its --x terms in TERMS, its column in REFERENCE_COLUMNS,
-                                                             its input in SOURCE)
+  term          "plain" | "power" | "log" | "sqrt" | "date" | "one"  (+ its --x terms in TERMS, its column in
+                                                             REFERENCE_COLUMNS, its input in SOURCE)
   sizes         "equal" | "unequal" | "tiny" | "one"         (+ its sizes in Case.group_sizes)
   intercept     True | False
   order         False | True                                 (order column "Seq"; rows shuffled in the file)
@@ -33,8 +38,11 @@ How a new option joins the matrix — add a level to its list in `tests/combinat
   route         "api" | "cli"                                (fit_workbook + write_results, or `python -m sheetfit fit`)
   change_point  "none" | "heating" | "two-slopes" | "auto" | "heating-cooling"   (+ its data in TEMPERATURE_PART;
                                                              a new shape also in temperature_columns and CHANGE_POINTS)
+  weights       "none" | "1/Pallets^2" | "Weight"            (+ its column and inverse power in WEIGHTS)
+  calibration   False | True                                 (needs term "one": a line in one input)
 A new dimension: a new key with its levels, a field of `Case`, and its effect in Case.settings/cli_args;
-pairs of levels that cannot go together go into IMPOSSIBLE (the design neither needs nor makes them).
+pairs of levels that cannot go together go into IMPOSSIBLE (the design neither needs nor makes them, and
+test_the_impossible_pairs_are_refused expects a JobError for each).
 Known sheetfit faults found by the matrix are listed in KNOWN_FAULTS (strict xfail, one-line reason):
 the comparisons a fault breaks run last and raise KnownFault, so any other failure of such a case
 still fails the test.
@@ -43,7 +51,6 @@ still fails the test.
 from __future__ import annotations
 
 import shutil
-import warnings
 from collections.abc import Callable
 from pathlib import Path
 
@@ -53,33 +60,51 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 from scipy import stats
-from statsmodels.stats.diagnostic import (
-    acorr_breusch_godfrey,
-    het_breuschpagan,
-    het_white,
-)
 from statsmodels.stats.multitest import multipletests
-from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflation_factor
-from statsmodels.stats.stattools import durbin_watson, jarque_bera
-from statsmodels.tools.sm_exceptions import SingularMatrixWarning
 
 import sheetfit
 from sheetfit.errors import JobError
+from sheetfit.results.calibration import (
+    BACK_CALCULATED,
+    DEVIATION,
+    LIMIT_OF_DETECTION,
+    LIMIT_OF_QUANTIFICATION,
+    STANDARD_OFF,
+)
+from sheetfit.results.headers import WEIGHT_USED
+from tests.combination_oracle import (
+    BASELINE,
+    GroupReference,
+    Shape,
+    back_calculation,
+    breusch_godfrey,
+    calibration_limits,
+    coefficient_vifs,
+    condition_number,
+    expected_checks,
+    expected_gvif,
+    expected_row_flags,
+    grid_search,
+    lack_of_fit,
+    nmbe,
+    reference_fits,
+    reference_weights,
+    reset,
+    robust_fits,
+    row_measures,
+    white,
+)
 from tests.combinations import (
     DIMENSIONS,
     GROUP,
     IMPOSSIBLE,
     TEMPERATURE,
     Case,
-    GroupReference,
-    Shape,
     cases,
     convert_to_xls,
-    grid_search,
     make_table,
     pairs_impossible,
     pairs_missing,
-    reference_fits,
     soffice,
     write_input,
 )
@@ -89,7 +114,8 @@ SHEETS = ("groups", "coefficients", "checks", "observations")
 OBS_VALUES = ("fitted value", "residual", "leverage", "Cook's distance", "studentized residual")
 TWO_HINGES = ("two-slopes", "heating-cooling")
 HINGE_SHAPES = ("heating", "cooling", *TWO_HINGES)
-BASELINE = ("baseline: CV(RMSE) within limit", "baseline: NMBE within limit", "baseline: R² at least limit")
+CALIBRATION_ROWS = (BACK_CALCULATED, DEVIATION, STANDARD_OFF)
+LACK_OF_FIT = "lack of fit (replicates)"
 
 
 class KnownFault(AssertionError):
@@ -161,65 +187,6 @@ def of_group(frame: pd.DataFrame, key) -> pd.DataFrame:
     return frame if key is None else frame[frame[GROUP].astype(str) == key]
 
 
-def robust_fits(ref, n: int):
-    """statsmodels HC3 and Newey–West results (lag floor(4·(n/100)^(2/9)), at most n − 1; common practice)."""
-    lag = int(min(np.floor(4 * (n / 100) ** (2 / 9)), n - 1))
-    return ref.get_robustcov_results("HC3", use_t=True), ref.get_robustcov_results("HAC", maxlags=lag, use_t=True), lag
-
-
-def row_measures(gr: GroupReference) -> dict:
-    """Per row: leverage and Cook's distance (statsmodels OLSInfluence: its scale is RSS/(n − k − c) from
-    the fit's df, its divisor the k columns, as README's D = e²h/(p·s²·(1 − h)²) with p = k), and the
-    externally studentized residual. statsmodels refits without each row on n − 1 − k df; README and
-    sheetfit/model/engine.py (_influence) count the change points: s₍ᵢ₎² = (RSS − e²/(1 − h))/(n − k − c − 1),
-    so each leave-one-out RSS of statsmodels is divided by that df instead. Also the Cook's cut, the median
-    of F(k, n − k − c) (scipy; Cook 1977, sheetfit/checks/influence.py cooks_cut)."""
-    infl = OLSInfluence(gr.fit)                                                  # statsmodels
-    n, k, c = len(gr.rows), gr.k, gr.c
-    h = infl.hat_matrix_diag
-    s2_without = infl.sigma2_not_obsi * (n - 1 - k) / (n - 1 - k - c)
-    return {"leverage": h, "cooks": infl.cooks_distance[0], "cut": stats.f.ppf(0.5, k, n - k - c),
-            "studentized": np.asarray(gr.fit.resid) / np.sqrt(s2_without * (1 - h))}
-
-
-def expected_row_flags(gr: GroupReference, rm: dict) -> list[str]:
-    """Row flags per README: leverage 1, |studentized| > 3, Cook's > the cut, then the common-practice
-    leverage > 2p/n and Cook's > 4/n, p = k (change points do not enter the hat matrix:
-    sheetfit/checks/influence.py row_highlights)."""
-    n, out = len(gr.rows), []
-    for hi, ti, di in zip(rm["leverage"], rm["studentized"], rm["cooks"]):
-        words = [w for w, on in (("leverage 1", hi >= 1 - 1e-10), ("outlying", abs(ti) > 3),
-                                 ("moves the fit", di > rm["cut"]), ("high leverage", hi > 2 * gr.k / n),
-                                 ("influential", di > 4 / n)) if on]
-        out.append("; ".join(words))
-    return out
-
-
-def expected_gvif(gr: GroupReference, case: Case) -> float:
-    """The VIF check: the largest GVIF^(1/df) over the inputs (README; Fox & Monette 1992). An input with
-    one column: its VIF (statsmodels); with several (x and x², two hinges): det(R11)·det(R22)/det(R) on
-    the correlation matrix of the non-constant columns (numpy; uncentred without an intercept)."""
-    X = gr.X[:, int(case.intercept):]
-    R = np.corrcoef(X, rowvar=False) if case.intercept else (X.T @ X) / np.outer(*[np.linalg.norm(X, axis=0)] * 2)
-    out = []
-    for source in dict.fromkeys(gr.sources):
-        own = [j for j, s in enumerate(gr.sources) if s == source]
-        rest = [j for j in range(X.shape[1]) if j not in own]
-        if len(own) == 1:
-            out.append(variance_inflation_factor(gr.X, own[0] + int(case.intercept), standardize=False))     # statsmodels
-        else:
-            gvif = np.linalg.det(R[np.ix_(own, own)]) * np.linalg.det(R[np.ix_(rest, rest)]) / np.linalg.det(R)
-            out.append(gvif ** (1 / len(own)))
-    return max(out)
-
-
-def nmbe(gr: GroupReference) -> tuple[float, float]:
-    """README / sheetfit/checks/baseline.py: NMBE % = 100·Σ(y − ŷ)/((n − k − c)·ȳ), by hand from the
-    statsmodels residuals; and its scale (the same with |y| in place of the residuals)."""
-    y, df = gr.rows["kWh"].to_numpy(float), gr.fit.df_resid
-    return 100 * gr.fit.resid.sum() / (df * y.mean()), 100 * np.abs(y).sum() / (df * abs(y.mean()))
-
-
 def coefficient_labels(gr: GroupReference, case: Case) -> list[str]:
     """README: `constant`, then the terms; under a change-point shape T's slots are named `T below change
     point` and `T above change point`."""
@@ -260,8 +227,9 @@ def compare_shape(case: Case, gr: GroupReference, label: str) -> None:
 
 def compare_groups_row(case: Case, gr: GroupReference, t: dict, rm: dict, flags: list[str],
                        label: str) -> pd.Series:
-    """The group's row on `groups` (returned)."""
-    ref, X, y, n = gr.fit, gr.X, gr.rows["kWh"].to_numpy(float), len(gr.rows)
+    """The group's row on `groups` (returned). Weighted: statsmodels WLS's R², F, AIC/BIC (README: ½Σ ln w in
+    the log-likelihood) and RSS = Σw·e²; CV(RMSE) over the plain mean of y."""
+    ref, y, n = gr.fit, gr.y, len(gr.rows)
     row = of_group(t["groups"], gr.key)
     assert len(row) == 1, f"{label}: {len(row)} rows on groups"
     row = row.iloc[0]
@@ -272,7 +240,7 @@ def compare_groups_row(case: Case, gr: GroupReference, t: dict, rm: dict, flags:
             ("residual std error", np.sqrt(ref.scale), 0), ("RMSE", np.sqrt(ref.ssr / n), 0),
             ("CV(RMSE) %", 100 * np.sqrt(ref.scale) / y.mean(), 0),
             ("F", ref.fvalue, 1), ("F p-value", ref.f_pvalue, 1), ("AIC", ref.aic, n), ("BIC", ref.bic, n),
-            ("condition number", np.linalg.cond(X / np.linalg.norm(X, axis=0)), 1)]              # numpy
+            ("condition number", condition_number(gr), 1)]                                      # numpy
     if case.change_point != "none":
         want.append(("NMBE %", *nmbe(gr)))
     for col, value, scale in want:
@@ -280,58 +248,9 @@ def compare_groups_row(case: Case, gr: GroupReference, t: dict, rm: dict, flags:
     for col, word in [("high-leverage rows", "high leverage"), ("outlying rows", "outlying"),
                       ("influential rows", "influential")]:
         assert int(row[col]) == sum(word in f.split("; ") for f in flags), f"{label} groups {col}"
+    for col in (LIMIT_OF_DETECTION, LIMIT_OF_QUANTIFICATION):     # README: on groups with --calibration only
+        assert (col in t["groups"].columns) == case.calibration, f"{label}: groups column {col!r}"
     return row
-
-
-def expected_checks(case: Case, gr: GroupReference, rm: dict, chosen) -> dict:
-    """Statistic and p-value of every check that needs no n/a decision."""
-    ref, X, n, k, c = gr.fit, gr.X, len(gr.rows), gr.k, gr.c
-    e = ref.resid
-    exog_c = X if case.intercept else sm.add_constant(X, has_constant="add")   # the tests need a constant
-    jb, sw = jarque_bera(e), stats.shapiro(e)                                   # statsmodels, scipy
-    bp = het_breuschpagan(e, exog_c, robust=True)                                # statsmodels (Koenker)
-    # Bonferroni outlier test with sheetfit's documented df: t(n − k − c − 1) (sheetfit/checks/influence.py
-    # outlier_test) on the studentized residuals of row_measures; scipy
-    t_max = np.abs(rm["studentized"]).max()
-    want = {
-        "model F-test": (chosen.fvalue, chosen.f_pvalue),   # fvalue first: a robust F caches its Wald F p-value
-        "R² below threshold": (ref.rsquared, None),
-        "enough data": (n / (k + c), None),                 # README: rows per estimated parameter, c counted
-        "normal residuals (Jarque–Bera)": (jb[0], jb[1]),
-        "normal residuals (Shapiro–Wilk)": (sw.statistic, sw.pvalue),
-        "constant variance (Breusch–Pagan)": (bp[0], bp[1]),
-        "independent residuals (Durbin–Watson)": (durbin_watson(e), None),       # p: beta approximation, no reference
-        "outlier (Bonferroni)": (t_max, min(1.0, n * 2 * stats.t.sf(t_max, n - k - c - 1))),
-        "influence (Cook's distance)": (rm["cooks"].max(), None),
-        "single-row leverage": (rm["leverage"].max(), None),
-        "collinearity (condition number)": (np.linalg.cond(X / np.linalg.norm(X, axis=0)), None),
-    }
-    if case.change_point != "none":     # README: CV(RMSE) and NMBE over n − p, p = k + c; R²
-        want.update({BASELINE[0]: (100 * np.sqrt(ref.scale) / gr.rows["kWh"].mean(), None),
-                     BASELINE[1]: (abs(nmbe(gr)[0]), None), BASELINE[2]: (ref.rsquared, None)})
-    return want
-
-
-def white(case: Case, gr: GroupReference):
-    with warnings.catch_warnings():      # x·x repeats the x^2 column: statsmodels counts the rank
-        warnings.simplefilter("ignore", SingularMatrixWarning)
-        exog_c = gr.X if case.intercept else sm.add_constant(gr.X, has_constant="add")
-        return het_white(gr.fit.resid, exog_c)[:2]                               # statsmodels
-
-
-def breusch_godfrey(case: Case, gr: GroupReference):
-    bg = acorr_breusch_godfrey(gr.fit, nlags=1, result_object=True)             # statsmodels
-    return bg.lm, bg.lmpval
-
-
-def reset(case: Case, gr: GroupReference):
-    """RESET, F form with fitted² and fitted³ (Ramsey 1969): statsmodels' F of the augmented fit against the
-    fit, both with the change points counted (sheetfit/checks/linear_form.py: df n − k − c − 2)."""
-    f = gr.fit.fittedvalues
-    aug = sm.OLS(gr.fit.model.endog, np.column_stack([gr.X, f**2, f**3]))
-    aug.df_resid = gr.fit.df_resid - 2
-    F, p, _ = aug.fit().compare_f_test(gr.fit)                                   # statsmodels
-    return F, p
 
 
 def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict, label: str) -> tuple[dict, list]:
@@ -347,6 +266,10 @@ def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict, label: str
     def verdict(check):
         return checks[checks["check"] == check]["verdict"].iloc[0]
 
+    def not_applicable(check):
+        note = text(checks[checks["check"] == check]["note"].iloc[0]).strip()
+        return np.isnan(value(check, "statistic")) and verdict(check) == "n/a" and bool(note)
+
     het = any(verdict(c) == "fail" for c in ("constant variance (Breusch–Pagan)", "constant variance (White)"))
     dep = any(verdict(c) == "fail" for c in ("independent residuals (Durbin–Watson)",
                                              "independent residuals (Breusch–Godfrey)"))
@@ -361,8 +284,7 @@ def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict, label: str
     # auxiliary regressions (README); elsewhere they match statsmodels
     def optional(check, compute):
         if np.isnan(value(check, "statistic")):
-            assert verdict(check) == "n/a" and str(checks[checks["check"] == check]["note"].iloc[0]).strip(), \
-                f"{label}: {check} blank without n/a and a note"
+            assert not_applicable(check), f"{label}: {check} blank without n/a and a note"
             assert case.sizes == "tiny", f"{label}: {check} n/a with {len(gr.rows)} rows"
         else:
             want[check] = compute(case, gr)
@@ -377,12 +299,19 @@ def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict, label: str
                            ("linear form (RESET)", reset)]:
         if not (later and compute is white):
             optional(check, compute)
+    if np.isnan(want["collinearity (condition number)"][0]):
+        assert not_applicable("collinearity (condition number)"), f"{label}: condition number of one column"
     # The VIF check judges inputs (source columns): n/a for one input (CDD with CDD^2, or CDD's hinges with CDD^2)
     if len(set(gr.sources)) < 2:
         assert np.isnan(value("collinearity (VIF)", "statistic")) and verdict("collinearity (VIF)") == "n/a", \
             f"{label}: VIF check on one input"
     else:
         want["collinearity (VIF)"] = (expected_gvif(gr, case), None)
+    found = lack_of_fit(case, gr)            # README: n/a with a note without replicates
+    if isinstance(found, str):
+        assert not_applicable(LACK_OF_FIT), f"{label}: lack of fit not n/a with a note ({found})"
+    else:
+        want[LACK_OF_FIT] = found
     compare_values(want, value, label)
     close(value("influence (Cook's distance)", "threshold"), rm["cut"], f"{label} Cook's distance threshold", 1)
     return {"het": het, "dep": dep, "hc": hc, "hac": hac, "lag": lag, "chosen": chosen}, later
@@ -397,7 +326,7 @@ def compare_values(want: dict, value, label: str) -> None:
 
 def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict, label: str) -> None:
     """The group's rows on `coefficients`, in sheetfit's order: constant, then the terms with T's slots."""
-    ref, X, p = gr.fit, gr.X, gr.k
+    ref, p = gr.fit, gr.k
     coef = of_group(t["coefficients"], gr.key)
     assert len(coef) == p, f"{label}: {len(coef)} coefficient rows for {p} coefficients"
     assert list(coef["input"]) == coefficient_labels(gr, case), f"{label}: inputs {list(coef['input'])}"
@@ -409,8 +338,9 @@ def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict, lab
     ci = np.asarray(chosen.conf_int(0.05))
     close(num(coef["interval low"]), ci[:, 0], f"{label} CI low", se)
     close(num(coef["interval high"]), ci[:, 1], f"{label} CI high", se)
-    vifs = [variance_inflation_factor(X, j, standardize=False) for j in range(int(case.intercept), p)]     # statsmodels, design as fitted
-    close(num(coef["VIF"])[int(case.intercept):], vifs, f"{label} VIF", 1)
+    vifs = coefficient_vifs(case, gr)      # no VIF column when no group has two non-constant columns
+    if "VIF" in coef.columns or not np.isnan(vifs).all():
+        close(num(coef["VIF"]), vifs, f"{label} VIF", 1)
     nan = np.full(p, np.nan)
     close(num(coef["robust std error (HC3)"]), hc.bse if het else nan, f"{label} robust std error (HC3)")
     close(num(coef["robust p-value (HC3)"]), hc.pvalues if het else nan, f"{label} robust p-value (HC3)", 1)
@@ -423,7 +353,9 @@ def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict, lab
 
 
 def compare_observations(case: Case, gr: GroupReference, t: dict, rm: dict, flags: list[str], label: str) -> None:
-    """The group's used rows on `observations` (those it holds)."""
+    """The group's used rows on `observations` (those it holds): fitted values and residuals in the
+    response's units (README: y − ŷ also when weighted), the row measures of the whitened model, and the
+    weights as fitted where the case is weighted."""
     obs = of_group(t["observations"], gr.key)
     obs = obs.set_index(num(obs["source row"]).astype(int))
     rows = gr.rows["_file_row"].to_numpy()
@@ -432,18 +364,48 @@ def compare_observations(case: Case, gr: GroupReference, t: dict, rm: dict, flag
         assert present.all(), f"{label}: used rows missing from observations"
     at = obs.loc[rows[present]]
     assert (at["used in fit"] == "yes").all(), f"{label}: used rows marked unused"
-    yscale = np.abs(gr.rows["kWh"].to_numpy(float)).max()
-    for col, want_v, scale in [("fitted value", gr.fit.fittedvalues, yscale), ("residual", gr.fit.resid, yscale),
-                               ("leverage", rm["leverage"], 1), ("Cook's distance", rm["cooks"], rm["cooks"].max()),
-                               ("studentized residual", rm["studentized"], 1)]:
+    yscale = np.abs(gr.y).max()
+    want = [("fitted value", gr.fit.fittedvalues, yscale), ("residual", gr.fit.resid, yscale),
+            ("leverage", rm["leverage"], 1), ("Cook's distance", rm["cooks"], rm["cooks"].max()),
+            ("studentized residual", rm["studentized"], 1)]
+    assert (WEIGHT_USED in t["observations"].columns) == (case.weights != "none"), f"{label}: {WEIGHT_USED!r} column"
+    if case.weights != "none":
+        want.append((WEIGHT_USED, gr.w, 1))        # README: w/mean(w) in the group, 1 where all are equal
+    for col, want_v, scale in want:
         close(num(at[col]), np.asarray(want_v)[present], f"{label} observations {col}", scale)
     got_flags = [text(v) for v in at["row flags"]]
     assert got_flags == list(np.asarray(flags, dtype=object)[present]), f"{label}: row flags"
 
 
+def compare_calibration(case: Case, gr: GroupReference, t: dict, row: pd.Series, chosen, label: str) -> np.ndarray:
+    """--calibration: limits on `groups` and each standard read back on `observations` (oracle: ICH Q2 and
+    README, tests.combination_oracle); the slope's p-value is the one `coefficients` shows. Returns the
+    group's file rows whose `standard off` says something (written under observations = flagged)."""
+    assert all((c in t["observations"].columns) == case.calibration for c in CALIBRATION_ROWS), \
+        f"{label}: calibration columns on observations"
+    if not case.calibration:
+        return np.zeros(0, dtype=int)
+    slope_p = np.asarray(chosen.pvalues)[1]
+    close(num([row[LIMIT_OF_DETECTION], row[LIMIT_OF_QUANTIFICATION]]), calibration_limits(gr, slope_p),
+          f"{label} calibration limits", 0)
+    want = back_calculation(gr, slope_p)
+    obs = of_group(t["observations"], gr.key)
+    obs = obs.set_index(num(obs["source row"]).astype(int))
+    rows = gr.rows["_file_row"].to_numpy()
+    present = np.isin(rows, obs.index)
+    at = obs.loc[rows[present]]
+    x = gr.rows[TEMPERATURE].to_numpy(float)
+    close(num(at[BACK_CALCULATED]), want["back"][present], f"{label} {BACK_CALCULATED}", np.abs(x).max())
+    close(num(at[DEVIATION]), want["deviation"][present], f"{label} {DEVIATION}", 1)
+    said = np.array([bool(text(v).strip()) for v in at[STANDARD_OFF]], dtype=bool)
+    assert (said == want["says"][present]).all(), f"{label}: {STANDARD_OFF} at rows {rows[present][said != want['says'][present]]}"
+    return rows[want["says"]]
+
+
 def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) -> tuple[np.ndarray, list]:
     """Every value of one group on the groups, coefficients, checks and observations tables; returns the
-    group's flagged file rows and, by kind, the comparisons a known fault may break (to run last)."""
+    group's flagged file rows (row flags or a standard off) and, by kind, the comparisons a known fault
+    may break (to run last)."""
     label = f"group {gr.key}" if gr.key else "the group"
     rm = row_measures(gr)
     flags = expected_row_flags(gr, rm)
@@ -451,11 +413,13 @@ def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) ->
     inf, later = compare_checks(case, gr, t, rm, label)
     compare_coefficients(case, gr, t, inf, label)
     compare_observations(case, gr, t, rm, flags, label)
+    said = compare_calibration(case, gr, t, row, inf["chosen"], label)
     if case.change_point != "none":
         assert int(num([row["change points"]])[0]) == gr.c, f"{label}: change points {row['change points']}"
         later += [("shape", lambda: compare_shape_name(case, gr, row, label)),
                   ("search", lambda: compare_shape(case, gr, label))]
-    return gr.rows["_file_row"].to_numpy()[np.asarray([bool(f) for f in flags], dtype=bool)], later
+    flagged = gr.rows["_file_row"].to_numpy()[np.asarray([bool(f) for f in flags], dtype=bool)]
+    return np.union1d(flagged, said), later
 
 
 def compare_adjusted_p_values(refs: list[GroupReference], t: dict[str, pd.DataFrame]) -> None:
@@ -514,7 +478,7 @@ def observations_sheet_holds(case: Case, out: Path, all_rows: np.ndarray, flagge
             assert written == set(all_rows), "observations = all did not write every row"
         else:
             assert written == flagged, (f"observations = flagged wrote rows {sorted(written)}, expected "
-                                        f"{sorted(flagged)} (unusable or highlighted)")
+                                        f"{sorted(flagged)} (unusable, highlighted or a standard off)")
     finally:
         book.close()
 
@@ -532,8 +496,10 @@ def run_case(case: Case, src: Path, out: Path, cli) -> dict[str, pd.DataFrame]:
     book = openpyxl.load_workbook(out, read_only=True, data_only=True)
     tables = {name: read_sheet(book, name) for name in SHEETS}
     book.close()
-    if tables["observations"] is None:
-        tables["observations"] = pd.DataFrame(columns=[GROUP, "source row", "used in fit", "row flags", *OBS_VALUES])
+    if tables["observations"] is None:             # observations = none: no rows, the columns a run would have
+        ours = [*([WEIGHT_USED] if case.weights != "none" else []), *(CALIBRATION_ROWS if case.calibration else [])]
+        tables["observations"] = pd.DataFrame(columns=[GROUP, "source row", "used in fit", "row flags", *OBS_VALUES,
+                                                       *ours])
     return tables
 
 
@@ -566,12 +532,16 @@ def test_the_design_covers_every_pair_of_levels():
         assert any(c.route == "cli" and c.observations == mode for c in CASES), f"no CLI case with {mode}"
 
 
-@pytest.mark.parametrize("cp", [cp for cp in DIMENSIONS["change_point"] if cp != "none"])
-def test_the_impossible_pairs_are_refused(cp):
-    # README: --change-point with --no-intercept is refused with a JobError, so the design leaves it out
-    case = next(c for c in CASES if c.change_point == cp)
+@pytest.mark.parametrize("pair", IMPOSSIBLE, ids=lambda pair: f"{pair[0]}={pair[1]}-{pair[2]}={pair[3]}")
+def test_the_impossible_pairs_are_refused(pair):
+    # README: --change-point with --no-intercept or with --weights, and --calibration with anything but one
+    # plain --x column, the constant and no change point, are refused with a JobError; so the design leaves
+    # these pairs out. A case of the design holding the first level, given the second.
+    p, a, q, b = pair
+    tried = [Case(**{**vars(c), q: b}) for c in CASES if getattr(c, p) == a]
+    case = next(c for c in tried if pairs_impossible([vars(c)], IMPOSSIBLE) == [pair])   # no other pair to refuse
     with pytest.raises(JobError):
-        sheetfit.fit_frame(make_table(case), y="kWh", x=case.terms[:1], intercept=False, change_point=cp)
+        sheetfit.fit_frame(make_table(case), **case.settings())
 
 
 def test_statsmodels_counts_degrees_of_freedom_set_before_fit():
@@ -595,6 +565,27 @@ def test_statsmodels_counts_degrees_of_freedom_set_before_fit():
     close([fit.fvalue, fit.f_pvalue], [F, stats.f.sf(F, k - 1 + c, df)], "F", 1)
     close(fit.rsquared_adj, 1 - (len(y) - 1) / df * (1 - plain.rsquared), "adjusted R²", 1)
     close([fit.aic, fit.bic], [-2 * plain.llf + 2 * (k + c), -2 * plain.llf + np.log(len(y)) * (k + c)], "AIC, BIC", 1)
+
+
+def test_statsmodels_wls_is_the_whitened_fit():
+    # The oracle's premise for weighted cases (tests.combination_oracle): statsmodels WLS with weights w is
+    # OLS of √w·y on √w·X (estimates, std errors, HC3), its R² is README's 1 − Σw·e²/Σw·(y − ȳw)² and its
+    # log-likelihood that of the whitened fit plus ½Σ ln w; scaling w leaves estimates and std errors alone.
+    # Checked against numpy by hand and statsmodels OLS.
+    case = next(c for c in CASES if c.intercept and c.weights == "1/Pallets^2")
+    gr = next(g for g in reference_fits(case, make_table(case)) if g.weighted)
+    X, y, w = gr.X, gr.y, gr.w
+    root = np.sqrt(w)
+    fit, whitened = sm.WLS(y, X, weights=w).fit(), sm.OLS(root * y, root[:, None] * X).fit()
+    close(fit.params, whitened.params, "estimates", fit.bse)
+    close(fit.bse, whitened.bse, "std errors")
+    close(fit.get_robustcov_results("HC3").bse, whitened.get_robustcov_results("HC3").bse, "HC3 std errors")
+    e, ybar = y - X @ fit.params, np.average(y, weights=w)                                   # numpy
+    close(fit.rsquared, 1 - (w * e**2).sum() / (w * (y - ybar) ** 2).sum(), "weighted R²", 1)
+    close(fit.llf, whitened.llf + 0.5 * np.log(w).sum(), "log-likelihood", abs(fit.llf))
+    close(np.asarray(fit.resid), e, "residuals in the response's units", np.abs(y).max())
+    rescaled = sm.WLS(y, X, weights=7.0 * w).fit()
+    close([*rescaled.params, *rescaled.bse], [*fit.params, *fit.bse], "weights times 7", np.r_[fit.bse, fit.bse])
 
 
 @pytest.mark.parametrize("case", [_param(c) for c in CASES])
@@ -629,19 +620,45 @@ def test_combination_matches_statsmodels(case: Case, tmp_path, xls_inputs, cli):
         assert {r for r, u in marked.items() if u == "no"} == unusable, "rows marked unused"
         reasons = dict(zip(rows, obs["reason"]))
         assert all(str(reasons[r] or "").strip() for r in unusable), "an unusable row without a reason"
+        given = reference_weights(case, table)     # README: a weight that is not positive is the row's reason
+        with np.errstate(invalid="ignore"):
+            bad = file_rows[~(np.isfinite(given) & (given > 0))]
+        assert all("weight" in text(reasons[r]) for r in bad), "a row with a bad weight, not said so"
     observations_sheet_holds(case, out, file_rows, flagged | unusable)
     run_last(case, later)
 
 
 def test_robust_std_errors_come_into_play_somewhere():
     # The seeded errors (heteroscedastic, AR(1)) must make the matrix exercise HC3 and Newey–West:
-    # the first robust case with groups of 12 rows or more whose terms need no dates, fitted in memory.
+    # the first robust case with groups of 12 rows or more whose terms need no dates, fitted in memory
+    # with its own settings (weights included).
     case = next(c for c in CASES if c.inference == "robust" and c.sizes in ("equal", "unequal")
-                and c.term in ("plain", "power", "sqrt") and c.change_point == "none" and not fault(c))
-    res = sheetfit.fit_frame(make_table(case), y="kWh", x=case.terms, group=case.group, order="Seq",
-                             intercept=case.intercept, inference="robust")
+                and c.term != "date" and c.change_point == "none" and not fault(c))
+    res = sheetfit.fit_frame(make_table(case), **case.settings())
     used = set(res.coefficients["std error used"])
     assert {"HC3", "Newey–West (HAC)"} <= used, f"{case.id}: std errors used {used}"
+
+
+def test_weights_and_calibration_come_into_play():
+    # The seeded data must make the matrix exercise what the weights and calibration dimensions add:
+    # groups whose weights vary and groups whose weights are all equal (README: the ordinary fit), rows
+    # with a zero and with a negative weight, replicates enough for lack of fit to run, and standards both
+    # within and beyond their limits (oracle: tests.combination_oracle, at a clearly steep slope).
+    varied = equal = replicated = 0
+    bad, said = [], []
+    for case in CASES:
+        table = make_table(case)
+        given = reference_weights(case, table)
+        bad += list(given[given <= 0])
+        for gr in reference_fits(case, table):
+            varied += gr.weighted
+            equal += case.weights != "none" and not gr.weighted
+            replicated += not isinstance(lack_of_fit(case, gr), str)
+            said += list(back_calculation(gr, 0.0)["says"]) if case.calibration else []
+    assert varied >= 10 and equal >= 2, f"{varied} weighted groups, {equal} with equal weights"
+    assert {0.0, -1.5} <= set(bad), f"weights that are not positive: {sorted(set(bad))}"
+    assert replicated >= 5, f"lack of fit runs in {replicated} groups"
+    assert 0 < sum(said) < len(said), f"{sum(said)} of {len(said)} standards beyond their limits"
 
 
 def test_change_point_cases_find_interior_change_points(tmp_path):
