@@ -2,8 +2,9 @@
 
 Oracles: statsmodels OLS / WLS on designs built by hand (one indicator column per group for the own
 intercepts, group × input product columns for the own slopes) and `compare_f_test` between nested
-fits; `normalized_cov_params` of those fits for the (X'X)⁻¹ blocks; a sandwich computed directly
-with numpy from the same statsmodels design for the own-variance std errors; scipy.stats.bartlett;
+fits; `normalized_cov_params` of those fits for the (X'X)⁻¹ blocks; statsmodels WLS with weights
+w_i/σ_h² (σ_h² of each group's own statsmodels fit) for the precision-weighted reference and its std
+error; Welch–Satterthwaite degrees of freedom computed term by term with numpy; scipy.stats.bartlett;
 numpy's QR of the stacked rows; NIST StRD Longley certified values.
 """
 
@@ -128,31 +129,70 @@ def test_groups_that_stand_apart_leave_the_reference():
         assert rel(comp.reference[g], fit.params[len(groups):len(groups) + 1]) < REL
 
 
-def test_own_variance_std_errors_and_degrees_of_freedom():
-    y, X, codes, _ = grouped(4, k=2, spread=(0.5, 1.0, 3.0, 6.0))
-    G, k, Z = 4, 2, X[:, 1:]
-    comp = compare_groups(y, X, codes, np.ones(G, bool), intercept=True, adjust=bh)
-    assert comp.own_used and comp.in_reference.all()              # Bartlett rejects: own variances used
-    fits = [ols(y[codes == g], X[codes == g]) for g in range(G)]
+def check_precision_weighted(y, X, codes, w, comp):
+    """Each group against the other reference members pooled by precision, with the own-variance std error
+    and Welch–Satterthwaite degrees of freedom, for every compared group (members and set-aside ones)."""
+    G, k, Z = len(comp.codes), X.shape[1] - 1, X[:, 1:]
+    ww = np.ones(len(y)) if w is None else w
+    fits = [ols(y[codes == g], X[codes == g], None if w is None else w[codes == g]) for g in range(G)]
+    sigma2, nu = np.array([f.scale for f in fits]), np.array([f.df_resid for f in fits])
     for g in range(G):
-        others = [h for h in range(G) if h != g]
-        rows = codes != g
+        others = [h for h in range(G) if comp.in_reference[h] and h != g]
+        rows = np.isin(codes, others)
         design = np.column_stack([indicators(codes[rows], others), Z[rows]])
-        A = ols(y[rows], design).normalized_cov_params
-        # numpy: Var of the others' common slope with each group's own variance (statsmodels' σ_h²)
+        # oracle: statsmodels WLS of the other members' rows, own intercepts (indicator columns), one shared
+        # slope per input, weights w_i / σ_h² with σ_h² each group's own statsmodels fit's residual variance
+        fit = ols(y[rows], design, ww[rows] / sigma2[codes[rows]])
+        assert rel(comp.own_variances.reference[g], fit.params[-k:]) < REL
+        A_inv = fit.normalized_cov_params[-k:, -k:]                   # (Σ S_h / σ_h²)⁻¹
+        own = np.diag(fits[g].cov_params())[1:]                       # σ_g² [S_g⁻¹]_jj
+        var = own + np.diag(A_inv)
+        assert rel(comp.own_variances.se[g], np.sqrt(var)) < REL
+        # Welch–Satterthwaite (numpy): c_h = u'(S_h/σ_h²)u, u = A⁻¹e_j, each on its ν_h = n_h − p
         parts = []
         for h in others:
-            Xh = design[codes[rows] == h]
-            parts.append(fits[h].scale * (A @ Xh.T @ Xh @ A)[-k:, -k:])
-        own = np.diag(fits[g].cov_params())[1:]
-        var = own + np.diag(sum(parts))
-        assert rel(comp.own_variances.se[g], np.sqrt(var)) < REL
-        # Welch–Satterthwaite with each piece's residual degrees of freedom
-        nu = [f.df_resid for f in fits]
-        denom = own**2 / nu[g] + sum(np.diag(c) ** 2 / nu[h] for c, h in zip(parts, others))
-        assert rel(comp.own_variances.df[g], var**2 / denom) < 1e-8
-        t = comp.difference[g] / np.sqrt(var)
-        assert rel(comp.own_variances.pvalue[g], 2 * stats.t.sf(np.abs(t), var**2 / denom)) < 1e-8
+            Dh = design[codes[rows] == h]
+            Sh = Dh.T @ (ww[codes == h][:, None] * Dh) / sigma2[h]
+            Sh = Sh[-k:, -k:] - Sh[-k:, :-k] @ np.linalg.pinv(Sh[:-k, :-k]) @ Sh[:-k, -k:]   # centred on own mean
+            parts.append(np.einsum("ij,jl,li->i", A_inv, Sh, A_inv) ** 2 / nu[h])
+        df = var**2 / (own**2 / nu[g] + sum(parts))
+        assert rel(comp.own_variances.df[g], df) < 1e-8
+        t = (comp.slope[g] - comp.own_variances.reference[g]) / np.sqrt(var)
+        assert rel(comp.own_variances.pvalue[g], 2 * stats.t.sf(np.abs(t), df)) < 1e-8
+
+
+@pytest.mark.parametrize("weighted", [False, True])
+def test_own_variances_pool_the_reference_by_precision(weighted):
+    y, X, codes, w = grouped(4, k=2, spread=(0.5, 1.0, 3.0, 6.0), weighted=weighted)
+    comp = compare_groups(y, X, codes, np.ones(4, bool), intercept=True, adjust=bh, weights=w)
+    assert comp.own_used and comp.in_reference.all()              # Bartlett rejects: own variances used
+    assert np.array_equal(comp.reference, comp.own_variances.reference)
+    check_precision_weighted(y, X, codes, w, comp)
+
+
+def test_own_variances_with_groups_set_aside():
+    y, X, codes, _ = grouped(5, sizes=(25,) * 8, spread=(0.5, 1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0),
+                             steep={2: np.array([3.5]), 6: np.array([0.5])})
+    comp = compare_groups(y, X, codes, np.ones(8, bool), intercept=True, adjust=bh)
+    assert comp.own_used and comp.in_reference.tolist() == [g not in (2, 6) for g in range(8)]
+    check_precision_weighted(y, X, codes, None, comp)
+    # the way the rule did not pick keeps the equal-weight common slope of the same other members:
+    # statsmodels OLS with own intercepts and one shared slope
+    for g in range(8):
+        others = [h for h in range(8) if comp.in_reference[h] and h != g]
+        rows = np.isin(codes, others)
+        fit = ols(y[rows], np.column_stack([indicators(codes[rows], others), X[rows, 1:]]))
+        assert rel(comp.common_variance.reference[g], fit.params[-1:]) < REL
+
+
+def test_an_exact_fit_among_noisy_groups_stays_finite():
+    y, X, codes, _ = grouped(6, sizes=(12, 15, 18))
+    y[codes == 0] = 1.0 + 3.0 * X[codes == 0, 1]                  # group 0 fits exactly: σ² = 0
+    comp = compare_groups(y, X, codes, np.ones(3, bool), intercept=True, adjust=bh)
+    assert comp.own_used                                           # Bartlett: one zero variance, p = 0
+    assert np.isfinite(comp.reference).all() and np.isfinite(comp.used.se).all()
+    # the exact group carries (nearly) all the precision: the others' reference is its slope, 3
+    assert np.allclose(comp.reference[1:], 3.0, rtol=1e-6)
 
 
 def test_bartlett_with_residual_degrees_of_freedom_matches_scipy():

@@ -1,25 +1,28 @@
 """Across groups: do the groups share their slopes, and which groups stand apart from the others?
 
-Each group's rows are centred on the group's own (weighted) means, so every group keeps its own
-intercept, and reduced to the R factor of [Xc | yc] by a QR (X'X is never formed; centring is done
-in long double). Stacking factors is the same as stacking rows, so every pooled fit below is a QR of
-a few small stacked factors:
-
+Each group's rows are centred on its own (weighted) means, so every group keeps its own intercept, and
+reduced to the R factor of [Xc | yc] by a QR (X'X is never formed; centring in long double). Stacking
+factors is stacking rows, so every pooled fit is a QR of a few small stacked factors:
 - equal slopes: separate slopes against common slopes with own intercepts, F on ((C−1)k, df_sep);
 - one common line: separate lines against y on [1, X] over all compared groups, F on ((C−1)(k+1), df_sep);
-- per group g and input j: d = b_g − b_ref, the reference b_ref being the common slope (own intercepts)
-  of the OTHER groups in the reference set. The set starts as all groups; while members stand apart
-  (adjusted p below alpha), the strongest are set aside, never leaving half or fewer of the groups.
-  With no group apart this is plain leave-one-out; with two steep groups of ten, the eight ordinary
-  ones are judged against each other, not against a slope the steep two pulled up.
-
-Two std errors of d are computed:
-- common residual variance σ² = RSS_sep/df_sep: Var d = σ²[S_g⁻¹ + S_(ref−g)⁻¹]_jj on df_sep;
-- each group's own residual variance (Welch type): Var d = σ_g²[S_g⁻¹]_jj
-  + [S_(ref−g)⁻¹(Σ_h σ_h² S_h)S_(ref−g)⁻¹]_jj over the reference groups h ≠ g, degrees of freedom by
-  Welch–Satterthwaite.
-Rule: the own-variance std errors are used when Bartlett's test of equal residual variances (each
-group's variance on its n_g − p degrees of freedom) rejects at `alpha`; otherwise the common ones.
+- per group g and input j: d = b_g − b_ref, b_ref pooled from the OTHER groups in the reference set R,
+  judged one of two ways (S_h = X_c'X_c and b_h of group h, sums over h in R, h ≠ g):
+  common residual variance σ² = RSS_sep/df_sep: b_ref = (Σ S_h)⁻¹ Σ S_h b_h (the common slope with own
+  intercepts), Var d = σ²[S_g⁻¹ + (Σ S_h)⁻¹]_jj on df_sep;
+  own residual variances σ_h² (Welch type): b_ref = A⁻¹ Σ (S_h/σ_h²) b_h with A = Σ S_h/σ_h², weighted by
+  each group's precision so a noisy group barely moves it; Var d = σ_g²[S_g⁻¹]_jj + [A⁻¹]_jj = a + Σ c_h,
+  c_h = u'(S_h/σ_h²)u with u = A⁻¹e_j. Holding the weights at their estimates (as Welch's test does),
+  c_h = σ̂_h²·u'S_h u/σ_h⁴ is linear in σ̂_h², of variance 2c_h²/ν_h, so Welch–Satterthwaite gives
+  df = (a + Σ c_h)² / (a²/ν_g + Σ c_h²/ν_h). An exact fit counts with variance eps·(largest σ_h²).
+Rule: own variances are used when Bartlett's test of equal residual variances (each on n_g − p degrees
+of freedom) rejects at `alpha`; otherwise the common one. The set R is judged the way the rule picked,
+p adjusted across groups per input: it starts as all groups; while members stand apart (adjusted p
+below `alpha`) the strongest are set aside, never leaving half or fewer of the groups; after each change,
+groups set aside that no longer stand apart against the current members return. This repeats until
+nothing changes (MAX_ROUNDS at most; a set seen before stops it); groups that still do not stand apart
+then return until none is left (R only grows there), so every group outside R stands apart at the end.
+With none apart this is leave-one-out; with two steep groups of ten, the eight ordinary ones are judged
+against each other, not against a slope the steep two pulled up.
 A weighted run compares the whitened rows √w·y, √w·X (weighted means and sums of squares).
 """
 
@@ -35,7 +38,7 @@ from .unfit import COLLINEAR_TOL, too_few_rows
 
 BATCH_ROWS = 400_000       # padded rows per batched QR of the groups' blocks
 PAD_RATIO = 1.3            # groups in one batch differ in size by at most this factor
-MAX_ROUNDS = 20            # rounds of setting groups aside from the reference set
+MAX_ROUNDS = 20            # rounds of setting groups aside from (and back into) the reference set
 NO_CONSTANT = ("the model has no constant, so the groups cannot keep their own intercepts; "
                "slopes are compared across groups only for models with a constant")
 NO_INPUT = "the model has no input besides the constant: there is no slope to compare"
@@ -57,8 +60,9 @@ class OverallTest:
 
 @dataclass(frozen=True)
 class Differences:
-    """One way to judge d = group slope − slope of the others: (C, k) arrays per group and input."""
+    """One way to judge d = group slope − reference slope: (C, k) arrays per group and input."""
 
+    reference: np.ndarray    # the slope of the other groups in the reference set, pooled this way
     se: np.ndarray
     df: np.ndarray
     t: np.ndarray
@@ -79,7 +83,6 @@ class GroupComparison:
     codes: np.ndarray             # (C,) codes of the compared groups
     n: np.ndarray                 # (C,) rows per compared group
     slope: np.ndarray             # (C, k) each group's own slopes
-    reference: np.ndarray         # (C, k) common slopes of the other groups in the reference set
     common_slope: np.ndarray      # (k,) common slopes of all compared groups (own intercepts)
     in_reference: np.ndarray      # (C,) bool: the group is in the reference set
     sigma2: np.ndarray            # (C,) each group's residual variance (weighted: of the whitened rows)
@@ -96,6 +99,11 @@ class GroupComparison:
     @property
     def compared(self) -> bool:
         return not self.reason
+
+    @property
+    def reference(self) -> np.ndarray:
+        """(C, k) the slope of the other groups in the reference set, pooled the way the rule picked."""
+        return self.used.reference
 
     @property
     def difference(self) -> np.ndarray:
@@ -251,7 +259,7 @@ class _Groups:
     """Per compared group, in scaled units: what every comparison against a reference set needs."""
 
     within: np.ndarray       # (C, k+1, k+1) factors of [Xc | yc] with the group's own RSS taken out
-    R: np.ndarray            # (C, k, k) factor of the centred inputs
+    S: np.ndarray            # (C, k, k) X_c'X_c
     sinv_diag: np.ndarray    # (C, k) diagonal of S_g⁻¹
     slope: np.ndarray        # (C, k)
     sigma2: np.ndarray       # (C,) own residual variance
@@ -259,6 +267,8 @@ class _Groups:
     pooled: float            # RSS_sep / df_sep
     df_sep: float
     level: float
+    top: float               # the largest σ_h²: precisions are taken relative to 1/top
+    relative: np.ndarray     # (C,) top/σ_h² (at most 1/eps; all 1 when every σ_h² is 0)
 
 
 def _compare(F: np.ndarray, blocks: CentredBlocks, codes: np.ndarray, left_out: np.ndarray, weighted: bool,
@@ -271,60 +281,73 @@ def _compare(F: np.ndarray, blocks: CentredBlocks, codes: np.ndarray, left_out: 
     within = F.copy()
     within[:, k, k] = 0.0                    # each group's own RSS left out: what pooling adds to it
     rss_sep, df_sep = float(rss.sum()), float(nu.sum())
-    groups = _Groups(within, F[:, :k, :k], np.einsum("gij,gij->gi", Rinv, Rinv), (Rinv @ F[:, :k, k:])[..., 0],
-                     rss / nu, nu, rss_sep / df_sep if df_sep > 0 else np.nan, df_sep, level)
+    sigma2 = rss / nu
+    top = float(sigma2.max())
+    relative = top / np.maximum(sigma2, np.finfo(np.float64).eps * top) if top > 0 else np.ones(C)
+    groups = _Groups(within, np.swapaxes(F[:, :k, :k], 1, 2) @ F[:, :k, :k], np.einsum("gij,gij->gi", Rinv, Rinv),
+                     (Rinv @ F[:, :k, k:])[..., 0], sigma2, nu, rss_sep / df_sep if df_sep > 0 else np.nan,
+                     df_sep, level, top, relative)
     everyone = r_factor(within.reshape(1, C * (k + 1), k + 1))[0]
     line = r_factor(np.vstack([everyone, blocks.between]))
     equal_slopes = _f_test(everyone[k, k] ** 2, (C - 1) * k, rss_sep, df_sep)
     common_line = _f_test(line[k, k] ** 2, (C - 1) * (k + 1), rss_sep, df_sep)
-    variances = equal_variance_test(groups.sigma2, nu)
+    variances = equal_variance_test(sigma2, nu)
     own_used = bool(np.isfinite(variances.pvalue) and variances.pvalue < alpha)
-    member, (reference, common, own) = _reference_set(groups, own_used, alpha, adjust)
+    member, used = _reference_set(groups, own_used, alpha, adjust)
+    other = _against(groups, member, not own_used)           # the way the rule did not pick, same set
+    common, own = (other, used) if own_used else (used, other)
     u = blocks.scale[k] / blocks.scale[:k]
     common_slope = np.linalg.solve(everyone[:k, :k], everyone[:k, k]) * u
-    return GroupComparison("", left_out, codes, blocks.counts, groups.slope * u, reference * u, common_slope,
-                           member, groups.sigma2 * blocks.scale[k] ** 2, equal_slopes, common_line, variances,
+    return GroupComparison("", left_out, codes, blocks.counts, groups.slope * u, common_slope, member,
+                           sigma2 * blocks.scale[k] ** 2, equal_slopes, common_line, variances,
                            _unscaled(common, u), _unscaled(own, u), own_used, weighted, level, alpha)
 
 
 def _reference_set(groups: _Groups, own_used: bool, alpha: float, adjust: Callable[[np.ndarray], np.ndarray]
-                   ) -> tuple[np.ndarray, tuple[np.ndarray, Differences, Differences]]:
-    """The groups the reference is pooled from, and every group's comparison against the others among them.
-
-    Start from all groups; while some member stands apart (adjusted p below `alpha` for an input), set
-    aside the members whose largest |t| is at least half the largest one (strongest first), keeping more
-    than half of all groups as members; at most MAX_ROUNDS rounds."""
+                   ) -> tuple[np.ndarray, Differences]:
+    """The reference set and every group's comparison against the other members (module docstring).
+    Each round, set-aside groups no longer apart return; if none does, the members apart with the largest
+    |t| at least half the largest leave (strongest first) while more than half of all groups stay. Once
+    MAX_ROUNDS sets were tried or a set repeats, groups only return, so the loop ends."""
     C = len(groups.nu)
-    member = np.ones(C, dtype=bool)
-    for _ in range(MAX_ROUNDS):
-        result = _against(groups, member)
-        judged = result[2] if own_used else result[1]
-        apart = np.column_stack([adjust(judged.pvalue[:, j]) < alpha for j in range(judged.pvalue.shape[1])])
+    member, seen, settled = np.ones(C, dtype=bool), set(), False
+    while True:
+        judged = _against(groups, member, own_used)
+        apart = np.column_stack([adjust(judged.pvalue[:, j]) < alpha for j in range(judged.t.shape[1])])
+        settled = settled or len(seen) >= MAX_ROUNDS or member.tobytes() in seen
+        seen.add(member.tobytes())
+        back = ~member & ~apart.any(axis=1)
+        if back.any():
+            member = member | back
+            continue
         strength = np.where(apart & member[:, None], np.abs(judged.t), 0.0).max(axis=1)
         room = int(member.sum()) - (C // 2 + 1)
-        if not (strength > 0).any() or room <= 0:
-            return member, result
+        if settled or not (strength > 0).any() or room <= 0:
+            return member, judged
         strong = np.flatnonzero(strength >= strength.max() / 2.0)
         member[strong[np.argsort(-strength[strong], kind="stable")[:room]]] = False
-    return member, _against(groups, member)
 
 
-def _against(groups: _Groups, member: np.ndarray) -> tuple[np.ndarray, Differences, Differences]:
-    """Each group against the common slope of the OTHER members (own intercepts): the reference, and the
-    differences judged with the common and with each group's own residual variance."""
+def _against(groups: _Groups, member: np.ndarray, own: bool) -> Differences:
+    """Each group against the slope of the OTHER members (own intercepts): pooled with equal weights and
+    judged with the common variance, or (`own`) weighted by each group's precision and judged with each
+    group's own variance (see the module docstring)."""
     C, k = groups.slope.shape
     idx = np.flatnonzero(member)
-    others = _complements(groups.within, idx)
+    rows = np.sqrt(groups.relative) if own else np.ones(C)
+    others = _complements(rows[:, None, None] * groups.within, idx)
     Linv = np.linalg.inv(others[:, :k, :k])
     reference = (Linv @ others[:, :k, k:])[..., 0]
-    U = Linv @ np.swapaxes(Linv, 1, 2)       # (S_ref − S_g)⁻¹ for members, S_ref⁻¹ for the rest
-    spread = _complements(np.sqrt(groups.sigma2)[:, None, None] * groups.R, idx)
+    U = Linv @ np.swapaxes(Linv, 1, 2)       # (Σ_{h≠g} r_h S_h)⁻¹ over the members, r_h 1 or top/σ_h²
+    ref_var = np.einsum("gjj->gj", U)
     with np.errstate(divide="ignore", invalid="ignore"):
-        pooled_var = groups.pooled * (groups.sinv_diag + np.einsum("gjj->gj", U))
-        own_var, own_df = _own_variance_parts(groups, U, spread, member)
-    d = groups.slope - reference
-    return (reference, _differences(d, np.sqrt(pooled_var), np.full((C, k), groups.df_sep), groups.level),
-            _differences(d, np.sqrt(own_var), own_df, groups.level))
+        if not own:
+            var, df = groups.pooled * (groups.sinv_diag + ref_var), np.full((C, k), groups.df_sep)
+        else:
+            group = groups.sigma2[:, None] * groups.sinv_diag
+            var = group + groups.top * ref_var
+            df = var**2 / (group**2 / groups.nu[:, None] + groups.top**2 * _spread(groups, U, member))
+    return _differences(groups.slope - reference, reference, np.sqrt(var), df, groups.level)
 
 
 def _complements(F: np.ndarray, idx: np.ndarray) -> np.ndarray:
@@ -335,43 +358,32 @@ def _complements(F: np.ndarray, idx: np.ndarray) -> np.ndarray:
     return out
 
 
-def _own_variance_parts(groups: _Groups, U: np.ndarray, spread: np.ndarray, member: np.ndarray
-                        ) -> tuple[np.ndarray, np.ndarray]:
-    """Var d with each group's own residual variance, and its Welch–Satterthwaite degrees of freedom.
-
-    Var d_j = a + Σ_h c_h over the reference groups h ≠ g, with a = σ_g²[S_g⁻¹]_jj and c_h = σ_h² u'S_h u,
-    u = U e_j; df = (Var d)² / (a²/ν_g + Σ_h c_h²/ν_h). Σ_h c_h comes from the merged factor `spread` of
-    the σ_h·R_h (no cancellation); Σ_h c_h²/ν_h = (u⊗u)'M(u⊗u) less g's own term, where
-    M = Σ_h σ_h⁴/ν_h vec S_h vec S_hᵀ over the reference groups.
-    """
-    R, sigma2, nu = groups.R, groups.sigma2, groups.nu
+def _spread(groups: _Groups, U: np.ndarray, member: np.ndarray) -> np.ndarray:
+    """(C, k) Σ_h c̃_h²/ν_h over members h ≠ g, c̃_h = u'T_h u, u = U e_j, T_h = r_h S_h (so c_h = top·c̃_h):
+    (u⊗u)'M(u⊗u) with M = Σ_h vec T_h vec T_hᵀ/ν_h over all members, less g's own term (C products, not C²)."""
     C, k = groups.slope.shape
-    K = spread @ U
-    others = np.einsum("gij,gij->gj", K, K)                          # diag of U(Σ σ_h² S_h)U
-    group = sigma2[:, None] * groups.sinv_diag
-    S = np.swapaxes(R, 1, 2) @ R
-    vec = S.reshape(C, k * k)
-    M = np.einsum("g,gi,gj->ij", np.where(member, sigma2**2 / nu, 0.0), vec, vec)
+    T = groups.relative[:, None, None] * groups.S
+    share = np.where(member, 1.0 / groups.nu, 0.0)
+    vec = T.reshape(C, k * k)
+    M = np.einsum("g,gi,gj->ij", share, vec, vec)
     uu = np.einsum("gji,gjl->gjil", U, U).reshape(C, k, k * k)       # row j of U is u (U symmetric)
     total = np.einsum("gja,ab,gjb->gj", uu, M, uu)
-    own = np.where(member, sigma2**2 / nu, 0.0)[:, None] * np.einsum("gji,gil,gjl->gj", U, S, U) ** 2
-    rest = np.maximum(total - own, 0.0)
-    var = group + others
-    return var, var**2 / (group**2 / nu[:, None] + rest)
+    own = share[:, None] * np.einsum("gji,gil,gjl->gj", U, T, U) ** 2
+    return np.maximum(total - own, 0.0)
 
 
 def _unscaled(diff: Differences, u: np.ndarray) -> Differences:
-    """`diff` in the data's units: std errors and interval ends times y's scale over the input's."""
-    return Differences(diff.se * u, diff.df, diff.t, diff.pvalue, diff.low * u, diff.high * u)
+    """`diff` in the data's units: slopes, std errors and interval ends times y's scale over the input's."""
+    return Differences(diff.reference * u, diff.se * u, diff.df, diff.t, diff.pvalue, diff.low * u, diff.high * u)
 
 
-def _differences(d: np.ndarray, se: np.ndarray, df: np.ndarray, level: float) -> Differences:
+def _differences(d: np.ndarray, reference: np.ndarray, se: np.ndarray, df: np.ndarray, level: float) -> Differences:
     """t, two-sided p-value and the interval at `level` of differences d with std errors se on df."""
     with np.errstate(divide="ignore", invalid="ignore"):
         t = d / se
         pvalue = 2.0 * stats.t.sf(np.abs(t), df)
         half = stats.t.ppf(0.5 + level / 2.0, df) * se
-    return Differences(se, df, t, pvalue, d - half, d + half)
+    return Differences(reference, se, df, t, pvalue, d - half, d + half)
 
 
 def _f_test(extra: float, df1: float, rss: float, df2: float) -> OverallTest:
@@ -401,9 +413,9 @@ def not_compared(reason: str, left_out: np.ndarray, k: int, weighted: bool, leve
     """A comparison that was not made, with the reason and what each group would have been."""
     k = max(k, 0)
     empty = np.zeros((0, k))
-    none = Differences(empty, empty, empty, empty, empty, empty)
+    none = Differences(empty, empty, empty, empty, empty, empty, empty)
     blank = OverallTest(np.nan, np.nan, np.nan, np.nan)
     no_groups = np.zeros(0, dtype=np.int64)
-    return GroupComparison(reason, left_out, no_groups, no_groups, empty, empty, np.full(k, np.nan),
+    return GroupComparison(reason, left_out, no_groups, no_groups, empty, np.full(k, np.nan),
                            np.zeros(0, dtype=bool), np.zeros(0), blank, blank, blank, none, none, False,
                            weighted, level, alpha)

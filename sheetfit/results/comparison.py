@@ -154,12 +154,17 @@ def comparison_notes(comp: GroupComparison, thresholds: Thresholds) -> tuple[str
     """The lines to read before the tables: reference, assumption and std errors used, adjustment, caution."""
     C = len(comp.codes)
     aside = C - int(comp.in_reference.sum())
-    reference = ("Reference: each group's slope is compared with the common slope of the OTHER groups (fitted "
-                 "together, each group keeping its own intercept), so a group never pulls its own reference. ")
-    were = "group of {} stood apart and was" if aside == 1 else "groups of {} stood apart and were"
+    weighting = ("weighted by each group's precision (1 / its residual variance, so a noisy group barely moves "
+                 "it)" if comp.own_used else "every group weighted alike")
+    reference = ("Reference: each group's slope is compared with the common slope of the OTHER groups in the "
+                 f"reference, fitted together with each group keeping its own intercept and {weighting}; a group "
+                 "never pulls its own reference. ")
+    were = "group of {} stands apart and was" if aside == 1 else "groups of {} stand apart and were"
     reference += (f"{aside} {were.format(C)} set aside from the reference, strongest first, so they do not drag "
-                  f"it (never half of the groups or more); '{IN_REFERENCE}' says which."
-                  if aside else "No group stood apart, so every other group is in each group's reference.")
+                  "it (never half of the groups or more); a group set aside returns when it no longer stands "
+                  f"apart from the groups that remain, so every group set aside is flagged; '{IN_REFERENCE}' "
+                  "says which." if aside else "No group stands apart, so every other group is in each group's "
+                  "reference.")
     p = comp.equal_variances.pvalue
     shown = "not computed" if not np.isfinite(p) else ("p < 0.0001" if p < 1e-4 else f"p = {p:.4f}")
     variant = ("each group's own residual variance (Welch-type std errors and degrees of freedom)" if comp.own_used

@@ -17,21 +17,26 @@ import sheetfit.report as report
 from sheetfit.job import Thresholds
 from sheetfit.report import write_results
 from sheetfit.report.comparison import DATA_COLUMNS, DATA_SHEET, SHEET, TESTS_TITLE, comparison_sheet
-from sheetfit.results.comparison import (EQUAL_SLOPES, HOW_IT_DIFFERS, SLOPE_HEADERS, STATISTIC, TEST,
+from sheetfit.results.comparison import (EQUAL_SLOPES, HOW_IT_DIFFERS, IN_REFERENCE, SLOPE_HEADERS, STATISTIC, TEST,
                                          compare_across_groups, comparison_tables)
 
 SITES = ["=1+2", "North", "South", "East", "West", "Harbour", "Depot", "Mill"]
 STEEP = "Depot"
 
 
-def comparison(ok=None, intercept: bool = True):
-    """Eight sites, inputs CDD and pallets; Depot responds about twice as strongly to CDD."""
+def comparison(ok=None, intercept: bool = True, noisy: bool = False):
+    """Eight sites, inputs CDD and pallets; Depot responds about twice as strongly to CDD; `noisy`: Mill
+    responds three times as strongly with ten times the residual sd."""
     rng = np.random.default_rng(21)
     n, G = 24, len(SITES)
     codes = np.repeat(np.arange(G), n)
     cdd, pallets = rng.uniform(50, 400, G * n), rng.uniform(1000, 6000, G * n)
     slope = np.where(codes == SITES.index(STEEP), 6.0, 3.0)
-    y = 800 + 40 * codes + slope * cdd + 0.05 * pallets + rng.normal(0, 60, G * n)
+    sd = np.full(G * n, 60.0)
+    if noisy:
+        mill = codes == SITES.index("Mill")
+        slope, sd = np.where(mill, 9.0, slope), np.where(mill, 600.0, sd)
+    y = 800 + 40 * codes + slope * cdd + 0.05 * pallets + rng.normal(0, 1, G * n) * sd
     X = np.column_stack([np.ones(G * n), cdd, pallets])
     ok = np.ones(G, bool) if ok is None else ok
     comp = compare_across_groups(y, X, codes, ok, intercept=intercept, thresholds=Thresholds(), level=0.95)
@@ -108,3 +113,18 @@ def test_no_comparison_writes_the_reason(make_results, tmp_path, monkeypatch):
     texts = [ws.cell(r, 1).value for r in range(1, ws.max_row + 1)]
     assert texts[1] == f"Not compared: {tables.reason}."
     assert "no constant" in tables.reason
+
+
+def test_sheet_says_the_reference_is_weighted_by_precision(make_results, tmp_path, monkeypatch):
+    tables = comparison(noisy=True)
+    path = write(make_results, tmp_path, monkeypatch, tables)
+    ws = openpyxl.load_workbook(path)[SHEET]
+    assert "weighted by each group's precision" in ws.cell(2, 1).value      # the reference note, first
+    assert "each group's own residual variance" in tables.notes[1]
+    top = header_row(ws)
+    inside = SLOPE_HEADERS.index(IN_REFERENCE) + 2
+    how = SLOPE_HEADERS.index(HOW_IT_DIFFERS) + 2
+    rows = range(top + 1, top + 1 + 2 * len(SITES))
+    aside = {ws.cell(r, 1).value for r in rows if ws.cell(r, inside).value == "no"}
+    flagged = {ws.cell(r, 1).value for r in rows if ws.cell(r, how).value}
+    assert STEEP in aside and aside <= flagged                    # every site set aside is flagged on the sheet
