@@ -1,6 +1,6 @@
 """The Python API: the same functions the command line calls, with keyword settings.
 
-fit_workbook(path, y=…, x=[…], group=[…], sheet=…) → FitResults
+fit_workbook(path | [paths] | folder, y=…, x=[…], group=[…], sheet=…) → FitResults
 fit_frame(data_frame, y=…, x=[…], group=[…]) → FitResults
 write_results(results, path) → Path
 predict(results_or_path, new_rows_df) → DataFrame
@@ -43,10 +43,13 @@ def job_from(workbook: str | Path | None = None, job_file: str | Path | None = N
     return make_job(merged)
 
 
-def fit_workbook(workbook: str | Path, *, y: str, x: Sequence[str] | str, group: Sequence[str] | str = (),
-                 sheet: str | Sequence[str] | None = None, job_file: str | Path | None = None,
-                 **settings: Any) -> FitResults:
-    """Fit one OLS model per group of rows in a workbook sheet; returns tables as DataFrames."""
+def fit_workbook(workbook: str | Path | Sequence[str | Path], *, y: str, x: Sequence[str] | str,
+                 group: Sequence[str] | str = (), sheet: str | Sequence[str] | None = None,
+                 job_file: str | Path | None = None, **settings: Any) -> FitResults:
+    """Fit one OLS model per group of rows in a workbook sheet; returns tables as DataFrames.
+
+    `workbook` may also be a list of files or a folder (its .xlsx, .xlsm, .xls, .ods and .csv files): they
+    are read as one table, the file name the first group column (`sheetfit.read.many`)."""
     job = job_from(workbook, job_file, y=y, x=x, group=group, sheet=sheet, **settings)
     return fit_job(job)
 
@@ -55,7 +58,8 @@ def fit_frame(frame: pd.DataFrame, *, y: str, x: Sequence[str] | str, group: Seq
               order: str | None = None, **settings: Any) -> FitResults:
     """Fit one OLS model per group of an in-memory DataFrame of numbers (same tables as fit_workbook)."""
     job = make_job({"workbook": "(data frame)", "y": y, "x": x, "group": group, "order": order, **settings})
-    obs = observations_from_frame(frame, y=job.y, x=job.x, group=job.group, order=job.order, weights=job.weights)
+    obs = observations_from_frame(frame, y=job.y, x=job.x, group=job.group, order=job.order, weights=job.weights,
+                                  responses=job.responses)
     return fit_observations(obs, job)
 
 

@@ -109,6 +109,13 @@ FIT_HELP = """Fit one least-squares model per group of rows and write a NEW resu
 The input workbook is only read. Results go to <input name>-fit.xlsx beside it unless --out
 says otherwise; an existing results file is kept unless --overwrite is given.
 
+Several workbooks (say, one per site) are read as one table: give several WORKBOOK paths or a
+folder (its .xlsx, .xlsm, .xls, .ods and .csv files; hidden files, ~$ lock files and files named
+*-fit.xlsx or *-predicted.xlsx are left out). Every file needs the columns asked for; the file
+name becomes the first group column, "file" ("file name" if a file has a column "file").
+Results go to <first name>-and-N-more-fit.xlsx beside the first file, or <folder
+name>-fit.xlsx beside the folder.
+
 \b
 Example: a sheet "Monthly" with one row per site and month,
 columns Site, Month, kWh, Cooling degree-days and Pallets:
@@ -127,7 +134,8 @@ Settings can also come from a TOML job file (--job); options given here override
 Keys are the long option names (dashes or underscores), except: sheets = [...] for
 --sheet, intercept = false for --no-intercept, max_unpacked_bytes for --max-unpacked-mb.
 For example:
-  workbook = "usage.xlsx"          # relative paths are relative to the job file
+  workbook = "usage.xlsx"          # relative paths are relative to the job file;
+                                   # or a folder, or a list: ["north.xlsx", "south.csv"]
   sheets = ["Monthly"]
   group = ["Site"]
   y = "kWh"
@@ -154,16 +162,17 @@ def _opt(default: Any, *names: str, help: str, show_default: bool | str = True, 
 @app.command("fit", help=FIT_HELP, no_args_is_help=True)
 def fit(
     ctx: typer.Context,
-    workbook: Path | None = typer.Argument(
+    workbook: list[Path] | None = typer.Argument(
         None, metavar="WORKBOOK", show_default=False, readable=False,
-        help="The workbook to read (.xlsx, .xlsm, .xls, .ods or .csv)."),
+        help="The workbook to read (.xlsx, .xlsm, .xls, .ods or .csv). Several files, or a folder of them, "
+             "are read as one table with the file name as the first group column."),
     sheet: list[str] | None = _opt(None, "--sheet", help="Sheet to read; repeat for several (default: the first sheet).", show_default=False, metavar="NAME"),
     all_sheets: bool = _opt(False, "--all-sheets", help="Read every sheet (they must share the same headers).", show_default=False),
     table: str | None = _opt(None, "--table", help="Read a named table or defined range instead of a whole sheet.", show_default=False, metavar="NAME"),
     header_row: int | None = _opt(None, "--header-row", help="Row number of the header (default: first non-empty row).", show_default=False, metavar="N"),
     group: list[str] | None = _opt(None, "--group", help="Column whose values split the rows into groups; "
                                    "repeat for several (one fit per combination).", show_default=False, metavar="COL"),
-    y: str | None = _opt(None, "--y", help="Response column (the value being explained). Required.", show_default=False, metavar="COL"),
+    y: list[str] | None = _opt(None, "--y", help="Response column (the value being explained); repeat to fit several responses against the same inputs, each response a key on every results sheet. Required.", show_default=False, metavar="COL"),
     x: list[str] | None = _opt(None, "--x", help="Input term; repeat for several. Required.", show_default=False, metavar="TERM"),
     no_intercept: bool = _opt(False, "--no-intercept", help="Fit without an intercept (a line through zero).", show_default=False),
     level: float = _opt(DEFAULTS["level"], "--level", help="Confidence level of the intervals."),
@@ -204,6 +213,7 @@ def fit(
     max_nmbe: float = _opt(DEFAULTS["max_nmbe"], "--max-nmbe", help="Baseline criterion: flag fits whose |NMBE| in % is above this."),
     baseline_min_r2: float = _opt(DEFAULTS["baseline_min_r2"], "--baseline-min-r2", help="Baseline criterion: flag fits whose R² is below this."),
     previous: Path | None = _opt(None, "--previous", metavar="OLD.xlsx", show_default=False, readable=False, help="An earlier results workbook of the same model: each group is compared with its earlier fit (Chow test, coefficient changes, flags) on the sheet 'since previous run'."),
+    reference: list[str] | None = _opt(None, "--reference", metavar="COL=LEVEL", show_default=False, help="The reference level of a category input (default: its first level in sorted order); repeat for several."),
     weights: str | None = _opt(None, "--weights", metavar="W", show_default=False, help="Weighted least squares: each row's weight is the column W, 1/COL or 1/COL^2 (COL an input or the response); weights are scaled to average 1 within each group."),
     calibration: bool = _opt(False, "--calibration", show_default=False, help="Each group is a calibration line: limits of detection and quantification on groups, each standard's back-calculated value on observations."),
     back_calc_limit: float = _opt(DEFAULTS["back_calc_limit"], "--back-calc-limit", help="With --calibration: flag standards whose back-calculated value is off by more than this %."),
@@ -217,6 +227,8 @@ def fit(
     quiet: bool = _opt(False, "--quiet", "-q", help="No progress bar and no summary; only the results path.", show_default=False),
     debug: bool = _opt(False, "--debug", help="Show the full traceback of an error, and any warnings.", show_default=False),
 ) -> None:
+    if workbook is not None and len(workbook) == 1:
+        ctx.params["workbook"] = workbook[0]         # one WORKBOOK is one file (or a folder), not a list of one
     _run_fit(ctx, job_file, quiet, debug)
 
 
@@ -228,7 +240,8 @@ def _run_fit(ctx: typer.Context, job_file: Path | None, quiet: bool, debug: bool
         settings.update(_settings_from_options(ctx.params, given))
         _require(ctx, settings)
         job = make_job(settings)
-        refuse_special_file(job.workbook)
+        for path in job.inputs:
+            refuse_special_file(path)
         from .pipeline import run_job, summary_lines
 
         with stage_bar(not quiet) as bar:
@@ -276,7 +289,7 @@ def _settings_from_options(params: dict[str, Any], given: set[str]) -> dict[str,
 
 def _require(ctx: typer.Context, settings: dict[str, Any]) -> None:
     """Missing required settings are usage errors (exit 2), whether typed or in the job file."""
-    if not settings.get("workbook"):
+    if not settings.get("workbook"):          # none typed (None) or an empty list in the job file
         ctx.fail("Missing argument 'WORKBOOK' (or set workbook in the --job file).")
     if not settings.get("y"):
         ctx.fail("Missing option '--y' (or set y in the --job file).")

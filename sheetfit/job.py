@@ -8,233 +8,27 @@ choices, what it means); the job file, the API keywords and the CLI values all p
 
 from __future__ import annotations
 
-import math
-import numbers
-import os
 import tomllib
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
 from .errors import JobError, closest
-
-ADJUST_METHODS = ("bh", "holm", "none")
-ROBUST_KINDS = ("hc0", "hc1", "hc2", "hc3")
-INFERENCE_KINDS = ("classic", "robust")
-OBSERVATION_MODES = ("all", "flagged", "none")
-CHANGE_POINT_SHAPES = ("none", "heating", "cooling", "two-slopes", "heating-cooling", "auto")
-MAX_LAGS = 10_000
-
-
-@dataclass(frozen=True)
-class Setting:
-    """One setting's contract: its kind, the values allowed, what it means and its option on the CLI.
-
-    kind: path | text | texts (a list of texts; one text is a list of one) | bool | int | number | choice.
-    low/high bound numbers (`low_open`/`high_open`: the bound itself is excluded); `optional` allows
-    None (the default).
-    """
-
-    kind: str
-    description: str
-    option: str = ""
-    low: float | None = None
-    high: float | None = None
-    low_open: bool = False
-    high_open: bool = False
-    choices: tuple[str, ...] = ()
-    optional: bool = False
-
-    def expected(self) -> str:
-        """'a number above 0 and below 1', 'true or false', 'one of "bh", "holm", "none"'…"""
-        if self.kind == "choice":
-            return "one of " + ", ".join(f'"{c}"' for c in self.choices)
-        base = {"path": "a file path (text)", "text": "a non-empty text",
-                "texts": "a list of non-empty texts (or one text)",
-                "bool": "true or false", "int": "a whole number", "number": "a finite number"}[self.kind]
-        bounds = []
-        if self.low is not None:
-            bounds.append(f"above {self.low:g}" if self.low_open else f"{self.low:g} or more")
-        if self.high is not None:
-            bounds.append(f"below {self.high:g}" if self.high_open else f"at most {self.high:g}")
-        return base + (" " + " and ".join(bounds) if bounds else "")
-
-
-def _threshold(description: str, option: str) -> Setting:
-    return Setting("number", description, option, low=0.0, low_open=True)
-
-
-SCHEMA: dict[str, Setting] = {
-    "workbook": Setting("path", "the workbook or CSV file to read", "WORKBOOK"),
-    "y": Setting("text", "the response column", "--y"),
-    "x": Setting("texts", "the input terms (columns, COL^k, log(COL), sqrt(COL))", "--x"),
-    "group": Setting("texts", "the columns whose values split the rows into groups", "--group"),
-    "sheets": Setting("texts", "the sheets to read (default: the first)", "--sheet"),
-    "all_sheets": Setting("bool", "read every sheet", "--all-sheets"),
-    "table": Setting("text", "a named table or defined name to read instead of a sheet", "--table", optional=True),
-    "header_row": Setting("int", "the header's row number (default: first non-empty row)", "--header-row",
-                          low=1, optional=True),
-    "intercept": Setting("bool", "fit an intercept", "--no-intercept"),
-    "level": Setting("number", "the confidence level of the intervals", "--level", low=0.5, high=1.0,
-                     high_open=True),
-    "order": Setting("text", "the column giving the order within a group", "--order", optional=True),
-    "strict": Setting("bool", "stop if any row cannot be used", "--strict"),
-    "csv_delimiter": Setting("text", "the field separator of a .csv input", "--csv-delimiter", optional=True),
-    "csv_decimal": Setting("text", "the decimal mark of a .csv input", "--csv-decimal", optional=True),
-    "max_unpacked_bytes": Setting("int", "refuse workbooks that unpack to more bytes than this",
-                                  "--max-unpacked-mb", low=1),
-    "out": Setting("path", "the results workbook to write", "--out", optional=True),
-    "overwrite": Setting("bool", "replace an existing results workbook", "--overwrite"),
-    "max_charts": Setting("int", "at most this many charts", "--max-charts", low=0),
-    "observations": Setting("choice", "rows on the observations sheet", "--observations",
-                            choices=OBSERVATION_MODES),
-    "alpha": Setting("number", "the level of every p-value-based verdict", "--alpha", low=0.0, high=1.0,
-                     low_open=True, high_open=True),
-    "adjust": Setting("choice", "the p-value adjustment across groups", "--adjust", choices=ADJUST_METHODS),
-    "min_r2": Setting("number", "flag fits whose R² is below this", "--min-r2", low=0.0, high=1.0),
-    "rows_per_coefficient": _threshold("flag fits with fewer rows per coefficient", "--rows-per-coefficient"),
-    "leverage_factor": _threshold("highlight rows with leverage above factor·p/n", "--leverage-factor"),
-    "studentized_cutoff": _threshold("highlight rows with |studentized residual| above this",
-                                     "--studentized-cutoff"),
-    "cooks_factor": _threshold("highlight rows with Cook's distance above factor/n", "--cooks-factor"),
-    "vif_max": _threshold("flag inputs whose VIF exceeds this", "--vif-max"),
-    "condition_max": _threshold("flag designs whose condition number exceeds this", "--condition-max"),
-    "bg_lags": Setting("int", "lags of the Breusch–Godfrey test", "--bg-lags", low=1, high=MAX_LAGS),
-    "hac_lags": Setting("int", "lags of the Newey–West std errors (default: from n)", "--hac-lags", low=0,
-                        high=MAX_LAGS, optional=True),
-    "robust": Setting("choice", "the kind of robust std errors", "--robust", choices=ROBUST_KINDS),
-    "inference": Setting("choice", "the std errors behind intervals and flags", "--inference",
-                         choices=INFERENCE_KINDS),
-    "change_point": Setting("choice", "the change-point shape of the temperature input", "--change-point",
-                            choices=CHANGE_POINT_SHAPES),
-    "change_point_input": Setting("text", "the input whose change point is searched (default: the first "
-                                  "plain-column input)", "--change-point-input", optional=True),
-    "baseline_checks": Setting("bool", "judge fits by the energy-baseline criteria (on with --change-point)",
-                               "--baseline-checks", optional=True),
-    "previous": Setting("path", "an earlier results workbook of the same model to compare this run with",
-                        "--previous", optional=True),
-    "weights": Setting("text", "row weights of a weighted least-squares fit: a column, 1/COL or 1/COL^2",
-                       "--weights", optional=True),
-    "calibration": Setting("bool", "treat each group as a calibration line: detection and quantification limits, "
-                           "back-calculated standards", "--calibration"),
-    "back_calc_limit": _threshold("flag standards whose back-calculated value deviates by more than this %",
-                                  "--back-calc-limit"),
-    "back_calc_limit_lowest": _threshold("the same at the lowest non-zero standard, in %",
-                                         "--back-calc-limit-lowest"),
-    "max_cv_rmse": _threshold("flag baselines whose CV(RMSE) in % is above this", "--max-cv-rmse"),
-    "max_nmbe": _threshold("flag baselines whose |NMBE| in % is above this", "--max-nmbe"),
-    "baseline_min_r2": Setting("number", "flag baselines whose R² is below this", "--baseline-min-r2",
-                               low=0.0, high=1.0),
-}
-TABLES = ("thresholds", "checks")        # job-file tables whose keys join the top-level ones
-
-
-def _shown(value: Any) -> str:
-    """The value found, as the user wrote it, with its kind: '"high" (text)', '[1, 2] (a list)'."""
-    if isinstance(value, bool):
-        return f"{str(value).lower()} (true/false)"
-    if isinstance(value, str):
-        return f'"{value}" (text)'
-    if isinstance(value, (list, tuple)):
-        return f"{list(value)!r} (a list)"
-    if isinstance(value, dict):
-        return "a table"
-    if isinstance(value, numbers.Number):
-        return f"{value!r}"
-    return f"{value!r} (a {type(value).__name__})"
-
-
-def _refuse(key: str, spec: Setting, value: Any, where: str = "") -> JobError:
-    option = f" ({spec.option})" if spec.option and spec.option != key else ""
-    hint = " (write it without quotes)" if _quoted(spec, value) else ""
-    return JobError(f'{where}setting "{key}"{option} must be {spec.expected()}; found {_shown(value)}{hint}')
-
-
-def _quoted(spec: Setting, value: Any) -> bool:
-    """True when a text would be a right value without its quotes (`overwrite = "false"`, `alpha = "0.1"`)."""
-    if not isinstance(value, str):
-        return False
-    if spec.kind == "bool":
-        return value.strip().lower() in ("true", "false")
-    if spec.kind in ("int", "number"):
-        try:
-            float(value)
-        except ValueError:
-            return False
-        return True
-    return False
-
-
-def check_setting(key: str, value: Any, where: str = "") -> Any:
-    """`value` checked against SCHEMA[key] and normalised (tuple of texts, Path, float, int); else JobError.
-
-    `where` prefixes the message (e.g. 'job file job.toml: ').
-    """
-    spec = SCHEMA.get(key)
-    if spec is None:
-        raise unknown_setting(key, where)
-    if value is None and spec.optional:
-        return None
-    kind = spec.kind
-    if kind == "bool":
-        if not isinstance(value, bool):
-            raise _refuse(key, spec, value, where)
-        return value
-    if kind in ("text", "choice"):
-        if isinstance(value, str) and not value and spec.optional:
-            return None                     # an empty text is the default (`--csv-delimiter ""`)
-        if not isinstance(value, str) or not value or (kind == "choice" and value not in spec.choices):
-            raise _refuse(key, spec, value, where)
-        return value
-    if kind == "path":
-        if not isinstance(value, (str, os.PathLike)) or not str(value).strip():
-            raise _refuse(key, spec, value, where)
-        return Path(value)
-    if kind == "texts":
-        items = (value,) if isinstance(value, str) else value
-        if not isinstance(items, (list, tuple)) or not all(isinstance(v, str) and v for v in items):
-            raise _refuse(key, spec, value, where)
-        return tuple(items)
-    return _check_number(key, spec, value, where)
-
-
-def _check_number(key: str, spec: Setting, value: Any, where: str) -> int | float:
-    """An int or number setting: a real number (not a boolean, not text), finite, whole if int, in range."""
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise _refuse(key, spec, value, where)
-    try:
-        number = float(value)
-    except OverflowError:                   # an int beyond any float
-        raise _refuse(key, spec, value, where) from None
-    if not math.isfinite(number):
-        raise _refuse(key, spec, value, where)
-    if spec.kind == "int":
-        if isinstance(value, numbers.Integral):
-            number = int(value)
-        elif number.is_integer():
-            number = int(number)
-        else:
-            raise _refuse(key, spec, value, where)
-    if spec.low is not None and (number < spec.low or (spec.low_open and number == spec.low)):
-        raise _refuse(key, spec, value, where)
-    if spec.high is not None and (number > spec.high or (spec.high_open and number == spec.high)):
-        raise _refuse(key, spec, value, where)
-    return number
-
-
-def unknown_setting(key: str, where: str = "") -> JobError:
-    """The error for a key no setting has: names the closest known key (or lists them all)."""
-    near = closest(str(key), SCHEMA)
-    tail = (f'closest known setting: "{near}"' if near is not None
-            else "known settings: " + ", ".join(SCHEMA))
-    return JobError(f'{where}unknown setting "{key}"; {tail}')
-
-
-def _check_fields(obj: Any) -> None:
-    for f in fields(obj):
-        if f.name in SCHEMA:
-            check_setting(f.name, getattr(obj, f.name))
-
+from .settings import (  # noqa: F401  (re-exported: the settings' names are part of sheetfit.job)
+    ADJUST_METHODS,
+    CHANGE_POINT_SHAPES,
+    INFERENCE_KINDS,
+    MAX_LAGS,
+    OBSERVATION_MODES,
+    ROBUST_KINDS,
+    SCHEMA,
+    TABLES,
+    Setting,
+    check_fields,
+    check_setting,
+    shown_value,
+    unknown_setting,
+)
 
 @dataclass(frozen=True)
 class Thresholds:
@@ -261,7 +55,7 @@ class Thresholds:
 
     def validate(self) -> "Thresholds":
         """Every field against SCHEMA (type, finiteness, range, choices); JobError on the first wrong one."""
-        _check_fields(self)
+        check_fields(self)
         return self
 
 
@@ -269,7 +63,7 @@ class Thresholds:
 class FitJob:
     """Everything one run needs: input region, model, thresholds and output choices."""
 
-    workbook: Path
+    workbook: Path | tuple[Path, ...]     # one file; or several files / a folder read as one table (read.many)
     y: str
     x: tuple[str, ...]
     group: tuple[str, ...] = ()
@@ -292,6 +86,8 @@ class FitJob:
     change_point_input: str | None = None  # the temperature column; None → the first plain-column input
     baseline_checks: bool | None = None  # energy-baseline criteria; None → on exactly when change_point is set
     previous: Path | None = None         # an earlier results workbook: what changed since (results.changes)
+    reference: tuple[str, ...] = ()      # COLUMN=LEVEL: the reference level of a category input
+    responses: tuple[str, ...] = ()      # --y repeated: every response (y is the first); empty for one response
     weights: str | None = None           # weighted least squares: COL, 1/COL or 1/COL^2 (terms.parse_weights)
     calibration: bool = False            # calibration-line extras: limits on groups, back-calculated standards
     thresholds: Thresholds = field(default_factory=Thresholds)
@@ -302,9 +98,9 @@ class FitJob:
             raise JobError("no response column given; name it with --y COLUMN")
         if not self.x:
             raise JobError("no input term given; name at least one with --x TERM")
-        _check_fields(self)
+        check_fields(self)
         if not isinstance(self.thresholds, Thresholds):
-            raise JobError(f"thresholds must be a sheetfit.job.Thresholds; found {_shown(self.thresholds)}")
+            raise JobError(f"thresholds must be a sheetfit.job.Thresholds; found {shown_value(self.thresholds)}")
         self.thresholds.validate()
         if self.calibration and (len(self.x) != 1 or not self.intercept or self.change_point != "none"):
             raise JobError("--calibration needs a straight line in one input with a constant: one --x column, "
@@ -316,6 +112,10 @@ class FitJob:
         if self.change_point == "none" and self.change_point_input is not None:
             raise JobError("--change-point-input names the temperature of a change-point model; add "
                            "--change-point SHAPE or leave it out")
+        self.reference_levels()
+        if self.responses and self.weights and any(r in str(self.weights) for r in self.responses):
+            raise JobError("--weights cannot use a response's own column when several responses are fitted; give a "
+                           "weight column or an input instead, or fit the responses one at a time")
         if self.change_point != "none" and self.weights:
             raise JobError("--weights cannot be combined with --change-point yet (the change-point search is "
                            "unweighted); leave one of them out")
@@ -325,17 +125,47 @@ class FitJob:
         return self
 
     @property
+    def all_responses(self) -> tuple[str, ...]:
+        """Every response column of the run (the one `y` unless --y was repeated)."""
+        return tuple(self.responses) or (self.y,)
+
+    def reference_levels(self) -> dict[str, str]:
+        """--reference as {column: level}; JobError in one line for an entry without '='."""
+        out: dict[str, str] = {}
+        for item in self.reference:
+            col, sep, level = str(item).partition("=")
+            if not sep or not col.strip() or not level.strip():
+                raise JobError(f'--reference "{item}": write COLUMN=LEVEL, for example --reference "Shift=day"')
+            out[col.strip()] = level.strip()
+        return out
+
+    @property
     def judge_baseline(self) -> bool:
         """Whether the energy-baseline criteria are checks of this run."""
         return self.change_point != "none" if self.baseline_checks is None else bool(self.baseline_checks)
 
     @property
+    def inputs(self) -> tuple[Path, ...]:
+        """The input paths as given (a folder stays a folder; `read.many.input_files` lists what it holds)."""
+        return tuple(Path(p) for p in self.workbook) if isinstance(self.workbook, tuple) else (Path(self.workbook),)
+
+    @property
+    def several_files(self) -> bool:
+        """Whether the input is a list of paths or a folder: read as one table with the file name as a group key.
+
+        A list of one path counts too, so a script's output keeps one layout however many files it lists."""
+        return isinstance(self.workbook, tuple) or Path(self.workbook).is_dir()
+
+    @property
     def output_path(self) -> Path:
-        """Where results go: --out, else `<input stem>-fit.xlsx` beside the input."""
+        """Where results go: --out, else beside the (first) input: `<input stem>-fit.xlsx` for one file or a
+        list of one, `<first stem>-and-N-more-fit.xlsx` for a list of N + 1, `<folder name>-fit.xlsx` for a
+        folder (beside it, not inside, so a later run over the folder does not read it)."""
         if self.out is not None:
             return Path(self.out)
-        src = Path(self.workbook)
-        return src.with_name(f"{src.stem}-fit.xlsx")
+        first = _named(self.inputs[0])
+        more = len(self.inputs) - 1
+        return first.parent / (f"{first.stem}-and-{more}-more-fit.xlsx" if more else f"{first.stem}-fit.xlsx")
 
     def settings_rows(self) -> list[tuple[str, str]]:
         """(setting, value) pairs for the `about` sheet, each setting once.
@@ -349,7 +179,7 @@ class FitJob:
             unused |= set(BASELINE_SETTINGS)
         if not self.calibration:
             unused |= set(CALIBRATION_SETTINGS)
-        unused |= {name for name in OPTIONAL_FEATURES if getattr(self, name) is None}
+        unused |= {name for name in OPTIONAL_FEATURES if getattr(self, name) in (None, ())}
         for f in fields(self):
             if f.name in SHOWN_ELSEWHERE or f.name in unused:
                 continue
@@ -363,8 +193,15 @@ class FitJob:
 CHANGE_POINT_SETTINGS = ("change_point", "change_point_input")      # listed on `about` only when used
 CALIBRATION_SETTINGS = ("calibration", "back_calc_limit", "back_calc_limit_lowest")
 BASELINE_SETTINGS = ("baseline_checks", "max_cv_rmse", "max_nmbe", "baseline_min_r2")
-OPTIONAL_FEATURES = ("weights", "previous")     # listed on `about` only when given
+OPTIONAL_FEATURES = ("weights", "previous", "reference", "responses")     # listed on `about` only when given
 SHOWN_ELSEWHERE = ("thresholds", "workbook", "y", "x", "intercept", "sheets", "header_row")
+
+
+def _named(path: Path) -> Path:
+    """`path` with a last part to name the output after ('.' and '..' are resolved; a root stays 'inputs')."""
+    if path.name in ("", ".", ".."):
+        path = path.resolve()
+    return path if path.name else path / "inputs"
 
 
 def _show(value: Any) -> str:
@@ -429,13 +266,23 @@ def _read_toml(path: Path) -> dict[str, Any]:
 
 
 def job_file_settings(path: Path) -> dict[str, Any]:
-    """The job file's settings, with its relative workbook/out/previous paths taken from the job file's folder."""
+    """The job file's settings, with its relative workbook/out/previous paths (each path of a list of
+    workbooks too) taken from the job file's folder."""
     settings = load_job_file(path)
     for key in ("workbook", "out", "previous"):
         value = settings.get(key)
-        if isinstance(value, str) and value and not Path(value).expanduser().is_absolute():
-            settings[key] = str(Path(path).parent / Path(value).expanduser())
+        if isinstance(value, list):
+            settings[key] = [_from_folder(Path(path).parent, v) for v in value]
+        elif isinstance(value, str):
+            settings[key] = _from_folder(Path(path).parent, value)
     return settings
+
+
+def _from_folder(folder: Path, value: str) -> str:
+    """A job file's path: absolute as written, else taken from the job file's folder."""
+    if value and not Path(value).expanduser().is_absolute():
+        return str(folder / Path(value).expanduser())
+    return value
 
 
 def make_job(settings: dict[str, Any]) -> FitJob:
@@ -446,6 +293,7 @@ def make_job(settings: dict[str, Any]) -> FitJob:
     """
     job_kw: dict[str, Any] = {}
     thr_kw: dict[str, Any] = {}
+    settings = _responses(settings)
     for key, value in settings.items():
         if value is None:
             continue
@@ -458,3 +306,14 @@ def make_job(settings: dict[str, Any]) -> FitJob:
     if "x" not in job_kw:
         raise JobError("no input term given; name at least one with --x TERM")
     return FitJob(thresholds=Thresholds(**thr_kw), **job_kw).validate()
+
+
+def _responses(settings: dict[str, Any]) -> dict[str, Any]:
+    """`y` given as a list (--y repeated, or a list in a job file): the first is `y`, all are `responses`."""
+    y = settings.get("y")
+    if isinstance(y, (list, tuple)):
+        names = list(dict.fromkeys(str(v) if isinstance(v, str) else v for v in y))
+        settings = {**settings, "y": names[0] if names else None}
+        if len(names) > 1:
+            settings["responses"] = names
+    return settings

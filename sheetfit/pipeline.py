@@ -25,7 +25,6 @@ from .job import FitJob
 from .memory import ordinary_pages
 from .model.engine import EngineFit, fit_groups
 from .model.inference import Inference, inference
-from .provenance import file_sha256
 from .read.tidy import REASON, SOURCE_ROW, Observations
 from .results import tables
 from .results.about import about_rows
@@ -68,6 +67,8 @@ def row_reasons(obs: Observations) -> np.ndarray:
     """Reader reasons plus term-domain problems (log of ≤ 0, sqrt of < 0) and weights that are not positive."""
     reason = obs.data[REASON].to_numpy(dtype=object).copy()
     for term in obs.terms:
+        if term.kind not in ("log", "sqrt"):
+            continue
         bad = term.domain_problem(obs.data[term.column].to_numpy(dtype=np.float64))
         for i in np.flatnonzero(bad):
             reason[i] = f"{reason[i]}; {term.domain_reason()}" if reason[i] else term.domain_reason()
@@ -78,8 +79,10 @@ def row_reasons(obs: Observations) -> np.ndarray:
     return reason
 
 
-def group_rows(obs: Observations, reason: np.ndarray) -> GroupedRows:
-    """Give every row its group code and put the usable rows in engine order."""
+def group_rows(obs: Observations, reason: np.ndarray, codes: dict[str, np.ndarray] | None = None) -> GroupedRows:
+    """Give every row its group code and put the usable rows in engine order; `codes` holds each category
+    column's level codes per row read (the data hold its levels as text)."""
+    codes = codes or {}
     data = obs.data
     keys_cols = list(obs.group_columns)
     if keys_cols:
@@ -92,7 +95,8 @@ def group_rows(obs: Observations, reason: np.ndarray) -> GroupedRows:
     pos = np.flatnonzero(reason == "")
     seq = data[obs.order].to_numpy(dtype=np.float64)[pos] if obs.order else pos.astype(np.float64)
     pos = pos[np.lexsort((pos, seq, codes_all[pos]))]
-    columns = {c: data[c].to_numpy(dtype=np.float64)[pos] for c in source_columns(obs.terms)}
+    columns = {c: (codes[c] if c in codes else data[c].to_numpy(dtype=np.float64))[pos]
+               for c in source_columns(obs.terms)}
     weights = (None if obs.weights is None else
                obs.weights.values(data[obs.weights.column].to_numpy(dtype=np.float64)[pos]))
     return GroupedRows(keys=keys, codes_all=codes_all, reason=reason, pos=pos, codes=codes_all[pos],
@@ -107,12 +111,16 @@ def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback 
     if job.previous is not None and earlier is None:
         earlier = _previous_store(job)
     with ordinary_pages():
+        coding = None
+        if obs.category_columns:
+            coding = _categories(obs, job)
+            obs = dataclasses.replace(obs, terms=coding.terms)
         reason = row_reasons(obs)
         if job.strict:
             _refuse_unusable(obs.data, reason)
-        rows = group_rows(obs, reason)
+        rows = group_rows(obs, reason, None if coding is None else coding.codes)
         progress("fitting")
-        model = _fit_model(obs, job, rows)
+        model = _fit_model(obs, job, rows, coding)
         if not model.fit.fitted_ok.any():
             raise NoUsableDataError(_nothing_fitted(model.fit, rows.n_groups))
         progress("checking")
@@ -127,13 +135,36 @@ class FittedModel:
     fit: EngineFit
     terms: tuple[Term, ...]
     shaped: Any = None              # model.shaped_fit.ShapedFit in a change-point run
+    coding: Any = None              # model.categories.CategoryCoding when inputs hold categories
+    level_notes: np.ndarray | None = None   # (G,) what each group's category rows leave out ('' nothing)
 
 
-def _fit_model(obs: Observations, job: FitJob, rows: GroupedRows) -> FittedModel:
+def _categories(obs: Observations, job: FitJob) -> Any:
+    """The category inputs' levels and codes, and the terms with each category expanded (model.categories)."""
+    from .model.categories import code_categories
+
+    if job.change_point != "none":
+        raise JobError(f"--change-point cannot be combined with category inputs ({', '.join(obs.category_columns)}) "
+                       f"yet; fit the groups of each level separately (--group) or leave out --change-point")
+    labels = {c: obs.data[c].to_numpy(dtype=object) for c in obs.category_columns}
+    return code_categories(obs.terms, labels, job.reference_levels())
+
+
+def _fit_model(obs: Observations, job: FitJob, rows: GroupedRows, coding: Any = None) -> FittedModel:
     """Ordinary fit, or a change-point run's search and fit (--change-point)."""
     if job.calibration and obs.terms[0].kind != "column":
         raise JobError(f"--calibration needs the input itself as the term, not {obs.terms[0].label}: back-"
                        f"calculated values and limits are in the input's units; give --x {obs.terms[0].column}")
+    if coding is not None:
+        from .model.categories import level_slots
+        from .model.patterns import fit_patterns
+
+        active, notes = level_slots(obs.terms, job.intercept, {c: rows.columns[c] for c in coding.columns
+                                                               if c in rows.columns},
+                                    rows.codes, rows.n_groups, coding.reference, coding.levels)
+        fit = fit_patterns(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept, active,
+                           weights=rows.weights)
+        return FittedModel(fit, tuple(obs.terms), coding=coding, level_notes=notes)
     if job.change_point == "none":
         fit = fit_groups(rows.y, rows.columns, rows.codes, rows.n_groups, obs.terms, job.intercept,
                          weights=rows.weights)
@@ -182,6 +213,10 @@ def _group_extra(job: FitJob, model: FittedModel, inf: Inference, codes: np.ndar
         extra.update(found)
     if job.judge_baseline:
         extra[NMBE] = checks.baseline.nmbe(model.fit, codes)
+    if model.coding is not None:
+        from .results.categories import level_columns
+
+        extra.update(level_columns(model.fit, model.terms, model.coding.columns, model.level_notes))
     if job.calibration:
         steep = inf.p_value[:, 1] < job.thresholds.alpha
         extra.update(calibration.limits(model.fit.beta, inf.residual_std_error, steep))
@@ -223,13 +258,37 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
         quantiles=tables.quantiles_table(keys, fit, codes),
         xtx_inverse=tables.xtx_table(keys, fit, labels),
         input_ranges=tables.ranges_table(keys, fit, ranges),
-        info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)), order=obs.order,
+        info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)) + _category_about(model), order=obs.order,
         change_points=None if model.shaped is None else model.shaped.change_points,
         response_mean=fit.ymean.copy(), residual_lag1=residual_lag1(fit.resid, codes, G),
         weights=None if obs.weights is None else obs.weights.label,
         weight_mean=fit.weight_mean, sums=group_sums(X, rows.y, codes, G, fit.fitted_ok, fit.weights),
         comparison=_across_groups(job, model, rows, X),
+        reference_levels=None if model.coding is None else dict(model.coding.reference),
+        levels_seen=None if model.coding is None else _levels_seen(model, rows),
     )
+
+
+def _category_about(model: FittedModel) -> tuple[tuple[str, str], ...]:
+    """One `about` row per category input: its levels, the reference first."""
+    coding = model.coding
+    if coding is None:
+        return ()
+    rows = []
+    for col, levels in coding.levels.items():
+        ref = coding.reference[col]
+        rest = [lev for lev in levels if lev != ref]
+        shown = ", ".join(rest[:30]) + (f" and {len(rest) - 30} more" if len(rest) > 30 else "")
+        rows.append((f"category input {col}", f"reference level {ref}; other levels: {shown or '(none)'}"))
+    return tuple(rows)
+
+
+def _levels_seen(model: FittedModel, rows: GroupedRows) -> np.ndarray:
+    from .model.categories import levels_seen
+
+    coding = model.coding
+    return levels_seen({c: rows.columns[c] for c in coding.columns if c in rows.columns}, rows.codes, rows.n_groups,
+                       coding.levels)
 
 
 def _design_rows(job: FitJob, model: FittedModel, rows: GroupedRows) -> np.ndarray:
@@ -289,14 +348,15 @@ def _nothing_fitted(fit: EngineFit, G: int) -> str:
 
 
 def fit_job(job: FitJob, progress: ProgressCallback | None = None) -> FitResults:
-    """Read and fit (no writing)."""
-    from .read.observations import read_observations
+    """Read and fit (no writing); several files or a folder are read as one table (read.many)."""
+    from .read.many import read_inputs
+    from .read.responses import stack_responses
 
     progress = progress or _no_progress
     progress("reading")
     t0 = time.perf_counter()
     earlier = _previous_store(job)
-    obs = read_observations(job)
+    obs = stack_responses(read_inputs(job), job.all_responses)
     t1 = time.perf_counter()
     results = fit_observations(obs, job, progress, earlier)
     t2 = time.perf_counter()
@@ -309,7 +369,7 @@ def _previous_store(job: FitJob) -> Any:
     if job.previous is None:
         return None
     from .read import check_path
-    from .results.store import read_store
+    from .results.store_read import read_store
 
     check_path(Path(job.previous))
     try:
@@ -329,18 +389,22 @@ def with_changes(results: FitResults, earlier: Any, job: FitJob) -> FitResults:
 
 
 def run_job(job: FitJob, progress: ProgressCallback | None = None) -> tuple[FitResults, Path]:
-    """Read, fit and write the results workbook; returns the results and where they went."""
-    from .read import check_path
+    """Read, fit and write the results workbook; returns the results and where they went.
+
+    Every input (each file of several, a folder's files) is checked before anything is read, the output
+    path before any fitting; the output is written only once every file has been read and fitted."""
+    from .read.many import input_files
     from .report import write_results
     from .report.safe import check_output_path
+    from .results.about import sha256_after_rows
 
     progress = progress or _no_progress
-    check_path(Path(job.workbook))          # a missing input is the first thing to say
+    files = input_files(job).files          # a missing input is the first thing to say
     out = job.output_path
-    check_output_path(Path(job.workbook), out, job.overwrite)
+    check_output_path(files, out, job.overwrite)
     with ordinary_pages():
         results = fit_job(job, progress)
-        results = with_about(results, [("input SHA-256 after", file_sha256(Path(job.workbook)))])
+        results = with_about(results, sha256_after_rows(files, job.several_files))
         progress("writing")
         path = write_results(results, out, overwrite=job.overwrite)
     return results, path
@@ -382,13 +446,13 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
     """
     from .errors import OutputError
     from .prediction.compute import at_level, predict_cells
-    from .prediction.new_rows import inputs_as_numbers, read_new_rows, require_columns
+    from .prediction.new_rows import for_every_response, inputs_as_numbers, read_new_rows, require_columns
     from .prediction.savings import check_actual_column, savings_for_cells
     from .prediction.summary import PredictionSummary, count_predicted, nothing_predicted, nothing_to_total
     from .read import check_path
     from .report.predictions import write_predictions
     from .report.safe import check_output_path, output_error
-    from .results.store import read_store
+    from .results.store_read import read_store
 
     progress = progress or _no_progress
     results_path, new_rows_path = Path(results_path), Path(new_rows_path)
@@ -405,6 +469,10 @@ def predict_workbook(results_path: Path, new_rows_path: Path, sheet: str | None,
         raise OutputError(f'output "{target}" is the results workbook; choose another --out')
     new = read_new_rows(new_rows_path, sheet)
     about = (("results workbook", results_path.name), ("new rows", new_rows_path.name), ("sheet", new.sheet))
+    if store.responses and (inverse or actual is not None):
+        raise JobError(f"--inverse and --actual read one response per row; the results hold several "
+                       f"({', '.join(store.responses)}): fit the response you need on its own and use that")
+    new = for_every_response(new, store)
     if inverse:
         return _read_back_workbook(store, new, target, overwrite, about, replicates, progress, summary)
     require_columns(new, store)

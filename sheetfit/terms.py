@@ -1,6 +1,9 @@
 """Input-term syntax → design-matrix columns.
 
-Syntax: a column name; `COL^k` (k = 2…12); `log(COL)` (natural log); `sqrt(COL)`.
+Syntax: a column name; `COL^k` (k = 2…12); `log(COL)` (natural log); `sqrt(COL)`; `levels(COL)` (the
+column's values as categories, whatever they look like: one indicator per level but the reference);
+`A by B` (the product of two inputs; when B is a category, A's extra slope at each level of B but the
+reference). A text column given as a plain term is a category too (the reader decides from its cells).
 A string that equals an existing column name exactly is always that column.
 A change-point run adds two term kinds of its own on the temperature column T, each with a
 change point τ per group: 'below' = max(0, τ − T) and 'above' = max(0, T − τ).
@@ -20,18 +23,28 @@ INTERCEPT = "constant"      # the label of the intercept wherever results show i
 
 _POWER = re.compile(r"^(?P<col>.+?)\s*\^\s*(?P<k>[0-9]+)$")
 _FUNC = re.compile(r"^(?P<fn>log|sqrt)\s*\(\s*(?P<col>.+?)\s*\)$", re.IGNORECASE)
+_LEVELS = re.compile(r"^levels\s*\(\s*(?P<col>.+?)\s*\)$", re.IGNORECASE)
+_BY = re.compile(r"^(?P<a>.+?)\s+by\s+(?P<b>.+)$", re.IGNORECASE)
+CATEGORY = "category"       # a category before its levels are known (model.categories expands it)
+INDICATOR = "indicator"     # 1 where the category column holds the term's level, else 0
+PRODUCT = "product"         # column × by (× only the rows at a level of `by` when `by` is a category)
 MAX_POWER = 12
 HINGES = ("below", "above")  # the change-point term kinds
 
 
 @dataclass(frozen=True)
 class Term:
-    """One design column: `kind` is 'column', 'power', 'log', 'sqrt', 'below' or 'above' of source column `column`."""
+    """One design column: `kind` is 'column', 'power', 'log', 'sqrt', 'below' or 'above' of source column
+    `column`; 'category' (before expansion) or 'indicator' (level `level`, coded `code` in the source column);
+    'product' of `column` and `by` (only at level `level`/`code` of `by` when `by` is a category, code ≥ 0)."""
 
     label: str
     column: str
     kind: str = "column"
     power: int = 1
+    by: str = ""
+    level: str = ""
+    code: int = -1
 
     def values(self, x: np.ndarray, change_point: np.ndarray | float | None = None) -> np.ndarray:
         """The term's values from the source column (float64); invalid domain gives NaN.
@@ -40,6 +53,8 @@ class Term:
         no such change point) the value is 0.
         """
         x = np.asarray(x, dtype=np.float64)
+        if self.kind == INDICATOR:
+            return np.where(np.isnan(x), np.nan, (x == self.code).astype(np.float64))
         if self.kind in HINGES:
             tau = np.asarray(np.nan if change_point is None else change_point, dtype=np.float64)
             gap = tau - x if self.kind == "below" else x - tau
@@ -86,6 +101,20 @@ def parse_term(spec: str, columns: Sequence[str]) -> Term:
         col = _column(m.group("col"), names, spec_s)
         fn = m.group("fn").lower()
         return Term(label=f"{fn}({col})", column=col, kind=fn)
+    m = _LEVELS.match(spec_s)
+    if m:
+        col = _column(m.group("col"), names, spec_s)
+        return Term(label=col, column=col, kind=CATEGORY)
+    m = _BY.match(spec_s)
+    if m:
+        a, b = m.group("a").strip(), m.group("b").strip()
+        levels = _LEVELS.match(b)
+        col_a = _column(a, names, spec_s)
+        col_b = _column(levels.group("col") if levels else b, names, spec_s)
+        if col_a == col_b:
+            raise TermSyntaxError(f'term "{spec_s}": a product needs two different columns; for a square write '
+                                  f'"{col_a}^2"')
+        return Term(label=f"{col_a} by {col_b}", column=col_a, kind=PRODUCT, by=col_b, level="*" if levels else "")
     m = _POWER.match(spec_s)
     if m:
         k = int(m.group("k"))
@@ -96,9 +125,9 @@ def parse_term(spec: str, columns: Sequence[str]) -> Term:
             raise TermSyntaxError(f'term "{spec_s}": the power must be between 2 and {MAX_POWER}; '
                                   f'write for example "{col}^2"')
         return Term(label=f"{col}^{k}", column=col, kind="power", power=k)
-    if any(ch in spec_s for ch in "~+*()"):
-        raise TermSyntaxError(f'term "{spec_s}" is not understood; give one term per --x: '
-                              f'a column name, COL^k (k = 2…{MAX_POWER}), log(COL) or sqrt(COL)')
+    if any(ch in spec_s for ch in "~+*():"):
+        raise TermSyntaxError(f'term "{spec_s}" is not understood; give one term per --x: a column name, '
+                              f'COL^k (k = 2…{MAX_POWER}), log(COL), sqrt(COL), levels(COL) or A by B')
     raise ColumnNotFoundError(not_found_message("column", spec_s, names))
 
 
@@ -123,12 +152,26 @@ def parse_terms(specs: Sequence[str], columns: Sequence[str]) -> tuple[Term, ...
 
 
 def source_columns(terms: Sequence[Term]) -> tuple[str, ...]:
-    """The distinct source columns the terms need, in first-use order."""
+    """The distinct source columns the terms need, in first-use order (a product's second column after its first)."""
     out: list[str] = []
     for t in terms:
-        if t.column not in out:
-            out.append(t.column)
+        for c in (t.column, t.by):
+            if c and c not in out:
+                out.append(c)
     return tuple(out)
+
+
+def term_values(term: Term, cols: Mapping[str, np.ndarray], change_point: np.ndarray | float | None = None
+                ) -> np.ndarray:
+    """The term's values from the source columns it needs (a product needs two; see Term.values)."""
+    x = term.values(cols[term.column], change_point) if term.kind != PRODUCT else np.asarray(cols[term.column],
+                                                                                             dtype=np.float64)
+    if term.kind != PRODUCT:
+        return x
+    other = np.asarray(cols[term.by], dtype=np.float64)
+    if term.code >= 0:
+        other = np.where(np.isnan(other), np.nan, (other == term.code).astype(np.float64))
+    return x * other
 
 
 def polynomial_family(terms: Sequence[Term], column: str) -> list[int] | None:
@@ -200,7 +243,8 @@ def design_matrix(terms: Sequence[Term], intercept: bool, source: Mapping[str, n
     k = len(first)
     cps = change_points or {}
     parts = [np.ones(k)] if intercept else []
-    parts += [term.values(np.atleast_1d(source[term.column]), cps.get(term.kind)) for term in terms]
+    cols = {c: np.atleast_1d(v) for c, v in source.items()}
+    parts += [term_values(term, cols, cps.get(term.kind)) for term in terms]
     return np.column_stack(parts) if parts else np.zeros((k, 0))
 
 
@@ -256,3 +300,27 @@ def weights_from_label(label: str) -> WeightSpec:
     if m:
         return WeightSpec(m.group("col"), 2 if m.group("k") else 1)
     return WeightSpec(str(label))
+
+
+def category_columns(terms: Sequence[Term]) -> tuple[str, ...]:
+    """The columns the terms use as categories: `levels(COL)` terms and the second column of `A by levels(COL)`."""
+    cols = [t.column for t in terms if t.kind == CATEGORY] + [t.by for t in terms if t.kind == PRODUCT and t.level == "*"]
+    return tuple(dict.fromkeys(cols))
+
+
+def as_categories(terms: Sequence[Term], text_columns: Sequence[str]) -> tuple[Term, ...]:
+    """The terms with every text column taken as a category: a plain term becomes `levels(COL)`, a product's
+    second column its levels; a text column anywhere else (a power, log or sqrt, or a product's first column)
+    is refused in one line."""
+    text = set(text_columns)
+    out = []
+    for t in terms:
+        if t.kind == "column" and t.column in text:
+            t = Term(t.label, t.column, CATEGORY)
+        elif t.kind == PRODUCT and t.by in text and t.level != "*":
+            t = Term(t.label, t.column, PRODUCT, by=t.by, level="*")
+        if t.kind not in (CATEGORY,) and t.column in text:
+            raise TermSyntaxError(f'term "{t.label}": {t.column} holds text, so it can only be a category; give it '
+                                  f'as --x "{t.column}" (or put it second in a product: "X by {t.column}")')
+        out.append(t)
+    return tuple(out)

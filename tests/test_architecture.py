@@ -21,7 +21,7 @@ MAX_TOP_MODULES = 12
 # Lower stages first. A top-level module or a folder (its first name under sheetfit) is one stage.
 LAYERS: tuple[tuple[str, ...], ...] = (
     ("errors", "provenance", "memory"),
-    ("job", "terms"),
+    ("settings", "job", "terms"),
     ("read",),
     ("model",),
     ("checks",),

@@ -32,7 +32,8 @@ from sheetfit.results.change_points import CHANGE_POINT, SHAPE, UPPER_CHANGE_POI
 from sheetfit.results.headers import (ADJUSTED_R2, AIC, AVERAGE_HIGH, AVERAGE_LOW, BIC, COEFFICIENT,
     COEFFICIENT_COUNT, CV_RMSE, F_P_VALUE, F_STAT, FITTED, FLAGS, INPUT, INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, R2,
     REASONS, RESIDUAL_STD_ERROR, RMSE, ROWS_NOT_USED, ROWS_USED, STATUS, STD_ERROR, T_STAT)
-from sheetfit.results.store import read_store, store_from_results, store_layout
+from sheetfit.results.store import store_from_results, store_layout
+from sheetfit.results.store_read import read_store
 from sheetfit.results.store_layout import EXTRA_HEADERS, STORE_SHEET
 from sheetfit.results.types import FitResults
 from sheetfit.terms import Term, coefficient_labels, with_change_point_terms

@@ -22,7 +22,7 @@ from sheetfit.cli import app
 from sheetfit.errors import JobError, ResultsWorkbookError
 from sheetfit.results.changes import (CHANGE, CHANGE_HIGH, CHANGE_LOW, CHANGE_STD_ERROR, CHANGED, CHOW_F,
     CHOW_P, CHOW_P_ADJUSTED, GONE_GROUP, NEW_GROUP, UNCHANGED, WHAT_CHANGED)
-from sheetfit.results.store import read_store
+from sheetfit.results.store_read import read_store
 from sheetfit.results.store_layout import STORE_SHEET
 
 SLOPES = {"North": 2.0, "South": 2.0, "East": 1.0, "West": 3.0}

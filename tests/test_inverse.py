@@ -34,7 +34,8 @@ from sheetfit.prediction.inverse import (
     quantification_limits,
 )
 from sheetfit.results.headers import PREDICTION_REASON
-from sheetfit.results.store import read_store, store_from_results
+from sheetfit.results.store import store_from_results
+from sheetfit.results.store_read import read_store
 
 HANDBOOK = pd.DataFrame({"x": [0.0, 10.0, 20.0, 30.0, 40.0, 50.0], "y": [4.0, 21.2, 44.6, 61.8, 78.0, 105.2]})
 # (key, standards, intercept, slope, noise): a rising, a falling, a steep and a small calibration

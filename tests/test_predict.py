@@ -28,10 +28,10 @@ from sheetfit.pipeline import predict_workbook
 from sheetfit.report import fastrows, predictions, write_results
 from sheetfit.results.store import (
     RESULT_COLUMNS,
-    read_store,
     store_from_results,
     store_layout,
 )
+from sheetfit.results.store_read import read_store
 from tests.oracle import curved_groups
 
 ORACLE = {"predicted value": "mean", "std error of the fitted mean": "mean_se", "range for the average, low": "mean_ci_lower",

@@ -23,7 +23,8 @@ from sheetfit.read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET
 from sheetfit.report.tables import CHECKS, COEFFICIENTS, COEFFICIENTS_OPTIONAL, GROUPS, OBS_HEAD, OBS_TAIL
 from sheetfit.results.headers import (AVERAGE_HIGH, AVERAGE_LOW, FITTED, GROUP_EXTRA_HEADERS, NEW_ROW_STD_ERROR,
                                       PREDICTED, PREDICTION_HEADERS, shown_names)
-from sheetfit.results.store import STORE_NUMBERS, read_store
+from sheetfit.results.store import STORE_NUMBERS
+from sheetfit.results.store_read import read_store
 from sheetfit.terms import INTERCEPT
 from sheetfit.results.store_layout import GROUP_HEADER, SETTING_HEADER, TERM_COLUMNS
 

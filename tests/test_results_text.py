@@ -20,7 +20,8 @@ import pytest
 
 import sheetfit
 from sheetfit.results.headers import CELL_LIMIT, CUT_MARK, cell_text, utf16_len
-from sheetfit.results.store import read_store, unique_labels
+from sheetfit.results.store import unique_labels
+from sheetfit.results.store_read import read_store
 
 NS = {"c": "http://schemas.openxmlformats.org/drawingml/2006/chart",
       "a": "http://schemas.openxmlformats.org/drawingml/2006/main"}

@@ -24,7 +24,7 @@ from sheetfit.model.engine import fit_groups
 from sheetfit.model.inference import inference
 from sheetfit.read.tidy import REASON
 from sheetfit.results.headers import COEFFICIENT, INPUT, STD_ERROR, USED, WEIGHT_USED, YES
-from sheetfit.results.store import read_store
+from sheetfit.results.store_read import read_store
 from sheetfit.terms import Term, WeightSpec, parse_weights
 
 LEVELS = np.array([0.5, 1, 2, 5, 10, 20, 50, 100.0])

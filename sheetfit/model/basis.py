@@ -11,12 +11,13 @@ neither overflow nor vanish, and T is of order one. The raw design is X = W·T·
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from math import comb
 
 import numpy as np
 
-from ..terms import Term, polynomial_family
+from ..terms import INDICATOR, PRODUCT, Term, polynomial_family, term_values
 
 
 def pow2_scale(a: np.ndarray) -> np.ndarray:
@@ -66,7 +67,7 @@ def working_design(cols: Mapping[str, np.ndarray], mask: np.ndarray, n: np.ndarr
         if term.column in family and term.kind in ("column", "power"):
             _family_column(W, T, scale, family[term.column], terms, term, k, off)
             continue
-        r = np.where(mask, term.values(cols[term.column]), 0.0)
+        r = np.where(mask, term_values(term, cols), 0.0)
         c = pow2_scale(masked_absmax(r, mask))
         r = r / c[:, None]
         if intercept:
@@ -136,7 +137,11 @@ def raw_residual(colp: Mapping[str, np.ndarray], yp: np.ndarray, mask: np.ndarra
         acc -= b[:, :1].astype(np.longdouble)
     off = 1 if intercept else 0
     for j, term in enumerate(terms):
-        if term.kind in ("log", "sqrt"):
+        if term.kind == PRODUCT:     # the product itself in long double: no rounding before the residual
+            other = term_values(dataclasses.replace(term, column=term.by, kind=INDICATOR), colp) if term.code >= 0 \
+                else colp[term.by]
+            x = colp[term.column].astype(np.longdouble) * np.asarray(other).astype(np.longdouble)
+        elif term.kind in ("log", "sqrt", INDICATOR):
             x = term.values(colp[term.column]).astype(np.longdouble)
         else:
             x = colp[term.column].astype(np.longdouble) ** term.power

@@ -17,14 +17,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..terms import Term
-from .engine import Batch, EngineFit, fit_groups, group_bounds
+from .engine import Batch, EngineFit, fit_groups, group_bounds, scaled_weights
 
 NO_COEFFICIENT = "no coefficient is active for this group, so there is nothing to estimate"
 
 
 def fit_patterns(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray, n_groups: int,
                  terms: Sequence[Term], intercept: bool, active: np.ndarray | None = None,
-                 extra_params: np.ndarray | None = None) -> EngineFit:
+                 extra_params: np.ndarray | None = None, weights: np.ndarray | None = None) -> EngineFit:
     """Fit every group on its own active slots (intercept first when present, then the terms).
 
     `active` (G, p) bool, None for all; `extra_params` (G,) int parameters estimated outside least
@@ -43,7 +43,7 @@ def fit_patterns(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarra
     patterns, which = np.unique(act, axis=0, return_inverse=True)
     which = np.asarray(which).reshape(-1)
     if len(patterns) == 1 and patterns[0].all():
-        return fit_groups(y, cols, codes, n_groups, terms, intercept, extra_params=extra)
+        return fit_groups(y, cols, codes, n_groups, terms, intercept, extra_params=extra, weights=weights)
     codes = np.asarray(codes)
     merged = _Merged.empty(n_groups, p, len(codes), act, extra, group_bounds(codes, n_groups)[1])
     for k, pattern in enumerate(patterns):
@@ -51,14 +51,15 @@ def fit_patterns(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarra
         if not pattern.any():
             merged.reason[ids] = NO_COEFFICIENT
             continue
-        part, rows = _fit_pattern(y, cols, codes, ids, terms, intercept, pattern, extra[ids])
+        part, rows = _fit_pattern(y, cols, codes, ids, terms, intercept, pattern, extra[ids], weights)
         merged.add(part, ids, rows, np.flatnonzero(pattern))
-    return merged.engine_fit(intercept)
+    fit = merged.engine_fit(intercept)
+    return fit if weights is None else merged.weighted(fit, np.asarray(weights, dtype=np.float64), codes)
 
 
 def _fit_pattern(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray, ids: np.ndarray,
-                 terms: Sequence[Term], intercept: bool, pattern: np.ndarray, extra: np.ndarray
-                 ) -> tuple[EngineFit, np.ndarray]:
+                 terms: Sequence[Term], intercept: bool, pattern: np.ndarray, extra: np.ndarray,
+                 weights: np.ndarray | None = None) -> tuple[EngineFit, np.ndarray]:
     """fit_groups on the groups `ids` alone with the pattern's terms; also the engine rows it used."""
     off = 1 if intercept else 0
     sub_terms = [t for j, t in enumerate(terms) if pattern[off + j]]
@@ -69,7 +70,7 @@ def _fit_pattern(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarra
     needed = {t.column for t in sub_terms}
     sub_cols = {c: np.asarray(v)[rows] for c, v in cols.items() if c in needed}
     part = fit_groups(np.asarray(y)[rows], sub_cols, code_in_part[codes[rows]], len(ids), sub_terms,
-                      sub_intercept, extra_params=extra)
+                      sub_intercept, extra_params=extra, weights=None if weights is None else np.asarray(weights)[rows])
     return part, rows
 
 
@@ -113,6 +114,12 @@ class _Merged:
         for b in part.batches:
             self.batches.append(dataclasses.replace(
                 b, groups=ids[b.groups], rows=np.where(b.rows >= 0, rows[b.rows], -1), slots=slots[b.slots]))
+
+    def weighted(self, fit: EngineFit, weights: np.ndarray, codes: np.ndarray) -> EngineFit:
+        """The merged fit with the weights each part fitted with (scaled per group, as fit_groups scales them)."""
+        scaled, mean, _ = scaled_weights(weights, codes, fit.n_groups)
+        half_log = 0.5 * np.bincount(codes, weights=np.log(scaled), minlength=fit.n_groups)
+        return dataclasses.replace(fit, weights=scaled, weight_mean=mean, half_log_weights=half_log)
 
     def engine_fit(self, intercept: bool) -> EngineFit:
         """The merged EngineFit."""

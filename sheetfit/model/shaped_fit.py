@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..terms import HINGES, Term, with_change_point_terms
+from ..terms import HINGES, Term, term_values, with_change_point_terms
 from .change_point import ChangePoints, find_change_points, hinge_columns
 from .engine import EngineFit
 from .patterns import fit_patterns
@@ -65,7 +65,7 @@ def fit_shapes(y: np.ndarray, columns: Mapping[str, np.ndarray], codes: np.ndarr
     """Search every group's shape and change points, then fit all groups at once at them."""
     t = columns[temperature.column]
     others = [c for c in terms if c != temperature]
-    Z = (np.column_stack([o.values(columns[o.column]) for o in others]) if others
+    Z = (np.column_stack([term_values(o, columns) for o in others]) if others
          else np.zeros((len(y), 0)))
     points = find_change_points(y, t, Z, codes, n_groups, shape, alpha=alpha, level=level)
     below, above = hinge_columns(t, codes, points)

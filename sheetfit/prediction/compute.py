@@ -25,9 +25,9 @@ from ..results.store import (
     RESULT_COLUMNS,
     ModelStore,
     group_label,
-    read_store,
     store_from_results,
 )
+from ..results.store_read import read_store
 from ..terms import design_matrix, weights_from_label
 
 if TYPE_CHECKING:
@@ -48,6 +48,9 @@ def predict(results_or_path: "FitResults | Path | str | ModelStore", new_rows: p
     store = at_level(_store(results_or_path), level)
     if not isinstance(new_rows, pd.DataFrame):
         raise TypeError("new_rows must be a pandas DataFrame")
+    from .new_rows import for_every_response_frame
+
+    new_rows = for_every_response_frame(new_rows, store)
     given = [str(c) for c in new_rows.columns]
     raw = {c: new_rows.iloc[:, given.index(c)].tolist()
            for c in (*store.group_columns, *store.sources, *store.extra_columns) if c in given}
@@ -122,6 +125,7 @@ def _design(store: ModelStore, raw: dict[str, list], n_rows: int
     reasons: list[list[str]] = [[] for _ in range(n_rows)]
     gidx = _group_positions(store, raw, n_rows, reasons)
     X = _inputs(store, raw, n_rows, reasons)
+    unseen_levels(store, gidx, X, reasons)
     for t in store.terms:
         bad = t.domain_problem(X[:, store.sources.index(t.column)])
         for r in np.flatnonzero(bad):
@@ -174,10 +178,14 @@ def _group_positions(store: ModelStore, raw: dict[str, list], n_rows: int, reaso
 def _inputs(store: ModelStore, raw: dict[str, list], n_rows: int, reasons: list[list[str]]) -> np.ndarray:
     """The rows' source-column values as numbers (NaN where a reason says why not)."""
     X = np.full((n_rows, len(store.sources)), np.nan)
+    categories = store.category_columns
     for j, col in enumerate(store.sources):
         if col not in raw:
             for r in reasons:
                 r.append(f'no input column "{col}" in the new rows')
+            continue
+        if col in categories:
+            X[:, j] = _level_codes(store, col, raw[col], reasons)
             continue
         for r, v in enumerate(raw[col]):
             if isinstance(v, (dt.date, dt.time)):
@@ -268,6 +276,32 @@ def _weighted_new_row_intervals(store: ModelStore, raw: dict[str, list], gidx: n
         reasons[r].append(why)
 
 
+def _level_codes(store: ModelStore, col: str, cells: list, reasons: list[list[str]]) -> np.ndarray:
+    """A category input's cells as the models' level codes (NaN, with a reason, for a level the fit never saw)."""
+    codes = store.level_codes(col)
+    out = np.full(len(cells), np.nan)
+    known = ", ".join(sorted(codes)[:12]) + ("…" if len(codes) > 12 else "")
+    for r, v in enumerate(cells):
+        name = "" if v is None or (isinstance(v, float) and v != v) else key_label(v)
+        if name in codes:
+            out[r] = codes[name]
+        else:
+            reasons[r].append(f'{col}: "{name}" is not a level of the fit ({known})' if name else f"{col}: empty cell")
+    return out
+
+
+def unseen_levels(store: ModelStore, gidx: np.ndarray, X: np.ndarray, reasons: list[list[str]]) -> None:
+    """A row at a level its group had no rows at: no coefficient says what that level does there."""
+    for col in store.category_columns:
+        names = {code: name for name, code in store.level_codes(col).items()}
+        at = X[:, store.sources.index(col)]
+        for r in np.flatnonzero((gidx >= 0) & np.isfinite(at)):
+            seen = store.seen_in_group(int(gidx[r]), col)
+            name = names.get(int(at[r]))
+            if seen is not None and name not in seen:
+                reasons[r].append(f"{col}: this group had no rows at {name}, so the fit says nothing about it here")
+
+
 def _close_label(name: str, labels: Sequence[str]) -> str | None:
     """A fitted group whose label differs from `name` only slightly (a typo or letter case), else None."""
     import difflib
@@ -283,6 +317,8 @@ def _extrapolation(store: ModelStore, g: int, x: np.ndarray) -> str:
     """'no', or 'yes: <input> above the observed range (lo to hi); …'."""
     outside = []
     for j, col in enumerate(store.sources):
+        if col in store.category_columns:
+            continue
         lo, hi = store.lo[g, j], store.hi[g, j]
         slack = 1e-14 * max(abs(lo), abs(hi))      # the workbook keeps 16 significant digits
         if math.isfinite(lo) and x[j] < lo - slack:

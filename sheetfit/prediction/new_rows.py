@@ -7,6 +7,7 @@ remembers its row number in the sheet.
 from __future__ import annotations
 
 import datetime as dt
+import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -139,3 +140,22 @@ def _as_number(v: Any) -> Any:
         return v
     value, problem, _ = cell_number(v)
     return value if problem is None else v
+
+
+def for_every_response(new: NewRows, store: ModelStore) -> NewRows:
+    """New rows for a fit of several responses that do not say which response: each row once per response,
+    the response's name in the fit's response key column (first), so every response is predicted."""
+    frame = for_every_response_frame(new.frame, store)
+    if frame is new.frame:
+        return new
+    return dataclasses.replace(new, frame=frame, source_rows=np.tile(new.source_rows, len(store.responses)))
+
+
+def for_every_response_frame(frame: pd.DataFrame, store: ModelStore) -> pd.DataFrame:
+    """The DataFrame form of `for_every_response` (unchanged when not needed)."""
+    key = store.group_columns[0] if store.responses else None
+    if key is None or key in [str(c) for c in frame.columns]:
+        return frame
+    parts = [frame.assign(**{key: name}) for name in store.responses]
+    out = pd.concat(parts, ignore_index=True)
+    return out[[key, *[c for c in out.columns if c != key]]]

@@ -21,7 +21,8 @@ from ..errors import ColumnNotFoundError, not_found_message
 from ..job import check_setting
 from ..read.cells import cell_number
 from ..results.headers import EXTRAPOLATION, PREDICTION_REASON, shown_names
-from ..results.store import RESULT_COLUMNS, ModelStore, read_store, store_from_results
+from ..results.store import RESULT_COLUMNS, ModelStore, store_from_results
+from ..results.store_read import read_store
 
 if TYPE_CHECKING:
     from ..results.types import FitResults

@@ -355,3 +355,12 @@ def header_name(v: object) -> str:
 def is_blank(v: object) -> bool:
     """True for an empty cell or one holding only spaces."""
     return v is None or (isinstance(v, str) and not _strip(v))
+
+
+def category_labels(cells: list) -> tuple[np.ndarray, np.ndarray]:
+    """A category column's level per cell (the group-label rules: 2, 2.0 and "2" are one level) and which
+    cells are blank (their level is '')."""
+    labels = group_labels(list(cells)).astype(object)
+    blank = np.array([is_blank(v) or (isinstance(v, float) and v != v) for v in cells], dtype=bool)
+    labels[blank] = ""
+    return labels, blank

@@ -42,9 +42,10 @@ from ..errors import (
 )
 from ..job import FitJob
 from ..provenance import file_sha256
-from ..terms import parse_terms, parse_weights, source_columns
+from ..terms import as_categories, category_columns, parse_terms, parse_weights, source_columns
 from .book import Book
-from .cells import BLANK_LABEL, group_labels_and_forms, is_blank, shown
+from .cells import BLANK_LABEL, category_labels, group_labels_and_forms, is_blank, shown
+from .levels import levels_warning, maybe_levels, merged_levels
 from .columns import parse_column
 from .formats import open_book
 from .grid import Grid, Region, pad_rows
@@ -69,6 +70,7 @@ class _Part:
     hidden_cols: int = 0
     no_result: list[str] = field(default_factory=list)
     merged_labels: list[str] = field(default_factory=list)
+    levels: dict[str, object] = field(default_factory=dict)   # category column → its level per row ('' blank)
     label_forms: dict[str, dict[str, set[str]]] = field(default_factory=dict)   # column → label → forms
 
 
@@ -84,24 +86,28 @@ def _gc_paused():
             gc.enable()
 
 
-def read_observations(job: FitJob) -> Observations:
-    """Read the job's workbook region into `Observations`; refuse unreadable input with one-line errors."""
+def read_observations(job: FitJob, own_keys: tuple[str, ...] = ()) -> Observations:
+    """Read the job's workbook region into `Observations`; refuse unreadable input with one-line errors.
+
+    `own_keys`: group names that are keys sheetfit adds itself (the file key of `read.many`) unless the
+    sheet has a column of that name, as "sheet" is with several sheets."""
     path = Path(job.workbook)
     file_format = sniff(path, job.max_unpacked_bytes)
     with ThreadPoolExecutor(max_workers=1) as pool, _gc_paused():
         digest = pool.submit(file_sha256, path)
         book = open_book(path, file_format, csv_delimiter=job.csv_delimiter, csv_decimal=job.csv_decimal)
         try:
-            return _read(book, job, path, digest.result)
+            return _read(book, job, path, digest.result, own_keys)
         finally:
             book.close()
 
 
-def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
-    plan = _plan(book, job)
+def _read(book: Book, job: FitJob, path: Path, sha256, own_keys: tuple[str, ...] = ()) -> Observations:
+    plan = _plan(book, job, path)
     multi = job.all_sheets or len(plan) > 1
     parts: list[_Part] = []
     skipped: list[str] = []
+    names: dict[str, None] = {}          # every header name of the sheets read, in order
     spec = None
     for sheet, region in plan:
         grid = book.grid(sheet)
@@ -114,7 +120,7 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
             raise
         if spec is None:
             try:
-                spec = _spec(job, header, sheet, multi)
+                spec = _spec(job, header, sheet, multi, own_keys)
             except ColumnNotFoundError:
                 if job.all_sheets and sheet != plan[-1][0]:
                     skipped.append(f'"{sheet}" (lacks the columns)')
@@ -124,6 +130,7 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
             skipped.append(f'"{sheet}" (lacks the columns)')
             continue
         parts.append(_read_part(grid, header, spec, book.decimal))
+        names.update(dict.fromkeys(header.names))
         del grid                         # the cell objects are the bulk of the memory; free them per sheet
     if not parts:
         raise NoUsableDataError(f'no sheet of "{path.name}" holds the columns asked for; check --sheet and the names')
@@ -132,6 +139,7 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
         warnings.append(f"sheets skipped: {', '.join(skipped)}")
     data, dates = _frame(parts, spec)
     _check_usable(data, spec, parts)
+    warnings += levels_warning(spec.maybe_levels, {c: data[c].to_numpy(dtype=object) for c in data.attrs["levels"]})
     no_result = [ref for p in parts for ref in p.no_result]
     if no_result:
         more = f" and {len(no_result) - _SHOW} more" if len(no_result) > _SHOW else ""
@@ -151,19 +159,21 @@ def _read(book: Book, job: FitJob, path: Path, sha256) -> Observations:
         region=plan[0][1].label if plan[0][1] is not None else "whole sheet",
         header_row=parts[0].header_row, rows_read=int(len(data)),
         hidden_rows=sum(p.hidden_rows for p in parts), hidden_columns=sum(p.hidden_cols for p in parts),
-        date_columns=tuple(dates.columns), warnings=tuple(warnings))
-    return Observations(data=data, group_columns=tuple(spec.group_out), y=spec.y, terms=spec.terms,
-                        order=spec.order, numeric_columns=tuple(spec.numeric), info=info, dates=dates,
-                        weights=spec.weights)
+        date_columns=tuple(dates.columns), warnings=tuple(warnings), columns=tuple(names))
+    text = tuple(data.attrs.get("levels", ()))
+    return Observations(data=data, group_columns=tuple(spec.group_out), y=spec.y,
+                        terms=as_categories(spec.terms, [c for c in text if c not in spec.named_levels]),
+                        order=spec.order, numeric_columns=tuple(c for c in spec.numeric if c not in text),
+                        info=info, dates=dates, weights=spec.weights, category_columns=text)
 
 
-def _plan(book: Book, job: FitJob) -> list[tuple[str, Region | None]]:
+def _plan(book: Book, job: FitJob, path: Path) -> list[tuple[str, Region | None]]:
     names = book.sheet_names()
     if job.table:
         region = book.region(job.table)
         return [(region.sheet, region)]
     if not names:
-        raise NotAWorkbookError(f'"{Path(job.workbook).name}" has no worksheets')
+        raise NotAWorkbookError(f'"{path.name}" has no worksheets')
     if job.all_sheets:
         return [(n, None) for n in names]
     if not job.sheets:
@@ -188,13 +198,15 @@ class _Spec:
     numeric: list[str]
     sheet_key: str | None
     weights: object = None               # terms.WeightSpec of a weighted fit
+    named_levels: tuple[str, ...] = ()   # columns read as categories (levels(COL))
+    maybe_levels: tuple[str, ...] = ()   # number columns that become categories when they hold only text
 
     @property
     def columns(self) -> list[str]:
-        return self.group_in + self.numeric
+        return self.group_in + self.numeric + list(self.named_levels)
 
 
-def _spec(job: FitJob, header: Header, sheet: str, multi: bool) -> _Spec:
+def _spec(job: FitJob, header: Header, sheet: str, multi: bool, own_keys: tuple[str, ...] = ()) -> _Spec:
     names = list(header.names)
     where = f' (header row {header.row} of sheet "{sheet}")'
 
@@ -212,16 +224,18 @@ def _spec(job: FitJob, header: Header, sheet: str, multi: bool) -> _Spec:
     y = find(job.y)
     order = find(job.order) if job.order else None
     sheet_key = None
-    group_in = list(dict.fromkeys(find(g) for g in job.group
-                                  if not (multi and g == SHEET_KEY and SHEET_KEY not in header.names)))
+    ours = (*own_keys, *((SHEET_KEY,) if multi else ()))      # keys sheetfit adds, unless a column has the name
+    group_in = list(dict.fromkeys(find(g) for g in job.group if not (g in ours and g not in header.names)))
     if multi:
         sheet_key = SHEET_KEY
         k = 1
         while sheet_key in header.names:
             k += 1
             sheet_key = "sheet name" if k == 2 else f"sheet name {k - 1}"
-    numeric = list(dict.fromkeys([y, *source_columns(terms), *([order] if order else []),
-                                  *([weights.column] if weights else [])]))
+    named = category_columns(terms)
+    responses = [find(r) for r in job.all_responses]
+    numeric = list(dict.fromkeys([*responses, *(c for c in source_columns(terms) if c not in named),
+                                  *([order] if order else []), *([weights.column] if weights else [])]))
     for t in terms:
         if t.column == y:
             raise JobError(f'column "{y}" is both the response and an input ({t.label}); choose other --x terms')
@@ -234,7 +248,7 @@ def _spec(job: FitJob, header: Header, sheet: str, multi: bool) -> _Spec:
                        f'({SOURCE_SHEET}, {SOURCE_ROW}, {REASON}); rename it in the workbook')
     no_duplicates(header, group_in + numeric)
     group_out = ([sheet_key] if sheet_key else []) + group_in
-    return _Spec(y, terms, order, group_in, group_out, numeric, sheet_key, weights)
+    return _Spec(y, terms, order, group_in, group_out, numeric, sheet_key, weights, named, maybe_levels(terms))
 
 
 def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> _Part:
@@ -260,11 +274,18 @@ def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> 
         values = list(map(getters[name], rows)) if n else []
         merged_refs += _fill_merged(values, grid, col_of[name], first, bottom)
         labels[name], forms[name] = group_labels_and_forms(values)
+    levels = {name: category_labels(list(map(getters[name], rows)) if n else [])[0] for name in spec.named_levels}
     for name in spec.numeric:
-        numbers[name] = parse_column(list(map(getters[name], rows)) if n else [], decimal)
+        cells = list(map(getters[name], rows)) if n else []
+        numbers[name] = parse_column(cells, decimal)
+        if name in spec.maybe_levels and n and not np.isfinite(numbers[name].values).any() \
+                and not numbers[name].blank.all():
+            levels[name] = category_labels(cells)[0]          # text, no number: a category
     blank = np.ones(n, dtype=bool)
     for lab in labels.values():
         blank &= lab == BLANK_LABEL
+    for lab in levels.values():
+        blank &= lab == ""
     for parsed in numbers.values():
         blank &= parsed.blank
     left, right = header.spans
@@ -275,6 +296,7 @@ def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> 
     keep = ~blank
     row_numbers = np.arange(first, first + n, dtype=np.int64)[keep]
     labels = {k: v[keep] for k, v in labels.items()}
+    levels = {k: v[keep] for k, v in levels.items()}
     for parsed in numbers.values():
         parsed.values, parsed.problems = parsed.values[keep], parsed.problems[keep]
     kept = set(row_numbers.tolist()) if grid.hidden_rows or grid.no_result else set()
@@ -284,7 +306,7 @@ def _read_part(grid: Grid, header: Header, spec: _Spec, decimal: str | None) -> 
     return _Part(grid.sheet, row_numbers, labels, numbers, header.row,
                  hidden_rows=len(kept & grid.hidden_rows),
                  hidden_cols=len(used_cols & grid.hidden_cols),
-                 no_result=no_result, merged_labels=merged_refs, label_forms=forms)
+                 no_result=no_result, merged_labels=merged_refs, label_forms=forms, levels=levels)
 
 
 def _two_forms(parts: list[_Part]) -> list[str]:
@@ -325,11 +347,17 @@ def _frame(parts: list[_Part], spec: _Spec):
         data[name] = pd.array(src, dtype="str")
     problems = {}
     date_cols = set()
+    levels = merged_levels([p.levels for p in parts], [p.sheet for p in parts], spec.named_levels, spec.maybe_levels)
     for name in spec.numeric:
+        if name in levels:
+            continue
         data[name] = np.concatenate([p.numbers[name].values for p in parts])
         problems[name] = np.concatenate([p.numbers[name].problems for p in parts])
         if any(p.numbers[name].has_dates for p in parts):
             date_cols.add(name)
+    for name, text in levels.items():
+        data[name] = text
+        problems[name] = np.where(text == "", "empty cell", None)
     reason = np.full(len(rows), "", dtype=object)
     bad = np.zeros(len(rows), dtype=bool)
     for prob in problems.values():
@@ -338,6 +366,7 @@ def _frame(parts: list[_Part], spec: _Spec):
         reason[i] = "; ".join(f"{name}: {prob[i]}" for name, prob in problems.items() if prob[i] is not None)
     data[REASON] = pd.array(reason, dtype="str")
     frame = pd.DataFrame(data)
+    frame.attrs["levels"] = tuple(levels)
     dated = [name for name in spec.numeric if name in date_cols]
     days, dates = days_from_group_start(frame, dated, spec.group_out)
     for name in dated:
@@ -352,7 +381,7 @@ def _check_usable(data, spec: _Spec, parts: list[_Part]) -> None:
         p = parts[0]
         raise NoUsableDataError(f'no data rows under the header (row {p.header_row}) of sheet "{p.sheet}"; '
                                 f'check --sheet and --header-row')
-    roles = {spec.y: "response"}
+    roles = {name: "response" for name in spec.numeric if name == spec.y}
     for t in spec.terms:
         roles.setdefault(t.column, "input")
     if spec.order:
@@ -360,12 +389,13 @@ def _check_usable(data, spec: _Spec, parts: list[_Part]) -> None:
     if spec.weights:
         roles.setdefault(spec.weights.column, "weight")
     for name in spec.numeric:
-        if np.isfinite(data[name].to_numpy()).any():
+        if name in data.attrs.get("levels", ()) or np.isfinite(data[name].to_numpy()).any():
             continue
         mine = data[REASON].str.extract(f"(?:^|; ){re.escape(name)}: ([^;]*)")[0]
         common = mine.value_counts()
         what = f" (most often: {common.index[0]}, {int(common.iloc[0])} rows)" if len(common) else ""
-        raise NoUsableDataError(f'{roles[name]} column "{name}" has no usable numbers in its {len(data)} rows'
+        raise NoUsableDataError(f'{roles.get(name, "response")} column "{name}" has no usable numbers in its '
+                                f'{len(data)} rows'
                                 f'{what}; check the column and --header-row')
 
 

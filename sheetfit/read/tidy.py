@@ -11,6 +11,7 @@ import pandas as pd
 from ..terms import Term, WeightSpec
 from .cells import EPOCH
 
+SOURCE_FILE = "source file"              # only when several files are read (read.many)
 SOURCE_SHEET = "source sheet"
 SOURCE_ROW = "source row"
 REASON = "reason"
@@ -36,6 +37,14 @@ class ReadInfo:
     hidden_columns: int = 0
     date_columns: tuple[str, ...] = ()    # columns that held dates/times, given as days
     warnings: tuple[str, ...] = ()        # one line each, e.g. formulas without cached values
+    columns: tuple[str, ...] = ()         # every header name of the sheets read (sheetfit's own keys avoid them)
+    files: tuple["ReadInfo", ...] = ()    # several files read as one (read.many): each file's own, in order
+    file_key: str | None = None           # then the group column holding each row's file name
+
+    @property
+    def several(self) -> bool:
+        """Whether several files were read as one table (then `files` says what each one held)."""
+        return bool(self.files)
 
 
 @dataclass(frozen=True)
@@ -43,6 +52,7 @@ class Observations:
     """Tidy rows from the reader, one per non-blank input row, in source order.
 
     `data` columns: SOURCE_SHEET (str), SOURCE_ROW (int, 1-based row in the sheet),
+    SOURCE_FILE (str, the file's name; only when several files were read, see `sheetfit.read.many`),
     each group column (str labels; a blank cell → cells.BLANK_LABEL), each needed numeric column
     (float64, NaN where the cell could not be used), and REASON ('' when every needed cell
     parsed, else plain words such as 'Load kWh: empty cell; Pallets: error value #N/A').
@@ -60,6 +70,7 @@ class Observations:
     info: ReadInfo
     dates: pd.DataFrame = field(default_factory=pd.DataFrame)   # date column → the dates as read
     weights: WeightSpec | None = None     # a weighted fit's row weights (their column is among numeric_columns)
+    category_columns: tuple[str, ...] = ()   # inputs read as categories: `data` holds their levels as text ('' blank)
 
 
 def serial_dates(days: np.ndarray) -> np.ndarray:

@@ -58,7 +58,7 @@ def write_results(results: "FitResults", path: Path | None = None, overwrite: bo
                   extra_sheets: Sequence[SheetBuilder] | None = None) -> Path:
     """Write the results workbook to `path` (default: beside the input) and return where it went.
 
-    Refuses the input file itself, an existing file unless `overwrite` (or the job's overwrite),
+    Refuses the input file itself (any input file of several), an existing file unless `overwrite` (or the job's overwrite),
     and an unwritable folder, each with OutputError. The file appears complete or not at all; a
     failure of the file system (no space left, a name too long…) is an OutputError too, and leaves
     neither the temporary file nor the scratch folder behind (see report.safe).
@@ -68,8 +68,10 @@ def write_results(results: "FitResults", path: Path | None = None, overwrite: bo
 
     from .styles import Styles
 
+    from ..read.many import files_of
+
     job = results.job
-    target = check_output_path(job.workbook, Path(path) if path is not None else job.output_path,
+    target = check_output_path(files_of(job.inputs), Path(path) if path is not None else job.output_path,
                                overwrite or job.overwrite)
     builders = [*core_sheets(), *_extra_sheets(), *(extra_sheets or ())]
     with scratch_folder() as scratch, atomic_output(target, overwrite or job.overwrite) as tmp:

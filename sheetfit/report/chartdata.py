@@ -18,7 +18,7 @@ from ..results.headers import (AVERAGE_HIGH, AVERAGE_LOW, COEFFICIENT, FITTED, F
 from ..results.observations import model_value_headers
 from ..results.store import group_label
 from ..results.types import FitResults
-from ..terms import HINGES, INTERCEPT, Term, source_columns
+from ..terms import HINGES, INDICATOR, INTERCEPT, Term, source_columns
 from . import fastrows
 
 MAX_POINTS = 5_000      # points per group plotted; beyond that, flagged rows plus an even sample
@@ -141,7 +141,7 @@ def plan_charts(res: FitResults) -> ChartPlan:
         return plan
 
     srcs = source_columns(res.terms)
-    one_source = len(srcs) == 1
+    one_source = len(srcs) == 1 and not any(t.kind == INDICATOR for t in res.terms)   # a category: no x axis
     plan.x_name = srcs[0] if one_source else ""
     constant = res.term_labels[0] if res.job.intercept else None
     obs, cur, qq, coef = res.observations, res.curves, res.quantiles, res.coefficients

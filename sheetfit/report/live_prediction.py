@@ -1,7 +1,7 @@
 """The `live prediction` sheet: predictions for typed-in inputs, computed by cell formulas over `model store`.
 
 The store holds one row per fitted group (see sheetfit.results.store_layout for where each number
-sits; report.store_sheet writes it and sheetfit.results.store.read_store reads it back for
+sits; report.store_sheet writes it and sheetfit.results.store_read.read_store reads it back for
 `sheetfit predict`). The live prediction sheet finds the chosen group's row once with MATCH and takes
 every number from that row with INDEX, so it works in any common spreadsheet application.
 In a change-point run the sheet also shows the chosen group's shape and change points beside
@@ -49,7 +49,7 @@ class PredictSheet:
     lay: StoreLayout
     name: str              # the store sheet's name
     g: int                 # preset group
-    values: list[float]    # preset inputs, one per source column
+    values: list[Any]      # preset inputs, one per source column (a category's level name as text)
     level: float           # preset confidence level
 
     @property
@@ -95,7 +95,10 @@ def live_prediction_sheet(ctx: WriteContext, group: str | None = None, inputs: M
     name = ctx.reserve_data_sheet(STORE_SHEET, lambda sheet: fill_store(sheet, store, lay, st, ctx.add_bulk))
     g = store.labels.index(group) if group is not None else 0
     level = store.level if level is None else level
-    values = [float((inputs or {}).get(c, _mid(store.lo[g, j], store.hi[g, j])))
+    categories = store.category_columns
+    reference = dict(r.partition("=")[::2] for r in store.reference)
+    values = [str((inputs or {}).get(c, reference.get(c, ""))) if c in categories
+              else float((inputs or {}).get(c, _mid(store.lo[g, j], store.hi[g, j])))
               for j, c in enumerate(store.sources)]
     cells = Cells(cache)
     _predict_cells(ctx, cells, PredictSheet(store, lay, name, g, values, level))
@@ -112,6 +115,7 @@ def live_prediction_sheet(ctx: WriteContext, group: str | None = None, inputs: M
     ws.hide_gridlines(2)
     cells.flush(ws)
     _input_rules(ws, st, lay, name)
+    _level_lists(ws, store)
     ctx.note(SHEET, f"predictions for typed-in inputs, {len(store)} fitted groups: pale straw cells take your "
                     f"input, every other cell is a formula over the stored models on sheet '{name}'; a highlighted "
                     "range check means an input lies outside the group's observed range")
@@ -133,6 +137,22 @@ def _input_rules(ws: Any, st: Any, lay: StoreLayout, name: str) -> None:
     ws.conditional_format(TOP_INPUT + m, 1, TOP_INPUT + m, 1, {
         "type": "formula", "criteria": f'=OR(LEFT({warn},7)="caution",LEFT({warn},6)="choose")',
         "format": st.sample["check_failed"]})
+
+
+def _level_lists(ws: Any, store: ModelStore) -> None:
+    """A drop-down of its levels on each category input's value cell (when the list fits a cell's rule)."""
+    for j, col in enumerate(store.sources):
+        names = sorted(store.level_codes(col)) if col in store.category_columns else []
+        if names and sum(len(n) + 1 for n in names) <= 255:
+            ws.data_validation(TOP_INPUT + j, 1, TOP_INPUT + j, 1, {
+                "validate": "list", "source": names, "error_title": "not a level",
+                "error_message": f"Choose one of the levels of {col} the fit saw."})
+
+
+def _level_check(store: ModelStore, col: str, x: str, row: str) -> str:
+    """The check formula of a category input: empty, or that the typed level is not one the fit saw."""
+    names = ",".join(f'"{_quoted(n)}"' for n in sorted(store.level_codes(col)))
+    return f'=IF(ISNA({row}),"",IF(ISNA(MATCH({x},{{{names}}},0)),"not a level of the fit",""))'
 
 
 def _mid(lo: float, hi: float) -> float:
@@ -158,9 +178,15 @@ def tau_label(store: ModelStore, kind: str) -> str:
     return cell_text(f"τ in max(0, τ − {col})" if kind == "below" else f"τ in max(0, {col} − τ)")
 
 
-def _term_formula(term: Any, x: str, tau: str | None = None) -> str:
+def _term_formula(term: Any, x: str, tau: str | None = None, other: str | None = None) -> str:
     """The term's value from input cell `x` (#N/A when the input cannot give one); a change-point term
-    takes its τ from cell `tau` and is 0 when that cell holds no number (the group's shape does not use it)."""
+    takes its τ from cell `tau` and is 0 when that cell holds no number (the group's shape does not use it);
+    an indicator is 1 at its level; a product multiplies by cell `other` (or by 1 at its level of it)."""
+    if term.kind == "indicator":
+        return f'IF({x}="{_quoted(term.level)}",1,0)'
+    if term.kind == "product":
+        factor = f'IF({other}="{_quoted(term.level)}",1,0)' if term.code >= 0 else other
+        return f"IF(ISNUMBER({x}),{x}*{factor},NA())"
     if term.kind in HINGES:
         gap = f"{tau}-{x}" if term.kind == "below" else f"{x}-{tau}"
         return f"IF(ISNUMBER({x}),IF(ISNUMBER({tau}),MAX(0,{gap}),0),NA())"
@@ -270,9 +296,18 @@ def _input_cells(cells: Cells, st: Any, ps: PredictSheet) -> list[tuple[str, str
         r = TOP_INPUT + j
         x, lo, hi = ref(None, r, 1), ref(None, r, 2), ref(None, r, 3)
         cells.text(r, 0, col)
-        cells.number(r, 1, ps.values[j], st.input)
-        cells.formula(r, 2, "=" + ps.pick(lay.col_min(j)), None, store.lo[g, j])
-        cells.formula(r, 3, "=" + ps.pick(lay.col_max(j)), None, store.hi[g, j])
+        if col in store.category_columns:
+            cells.text(r, 1, str(ps.values[j]), st.input)
+            cells.text(r, 2, "a category: choose a level", st.note)
+        else:
+            cells.number(r, 1, ps.values[j], st.input)
+            cells.formula(r, 2, "=" + ps.pick(lay.col_min(j)), None, store.lo[g, j])
+            cells.formula(r, 3, "=" + ps.pick(lay.col_max(j)), None, store.hi[g, j])
+        if col in store.category_columns:
+            text = "" if ps.values[j] in store.level_codes(col) else "not a level of the fit"
+            cells.formula(r, 4, _level_check(store, col, x, ps.row), None, text)
+            checks.append((ref(None, r, 0), ref(None, r, 4), col, text))
+            continue
         text = _check_text(store, g, j, ps.values[j])
         cells.formula(r, 4, _check_formula(store, j, x, lo, hi, ps.row), None, text)
         checks.append((ref(None, r, 0), ref(None, r, 4), col, text))
@@ -356,7 +391,9 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
     v_rng = area(None, calc + 1, 3 + p, calc + p, 3 + p)
     labels = store.term_labels
     taus = {kind: np.array([ps.taus[i]]) for i, kind in enumerate(HINGES)}
-    d_vals = design_matrix(store.terms, store.intercept, {c: np.array([v]) for c, v in zip(store.sources, ps.values)},
+    coded = [float(store.level_codes(c).get(str(v), np.nan)) if c in store.category_columns else v
+             for c, v in zip(store.sources, ps.values)]
+    d_vals = design_matrix(store.terms, store.intercept, {c: np.array([v]) for c, v in zip(store.sources, coded)},
                            taus)[0]
     inv = store.xtx_inv[g]
     cells.text(calc - 1, 0, "calculation for the chosen group", st.section)
@@ -373,7 +410,8 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
             cells.number(r, 1, 1.0)
         else:
             tau = ps.tau(term.kind) if term.kind in HINGES else None
-            cells.formula(r, 1, "=" + _term_formula(term, src_cell[term.column], tau), None, d_vals[i])
+            cells.formula(r, 1, "=" + _term_formula(term, src_cell[term.column], tau, src_cell.get(term.by)), None,
+                          d_vals[i])
         cells.formula(r, 2, "=" + ps.pick(lay.col_coef(i)), sci, float(store.beta[g, i]))
         for j in range(p):
             cells.formula(r, 3 + j, "=" + ps.pick(lay.col_inv(i, j)), sci, float(inv[i, j]))

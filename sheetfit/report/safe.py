@@ -24,7 +24,7 @@ import shutil
 import socket
 import stat
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -55,8 +55,9 @@ def output_error(target: Path | str, exc: BaseException) -> OutputError:
     return OutputError(f'could not write "{target}" ({why}); choose another --out')
 
 
-def check_output_path(source: Path | None, out: Path, overwrite: bool) -> Path:
-    """The absolute output path, after refusing the input itself, an existing file or a bad folder.
+def check_output_path(source: Path | Sequence[Path] | None, out: Path, overwrite: bool) -> Path:
+    """The absolute output path, after refusing the input (any of several inputs), an existing file or a
+    bad folder.
 
     Called before fitting (to fail early) and again by the writer. A name the file system refuses
     (too long) is an OutputError too.
@@ -67,13 +68,19 @@ def check_output_path(source: Path | None, out: Path, overwrite: bool) -> Path:
         raise output_error(out, exc) from None
 
 
-def _checked(source: Path | None, out: Path, overwrite: bool) -> Path:
+def _checked(source: Path | Sequence[Path] | None, out: Path, overwrite: bool) -> Path:
     target = Path(out).expanduser().resolve()
     if target.suffix.lower() != ".xlsx":
         raise OutputError(f'results workbook "{out}" must end in .xlsx; choose another --out')
-    if source is not None and _same_file(target, Path(source)):
-        raise OutputError(f'output "{out}" is the input workbook; sheetfit never writes its input — '
-                          "choose another --out")
+    sources = [] if source is None else [source] if isinstance(source, (str, os.PathLike)) else list(source)
+    for one in sources:
+        if not _same_file(target, Path(one)):
+            continue
+        if len(sources) == 1:
+            raise OutputError(f'output "{out}" is the input workbook; sheetfit never writes its input — '
+                              "choose another --out")
+        raise OutputError(f'output "{out}" is one of the input files ("{Path(one).name}"); sheetfit never '
+                          "writes its inputs — choose another --out")
     if target.is_dir():
         raise OutputError(f'output "{out}" is a folder; give a file name ending in .xlsx with --out')
     folder = target.parent

@@ -14,7 +14,7 @@ from typing import Any
 import pandas as pd
 from xlsxwriter.utility import xl_col_to_name
 
-from ..read.tidy import REASON
+from ..read.tidy import REASON, SOURCE_FILE
 from ..results.calibration import CALIBRATION_ROW_HEADERS, STANDARD_OFF
 from ..results.change_points import SHAPE_NOTE
 from ..results.headers import (CELL_LIMIT, COEFFICIENT_HEADERS, FLAGS, GROUP_HEADERS, INTERVAL_HIGH, INTERVAL_LOW,
@@ -275,12 +275,13 @@ def observation_columns(res: Any, obs: pd.DataFrame) -> list[str]:
     days = {res.observation_header(c): h for c, h in day_count_headers(user, res.info.date_columns).items()}
     data_cols = [res.observation_header(c) for c in (res.y, *source_columns(res.terms))]
     ours_after = [c for c in (WEIGHT_USED, *CALIBRATION_ROW_HEADERS) if c in obs.columns]
+    head = [c for c in (SOURCE_FILE, *OBS_HEAD) if c in obs.columns]
     extra_data = [c for c in obs.columns
-                  if c not in (*keys, *OBS_HEAD, *data_cols, *OBS_TAIL, *days.values(), *ours_after)]
+                  if c not in (*keys, *head, *data_cols, *OBS_TAIL, *days.values(), *ours_after)]
     user_cols: list[str] = []
     for c in (*data_cols, *extra_data):
         user_cols += [c, days[c]] if days.get(c) in obs.columns else [c]
-    return ordered_columns(obs, keys, [*OBS_HEAD, *user_cols, *OBS_TAIL, *ours_after])
+    return ordered_columns(obs, keys, [*head, *user_cols, *OBS_TAIL, *ours_after])
 
 
 def observations_sheet(ctx: WriteContext) -> None:

@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 
 from ..model.engine import EngineFit
-from ..read.tidy import REASON, SOURCE_ROW, SOURCE_SHEET, Observations
+from ..read.tidy import REASON, SOURCE_FILE, SOURCE_ROW, SOURCE_SHEET, Observations
 from .headers import (COOKS, DAYS_MARK, FITTED, FLAG_SEPARATOR, HIGH_LEVERAGE_FLAG, INFLUENTIAL_FLAG, LEVERAGE,
     LEVERAGE_ONE_FLAG, MOVES_FIT_FLAG, NO, OUTLYING_FLAG, RESIDUAL, ROW_FLAGS, STUDENTIZED, USED, WEIGHT_USED, YES,
     shown_names)
@@ -82,10 +82,11 @@ def observations_table(obs: Observations, reason: np.ndarray, pos: np.ndarray, c
     group_reason = np.array(["group not fitted: " + str(r) for r in fit.not_fitted_reason], dtype=object)
     why = np.where((reason == "") & ~ok_group, group_reason[codes_all], reason)
     keys = list(obs.group_columns)
-    value_cols = [c for c in obs.numeric_columns if c not in (SOURCE_SHEET, SOURCE_ROW, *keys)]
-    out = data[keys + [SOURCE_SHEET, SOURCE_ROW] + value_cols].copy()
+    head = [c for c in (SOURCE_FILE, SOURCE_SHEET, SOURCE_ROW) if c in data.columns]
+    value_cols = [c for c in (*obs.numeric_columns, *obs.category_columns) if c not in (*head, *keys)]
+    out = data[keys + head + value_cols].copy()
     shown = observation_headers(keys + value_cols)       # the user's columns never take our names
-    out.columns = shown[:len(keys)] + [SOURCE_SHEET, SOURCE_ROW] + shown[len(keys):]
+    out.columns = shown[:len(keys)] + head + shown[len(keys):]
     _show_dates(out, obs, dict(zip(keys + value_cols, shown)), keys + value_cols)
     out[USED] = np.array([NO, YES], dtype=object)[used.astype(np.intp)]   # object: 6× faster into pandas
     out[REASON] = why

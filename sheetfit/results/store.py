@@ -10,23 +10,19 @@ positions of `store_layout.StoreLayout`) and reads the sheet back from the same 
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
 
-from ..errors import ResultsWorkbookError
-from ..terms import HINGES, Term, coefficient_labels, source_columns, weights_from_label
+from ..terms import HINGES, INDICATOR, PRODUCT, Term, coefficient_labels, source_columns, weights_from_label
 from .change_points import SHAPE
 from .headers import (CELL_LIMIT, COEFFICIENT, COEFFICIENT_COUNT, FLAGS, INPUT, PREDICTION_HEADERS,
     RESIDUAL_STD_ERROR, ROWS_USED, STATUS, cell_text, shown_names)
-from .store_layout import (ABOVE_HEADER, BELOW_HEADER, EXTRA_HEADERS, FORMATS_READ, GROUP_HEADER, LAG1_HEADER,
-    MEAN_HEADER, SETTING_HEADER, SETTING_NAMES, SHAPE_HEADER, STORE_FORMAT, STORE_SHEET, STORE_TITLE, TERM_HEADER,
-    FLAGS_HEADER, WEIGHT_MEAN_HEADER, StoreLayout)
+from .store_layout import (ABOVE_HEADER, BELOW_HEADER, EXTRA_HEADERS, GROUP_HEADER, LAG1_HEADER,
+    MEAN_HEADER, SETTING_NAMES, SHAPE_HEADER, STORE_FORMAT, FLAGS_HEADER, LEVELS_SEEN_HEADER, WEIGHT_MEAN_HEADER, StoreLayout)
 
 if TYPE_CHECKING:
     from .types import FitResults
@@ -69,8 +65,11 @@ class ModelStore:
     residual_lag1: np.ndarray | None = None   # (G,) lag-1 autocorrelation of the residuals in row order
     shapes: tuple[str, ...] | None = None     # (G,) shape of a change-point run's group; '' otherwise
     weights: str = ""                         # the weights of a weighted fit (COL, 1/COL, 1/COL^2); '' unweighted
+    reference: tuple[str, ...] = ()           # COLUMN=LEVEL: each category input's reference level
+    responses: tuple[str, ...] = ()           # several responses: their names (the first group column holds one)
     weight_mean: np.ndarray | None = None     # (G,) mean of the given weights each group's were divided by
     flags: np.ndarray | None = None           # (G,) the group's number of flags in its run
+    levels_seen: tuple[str, ...] | None = None  # (G,) the category levels each group's rows show ('' none)
     xtx: np.ndarray | None = None             # (G, p, p) X'X of the rows used (√w·X when weighted)
     xty: np.ndarray | None = None             # (G, p) X'y
     yty: np.ndarray | None = None             # (G,) y'y
@@ -80,6 +79,7 @@ class ModelStore:
         G, p = len(self.keys), len(self.term_labels)
         filled = {"change_points": np.full((G, 2), np.nan), "response_mean": np.full(G, np.nan),
                   "residual_lag1": np.full(G, np.nan), "shapes": ("",) * G, "weight_mean": np.full(G, np.nan), "flags": np.full(G, np.nan),
+                  "levels_seen": ("",) * G,
                   "xtx": np.full((G, p, p), np.nan), "xty": np.full((G, p), np.nan), "yty": np.full(G, np.nan)}
         for name, empty in filled.items():
             if getattr(self, name) is None:
@@ -96,6 +96,29 @@ class ModelStore:
             return ()
         column = weights_from_label(self.weights).column
         return () if column in (self.y, *self.sources) else (column,)
+
+    @property
+    def category_columns(self) -> tuple[str, ...]:
+        """The inputs the models take as categories (their values are level names)."""
+        return tuple(dict.fromkeys([t.column for t in self.terms if t.kind == INDICATOR]
+                                   + [t.by for t in self.terms if t.kind == PRODUCT and t.code >= 0]))
+
+    def seen_in_group(self, g: int, column: str) -> set[str] | None:
+        """The levels of a category input group g's rows show (None when the store does not say)."""
+        for part in str(self.levels_seen[g]).split("; "):
+            col, sep, names = part.partition("=")
+            if sep and col == column:
+                return set(names.split("|")) if names else set()
+        return None
+
+    def level_codes(self, column: str) -> dict[str, int]:
+        """A category input's level name → its code in the models (the reference level included)."""
+        codes = {t.level: t.code for t in self.terms if t.code >= 0 and column in (t.column, t.by)
+                 and (t.kind == INDICATOR or t.by == column)}
+        ref = dict(r.partition("=")[::2] for r in self.reference).get(column)
+        if ref is not None:
+            codes[ref] = next(k for k in range(len(codes) + 1) if k not in codes.values())
+        return codes
 
     @property
     def has_sums(self) -> bool:
@@ -225,6 +248,9 @@ def store_from_results(results: "FitResults") -> ModelStore:
         response_mean=per_group(results.response_mean), residual_lag1=per_group(results.residual_lag1),
         shapes=_shapes(sub, cps) if results.change_points is not None else None,
         weights=results.weights or "", weight_mean=per_group(results.weight_mean),
+        reference=tuple(f"{c}={r}" for c, r in (results.reference_levels or {}).items()),
+        responses=tuple(results.job.responses) if len(results.job.responses) > 1 else (),
+        levels_seen=None if results.levels_seen is None else tuple(str(v) for v in np.asarray(results.levels_seen)[at]),
         flags=pd.to_numeric(sub[FLAGS], errors="coerce").to_numpy(np.float64) if FLAGS in sub.columns else None,
         xtx=per_group(None if results.sums is None else results.sums.xtx, (p, p)),
         xty=per_group(None if results.sums is None else results.sums.xty, (p,)),
@@ -234,7 +260,7 @@ def store_from_results(results: "FitResults") -> ModelStore:
 def _optional_slots(results: "FitResults") -> np.ndarray:
     """(p,) the slots a group may leave unused: in a change-point run, the temperature's three slots."""
     hinged = {t.column for t in results.terms if t.kind in HINGES} if results.change_points is not None else set()
-    slots = [t.column in hinged and t.kind in (*HINGES, "column") for t in results.terms]
+    slots = [t.column in hinged and t.kind in (*HINGES, "column") or t.code >= 0 for t in results.terms]
     return np.array(([False] if results.job.intercept else []) + slots, dtype=bool)
 
 
@@ -270,14 +296,15 @@ def store_settings(store: ModelStore) -> list[tuple[str, list]]:
     """The rows of the settings table: (setting, its values)."""
     values = ([store.format], [store.y], ["yes" if store.intercept else "no"], [store.level],
               list(store.group_columns), list(store.sources), list(store.date_columns), [len(store)],
-              [store.weights] if store.weights else [])
+              [store.weights] if store.weights else [], list(store.reference), list(store.responses))
     return list(zip(SETTING_NAMES, values))
 
 
 def term_rows(store: ModelStore) -> list[list]:
     """The rows of the terms table: label, source column, kind, power (the intercept first)."""
     rows: list[list] = [[store.term_labels[0], "", "intercept", 0]] if store.intercept else []
-    return rows + [[t.label, t.column, t.kind, t.power] for t in store.terms]
+    return rows + [[t.label, t.column, t.kind, t.power, t.by, t.level, t.code if t.code >= 0 else ""]
+                   for t in store.terms]
 
 
 def group_headers(store: ModelStore) -> list[str]:
@@ -291,7 +318,7 @@ def group_headers(store: ModelStore) -> list[str]:
     if store.format >= 2:
         ours += list(EXTRA_HEADERS)
     if store.format >= 3:
-        ours += [WEIGHT_MEAN_HEADER, FLAGS_HEADER, *(f"sum x·x: {a} × {b}" for a in labels for b in labels),
+        ours += [WEIGHT_MEAN_HEADER, FLAGS_HEADER, LEVELS_SEEN_HEADER, *(f"sum x·x: {a} × {b}" for a in labels for b in labels),
                  *(f"sum x·y: {a}" for a in labels), "sum y·y"]
     keys = shown_names(store.group_columns, [GROUP_HEADER, *ours])
     return [cell_text(h) for h in (GROUP_HEADER, *keys, *ours)]
@@ -322,121 +349,9 @@ def group_columns(store: ModelStore, lay: StoreLayout) -> list[StoreColumn]:
         p = lay.p
         xtx = np.asarray(store.xtx, np.float64).reshape(G, p * p)
         cols += [StoreColumn(lay.col_weight_mean(), "weight mean", np.asarray(store.weight_mean, np.float64)),
-                 StoreColumn(lay.col_flags(), "flags", np.asarray(store.flags, np.float64))]
+                 StoreColumn(lay.col_flags(), "flags", np.asarray(store.flags, np.float64)),
+                 StoreColumn(lay.col_levels_seen(), "levels seen", np.array(store.levels_seen, dtype=object))]
         cols += [StoreColumn(lay.col_xtx(i, j), "sum", xtx[:, i * p + j]) for i in range(p) for j in range(p)]
         cols += [StoreColumn(lay.col_xty(j), "sum", np.asarray(store.xty, np.float64)[:, j]) for j in range(p)]
         cols += [StoreColumn(lay.col_yty(), "sum", np.asarray(store.yty, np.float64))]
     return cols
-
-
-# --- reading the store back from a results workbook ------------------------------------------------
-
-def _text(v: Any) -> str:
-    if v is None:
-        return ""
-    if isinstance(v, float) and v.is_integer():
-        return str(int(v))
-    return str(v).strip()
-
-
-def _number(v: Any) -> float:
-    try:
-        return float(v)
-    except (TypeError, ValueError):
-        return math.nan
-
-
-def read_store(path: Path | str) -> ModelStore:
-    """The stored models of a results workbook written by `sheetfit fit`."""
-    from ..read import open_book, sniff
-
-    path = Path(path)
-    fmt = sniff(path, MAX_UNPACKED)
-    if fmt not in ("xlsx", "xlsm", "ods"):
-        raise ResultsWorkbookError(f'"{path.name}" is not a results workbook (it is {fmt}); give the .xlsx '
-                                   f'that `sheetfit fit` wrote')
-    book = open_book(path, fmt)
-    try:
-        names = book.sheet_names()
-        name = next((s for s in names if s.strip().lower() == STORE_SHEET), None)
-        if name is None:
-            raise ResultsWorkbookError(f'"{path.name}" has no "{STORE_SHEET}" sheet, so it holds no stored '
-                                       f'models; fit again with `sheetfit fit` to write a results workbook with one')
-        grid = book.grid(name)
-    finally:
-        book.close()
-    try:
-        return _parse_store([list(r) for r in grid.rows], path.name)
-    except (ValueError, IndexError, KeyError) as exc:
-        raise ResultsWorkbookError(f'the "{STORE_SHEET}" sheet of "{path.name}" is damaged ({exc}); '
-                                   f'fit again with `sheetfit fit`') from None
-
-
-def _parse_store(rows: list[list], name: str) -> ModelStore:
-    """The ModelStore from the store sheet's cells (rows as read, top-left cell first)."""
-    rows = [[_cell(v) for v in r] for r in rows]
-    first = [_text(r[0]) if r else "" for r in rows]
-    if not first or first[0] != STORE_TITLE:
-        raise ValueError(f'cell A1 should read "{STORE_TITLE}"')
-    end, table = _table(rows, first, first.index(SETTING_HEADER[0]) + 1)
-    settings = {_text(r[0]): r[1:] for r in table}
-    version = int(_number(settings["store format"][0]))
-    if version not in FORMATS_READ:
-        raise ResultsWorkbookError(f'"{name}" stores models in format {version}; this sheetfit reads formats '
-                                   f'{", ".join(map(str, FORMATS_READ[:-1]))} and {FORMATS_READ[-1]}: fit again with this version')
-
-    def names(key: str) -> tuple[str, ...]:
-        return tuple(_text(v) for v in settings.get(key, []) if _text(v))
-
-    group_cols = names("group columns")
-    end, term_table = _table(rows, first, first.index(TERM_HEADER, end) + 1)
-    terms = tuple(Term(label=_text(r[0]), column=_text(r[1]), kind=_text(r[2]), power=int(_number(r[3])))
-                  for r in term_table if _text(r[2]) != "intercept")
-    h = first.index(GROUP_HEADER, end)
-    body = [r for r in rows[h + 1:] if r and _text(r[0])]
-    lay = StoreLayout(k=len(group_cols), p=len(term_table), m=len(source_columns(terms)), groups=len(body),
-                      extras=version >= 2, sums=version >= 3)
-    body = [(r + [None] * lay.width)[:lay.width] for r in body]
-    nums = np.array([[_number(v) for v in r] for r in body], dtype=np.float64).reshape(len(body), lay.width)
-    if not np.isfinite(nums[:, lay.col_n():lay.col_min(0)]).all():
-        raise ValueError("a stored number is missing")
-    return ModelStore(
-        y=_text(settings["response"][0]), group_columns=group_cols, terms=terms,
-        intercept=_text(settings["intercept"][0]) == "yes", level=_number(settings["confidence level"][0]),
-        date_columns=names("date/time inputs"), labels=tuple(_text(r[0]) for r in body),
-        keys=tuple(tuple(_text(r[lay.col_key(j)]) for j in range(lay.k)) for r in body),
-        n=nums[:, lay.col_n()].astype(np.int64), df=nums[:, lay.col_df()], sigma2=nums[:, lay.col_s2()],
-        beta=nums[:, lay.coef_columns()], xtx_inv=nums[:, lay.inv_columns()].reshape(len(body), lay.p, lay.p),
-        lo=nums[:, [lay.col_min(j) for j in range(lay.m)]], hi=nums[:, [lay.col_max(j) for j in range(lay.m)]],
-        weights=_text(settings["weights"][0]) if settings.get("weights") else "", **_extras(body, nums, lay))
-
-
-def _extras(body: list[list], nums: np.ndarray, lay: StoreLayout) -> dict[str, Any]:
-    """The format-2 fields from the group rows (none from a format-1 store: they stay NaN)."""
-    if not lay.extras:
-        return {}
-    out = {"change_points": nums[:, [lay.col_change_point(0), lay.col_change_point(1)]],
-           "response_mean": nums[:, lay.col_extra(MEAN_HEADER)],
-           "residual_lag1": nums[:, lay.col_extra(LAG1_HEADER)],
-           "shapes": tuple(_text(r[lay.col_extra(SHAPE_HEADER)]) for r in body)}
-    if lay.sums:
-        p, G = lay.p, len(body)
-        out.update(weight_mean=nums[:, lay.col_weight_mean()], flags=nums[:, lay.col_flags()],
-                   xtx=nums[:, [lay.col_xtx(i, j) for i in range(p) for j in range(p)]].reshape(G, p, p),
-                   xty=nums[:, [lay.col_xty(j) for j in range(p)]], yty=nums[:, lay.col_yty()])
-    return out
-
-
-def _table(rows: list[list], first: list[str], i: int) -> tuple[int, list[list]]:
-    """The rows from `i` down to the first one with an empty first cell: (that row's index, the rows)."""
-    out = []
-    while i < len(rows) and first[i]:
-        out.append(rows[i])
-        i += 1
-    return i, out
-
-
-def _cell(v: Any) -> Any:
-    return None if v == "" else v
-
-

@@ -1,7 +1,7 @@
 """Where everything sits on the `model store` sheet: its names, header rows and column positions.
 
 One layout for both directions: the report places the store's cells at these positions (and the
-live prediction sheet's formulas point at them), and `sheetfit.results.store.read_store` reads them back
+live prediction sheet's formulas point at them), and `sheetfit.results.store_read.read_store` reads them back
 from the same positions. All rows and columns are 0-based.
 
 Format 1 (every run before change points, and every run without them) ends each group row with the
@@ -27,10 +27,10 @@ INACTIVE_NOTE = ("A group uses only the change-point terms of its shape: a term 
                  "coefficient 0 and a row and column of 0 in (X'X)⁻¹, and an empty change point.")
 SETTING_HEADER = ("setting", "value")
 TERM_HEADER = "coefficient"
-TERM_COLUMNS = (TERM_HEADER, "source column", "kind", "power")
+TERM_COLUMNS = (TERM_HEADER, "source column", "kind", "power", "second column", "level", "level code")
 GROUP_HEADER = "group"
 SETTING_NAMES = ("store format", "response", "intercept", "confidence level", "group columns",
-                 "source columns", "date/time inputs", "fitted groups", "weights")
+                 "source columns", "date/time inputs", "fitted groups", "weights", "reference levels", "responses")
 # the format-2 columns after the observed ranges, in order
 SHAPE_HEADER = "shape"
 BELOW_HEADER = "change point of the 'below' term"
@@ -40,6 +40,7 @@ LAG1_HEADER = "residual lag-1 autocorrelation"
 EXTRA_HEADERS = (SHAPE_HEADER, BELOW_HEADER, ABOVE_HEADER, MEAN_HEADER, LAG1_HEADER)
 WEIGHT_MEAN_HEADER = "weight mean"     # format 3, then the group's flags and the sums
 FLAGS_HEADER = "flags"
+LEVELS_SEEN_HEADER = "levels seen"
 
 TITLE_ROW = 0
 NOTE_ROW = 1
@@ -89,7 +90,7 @@ class StoreLayout:
     @property
     def width(self) -> int:
         return (1 + self.k + 3 + self.p + self.p * self.p + 2 * self.m + (len(EXTRA_HEADERS) if self.extras else 0)
-                + (2 + self.p * self.p + self.p + 1 if self.sums else 0))
+                + (3 + self.p * self.p + self.p + 1 if self.sums else 0))
 
     def col_key(self, j: int) -> int: return 1 + j
     def col_n(self) -> int: return 1 + self.k
@@ -113,9 +114,10 @@ class StoreLayout:
         return self.col_min(self.m) + len(EXTRA_HEADERS)
 
     def col_flags(self) -> int: return self.col_weight_mean() + 1
-    def col_xtx(self, i: int, j: int) -> int: return self.col_weight_mean() + 2 + i * self.p + j
-    def col_xty(self, j: int) -> int: return self.col_weight_mean() + 2 + self.p * self.p + j
-    def col_yty(self) -> int: return self.col_weight_mean() + 2 + self.p * self.p + self.p
+    def col_levels_seen(self) -> int: return self.col_weight_mean() + 2
+    def col_xtx(self, i: int, j: int) -> int: return self.col_weight_mean() + 3 + i * self.p + j
+    def col_xty(self, j: int) -> int: return self.col_weight_mean() + 3 + self.p * self.p + j
+    def col_yty(self) -> int: return self.col_weight_mean() + 3 + self.p * self.p + self.p
 
     def col_change_point(self, i: int) -> int:
         """The change point of the 'below' (i = 0) or the 'above' (i = 1) term."""

@@ -10,7 +10,7 @@ from scipy import stats
 
 from ..model.engine import EngineFit
 from ..model.inference import Inference
-from ..terms import Term, design_matrix, source_columns
+from ..terms import INDICATOR, Term, design_matrix, source_columns
 from .headers import (ADJUSTED_R2, AIC, AVERAGE_HIGH, AVERAGE_LOW, BIC, COEFFICIENT, COEFFICIENT_COUNT,
     CV_RMSE, F_P_VALUE, F_STAT, FITTED, FLAGS, INPUT, INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, R2, REASONS,
     RESIDUAL_STD_ERROR, RMSE, ROWS_NOT_USED, ROWS_USED, STATUS, STD_ERROR, T_STAT, shown_names)
@@ -110,7 +110,7 @@ def curves_table(keys: pd.DataFrame, fit: EngineFit, inf: Inference, terms: Sequ
     bends exactly there.
     """
     cols = source_columns(terms)
-    if len(cols) != 1:
+    if len(cols) != 1 or any(t.kind == INDICATOR for t in terms):      # a category has no line to draw
         return empty_table(keys, ["x", FITTED, AVERAGE_LOW, AVERAGE_HIGH])
     col = cols[0]
     lo, hi = ranges[col]

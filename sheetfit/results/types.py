@@ -75,6 +75,8 @@ class FitResults:
     sums: Any = None
     comparison: Any = None
     changes: Any = None
+    reference_levels: dict[str, str] | None = None   # category input → its reference level
+    levels_seen: np.ndarray | None = None            # (G,) the category levels each group's rows show (text)
 
     @property
     def number_columns(self) -> tuple[str, ...]:
