@@ -20,12 +20,16 @@ from . import checks
 from .checks import robust
 from .checks.lack_of_fit import replicate_keys
 from .checks.verdicts import Verdicts, verdicts
-from .errors import JobError, NoUsableDataError, ResultsWorkbookError, UnusableRowsError
+from .errors import JobError, NoUsableDataError, ResultsWorkbookError
 from .job import FitJob
 from .memory import ordinary_pages
 from .model.engine import EngineFit, fit_groups
+from .model.categories import levels_seen
+from .model.rows import GroupedRows, design_rows, group_rows, nothing_fitted, refuse_unusable, row_reasons
+from .results.categories import category_about
+from .results.comparison import across_groups
 from .model.inference import Inference, inference
-from .read.tidy import REASON, SOURCE_ROW, Observations
+from .read.tidy import SOURCE_ROW, Observations
 from .results import tables
 from .results.about import about_rows
 from .results import calibration
@@ -35,7 +39,7 @@ from .results.headers import (CONDITION_NUMBER, FLAGS, HIGH_LEVERAGE_ROWS, INFLU
 from .results.observations import observations_table
 from .results.types import FitResults
 from .model.sums import group_sums
-from .terms import Term, change_point_input, coefficient_labels, design_matrix, source_columns
+from .terms import Term, change_point_input, coefficient_labels, source_columns
 
 ProgressCallback = Callable[[str], None]
 STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
@@ -43,64 +47,6 @@ STAGES = ("reading", "fitting", "checking", "assembling tables", "writing")
 
 def _no_progress(stage: str) -> None:
     """The default progress callback: says nothing."""
-
-
-@dataclass(frozen=True)
-class GroupedRows:
-    """The usable rows sorted by group (and by the order column within a group), as the engine takes them."""
-
-    keys: pd.DataFrame          # one row per group: the group columns' labels
-    codes_all: np.ndarray       # (N_read,) group code of every row read
-    reason: np.ndarray          # (N_read,) '' when usable, else plain words
-    pos: np.ndarray             # (N,) positions of the usable rows in the rows read, in engine order
-    codes: np.ndarray           # (N,) group code per engine row
-    columns: dict[str, np.ndarray]  # source column → (N,) values
-    y: np.ndarray               # (N,)
-    weights: np.ndarray | None = None   # (N,) row weights of a weighted fit
-
-    @property
-    def n_groups(self) -> int:
-        return len(self.keys)
-
-
-def row_reasons(obs: Observations) -> np.ndarray:
-    """Reader reasons plus term-domain problems (log of ≤ 0, sqrt of < 0) and weights that are not positive."""
-    reason = obs.data[REASON].to_numpy(dtype=object).copy()
-    for term in obs.terms:
-        if term.kind not in ("log", "sqrt"):
-            continue
-        bad = term.domain_problem(obs.data[term.column].to_numpy(dtype=np.float64))
-        for i in np.flatnonzero(bad):
-            reason[i] = f"{reason[i]}; {term.domain_reason()}" if reason[i] else term.domain_reason()
-    if obs.weights is not None:
-        problem = obs.weights.row_problem(obs.data[obs.weights.column].to_numpy(dtype=np.float64))
-        for i in np.flatnonzero(problem != ""):
-            reason[i] = f"{reason[i]}; {problem[i]}" if reason[i] else problem[i]
-    return reason
-
-
-def group_rows(obs: Observations, reason: np.ndarray, codes: dict[str, np.ndarray] | None = None) -> GroupedRows:
-    """Give every row its group code and put the usable rows in engine order; `codes` holds each category
-    column's level codes per row read (the data hold its levels as text)."""
-    codes = codes or {}
-    data = obs.data
-    keys_cols = list(obs.group_columns)
-    if keys_cols:
-        codes_all = data.groupby(keys_cols, sort=False, dropna=False).ngroup().to_numpy()
-    else:
-        codes_all = np.zeros(len(data), dtype=np.int64)
-    G = int(codes_all.max()) + 1 if len(codes_all) else 0
-    first = np.unique(codes_all, return_index=True)[1]
-    keys = data.iloc[first][keys_cols].reset_index(drop=True) if keys_cols else pd.DataFrame(index=range(G))
-    pos = np.flatnonzero(reason == "")
-    seq = data[obs.order].to_numpy(dtype=np.float64)[pos] if obs.order else pos.astype(np.float64)
-    pos = pos[np.lexsort((pos, seq, codes_all[pos]))]
-    columns = {c: (codes[c] if c in codes else data[c].to_numpy(dtype=np.float64))[pos]
-               for c in source_columns(obs.terms)}
-    weights = (None if obs.weights is None else
-               obs.weights.values(data[obs.weights.column].to_numpy(dtype=np.float64)[pos]))
-    return GroupedRows(keys=keys, codes_all=codes_all, reason=reason, pos=pos, codes=codes_all[pos],
-                       columns=columns, y=data[obs.y].to_numpy(dtype=np.float64)[pos], weights=weights)
 
 
 def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback | None = None,
@@ -117,12 +63,12 @@ def fit_observations(obs: Observations, job: FitJob, progress: ProgressCallback 
             obs = dataclasses.replace(obs, terms=coding.terms)
         reason = row_reasons(obs)
         if job.strict:
-            _refuse_unusable(obs.data, reason)
+            refuse_unusable(obs.data, reason)
         rows = group_rows(obs, reason, None if coding is None else coding.codes)
         progress("fitting")
         model = _fit_model(obs, job, rows, coding)
         if not model.fit.fitted_ok.any():
-            raise NoUsableDataError(_nothing_fitted(model.fit, rows.n_groups))
+            raise NoUsableDataError(nothing_fitted(model.fit, rows.n_groups))
         progress("checking")
         results = _check_and_tabulate(obs, job, rows, model, progress)
     return results if earlier is None else with_changes(results, earlier, job)
@@ -246,9 +192,11 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
     groups = tables.groups_table(keys, fit, inf, judged.flags, judged.reasons, (n_used, dropped), group_extra)
     observations = observations_table(obs, rows.reason, rows.pos, rows.codes_all, fit, highlights)
     if job.calibration:
-        observations = _with_back_calculation(observations, obs, job, fit, inf, rows)
+        observations = calibration.with_back_calculation(
+            observations, obs.data[obs.terms[0].column].to_numpy(dtype=np.float64),
+            obs.data[obs.y].to_numpy(dtype=np.float64), rows.codes_all, fit.beta, inf.p_value[:, 1], job.thresholds)
     ranges = tables.observed_ranges(rows.columns, codes, G)
-    X = _design_rows(job, model, rows)
+    X = design_rows(terms, job.intercept, rows, fit, None if model.shaped is None else model.shaped.change_points)
     return FitResults(
         job=job, group_columns=obs.group_columns, y=obs.y, terms=terms, groups=groups,
         coefficients=tables.coefficients_table(keys, fit, inf, labels, coef_extra),
@@ -258,93 +206,20 @@ def _tables(obs: Observations, job: FitJob, rows: GroupedRows, model: FittedMode
         quantiles=tables.quantiles_table(keys, fit, codes),
         xtx_inverse=tables.xtx_table(keys, fit, labels),
         input_ranges=tables.ranges_table(keys, fit, ranges),
-        info=obs.info, about=tuple(about_rows(job, obs.info, groups, fit)) + _category_about(model), order=obs.order,
+        info=obs.info, order=obs.order,
+        about=tuple(about_rows(job, obs.info, groups, fit)) + (
+            () if model.coding is None else category_about(model.coding.levels, model.coding.reference)),
         change_points=None if model.shaped is None else model.shaped.change_points,
         response_mean=fit.ymean.copy(), residual_lag1=residual_lag1(fit.resid, codes, G),
         weights=None if obs.weights is None else obs.weights.label,
         weight_mean=fit.weight_mean, sums=group_sums(X, rows.y, codes, G, fit.fitted_ok, fit.weights),
-        comparison=_across_groups(job, model, rows, X),
+        comparison=None if model.shaped is not None or not fit.active.all() else across_groups(
+            rows.y, X, codes, fit.fitted_ok, keys, coefficient_labels(terms, job.intercept), intercept=job.intercept,
+            thresholds=job.thresholds, level=job.level, weights=fit.weights),
         reference_levels=None if model.coding is None else dict(model.coding.reference),
-        levels_seen=None if model.coding is None else _levels_seen(model, rows),
+        levels_seen=None if model.coding is None else levels_seen(
+            {c: rows.columns[c] for c in model.coding.columns if c in rows.columns}, codes, G, model.coding.levels),
     )
-
-
-def _category_about(model: FittedModel) -> tuple[tuple[str, str], ...]:
-    """One `about` row per category input: its levels, the reference first."""
-    coding = model.coding
-    if coding is None:
-        return ()
-    rows = []
-    for col, levels in coding.levels.items():
-        ref = coding.reference[col]
-        rest = [lev for lev in levels if lev != ref]
-        shown = ", ".join(rest[:30]) + (f" and {len(rest) - 30} more" if len(rest) > 30 else "")
-        rows.append((f"category input {col}", f"reference level {ref}; other levels: {shown or '(none)'}"))
-    return tuple(rows)
-
-
-def _levels_seen(model: FittedModel, rows: GroupedRows) -> np.ndarray:
-    from .model.categories import levels_seen
-
-    coding = model.coding
-    return levels_seen({c: rows.columns[c] for c in coding.columns if c in rows.columns}, rows.codes, rows.n_groups,
-                       coding.levels)
-
-
-def _design_rows(job: FitJob, model: FittedModel, rows: GroupedRows) -> np.ndarray:
-    """The raw design rows (N, p) in engine order, each group's change points in place; 0 on unused slots."""
-    fit = model.fit
-    cps = None
-    if model.shaped is not None:
-        tau = np.asarray(model.shaped.change_points, dtype=np.float64)[rows.codes]
-        cps = {"below": tau[:, 0], "above": tau[:, 1]}
-    with np.errstate(invalid="ignore", over="ignore"):
-        X = design_matrix(model.terms, job.intercept, rows.columns, cps) if len(rows.y) else np.zeros((0, fit.p))
-    return np.where(fit.active[rows.codes], X, 0.0)
-
-
-def _across_groups(job: FitJob, model: FittedModel, rows: GroupedRows, X: np.ndarray) -> Any:
-    """Which groups respond differently (results.comparison), when two or more groups were fitted with the
-    same terms and no change points (those give each group its own terms); else None."""
-    fit = model.fit
-    if model.shaped is not None or not fit.active.all() or int(fit.fitted_ok.sum()) < 2:
-        return None
-    from .results.comparison import compare_across_groups, comparison_tables
-
-    comp = compare_across_groups(rows.y, X, rows.codes, fit.fitted_ok, intercept=job.intercept,
-                                 thresholds=job.thresholds, level=job.level, weights=fit.weights)
-    inputs = coefficient_labels(model.terms, job.intercept)[1 if job.intercept else 0:]
-    return comparison_tables(comp, rows.keys, inputs, job.thresholds)
-
-
-def _with_back_calculation(observations: pd.DataFrame, obs: Observations, job: FitJob, fit: EngineFit,
-                           inf: Inference, rows: GroupedRows) -> pd.DataFrame:
-    """Observations with each standard's back-calculated input, its deviation and whether it is off."""
-    used = (observations[USED] == YES).to_numpy()
-    x = obs.data[obs.terms[0].column].to_numpy(dtype=np.float64)
-    y = obs.data[obs.y].to_numpy(dtype=np.float64)
-    thr = job.thresholds
-    found = calibration.back_calculation(x, y, rows.codes_all, used, fit.beta, inf.p_value[:, 1], thr.alpha,
-                                         thr.back_calc_limit, thr.back_calc_limit_lowest)
-    return observations.assign(**found)
-
-
-def _refuse_unusable(data: pd.DataFrame, reason: np.ndarray) -> None:
-    bad = np.flatnonzero(reason != "")
-    if len(bad):
-        rows = data[SOURCE_ROW].to_numpy()
-        shown = "; ".join(f"row {rows[i]}: {reason[i]}" for i in bad[:3])
-        more = f" (and {len(bad) - 3} more)" if len(bad) > 3 else ""
-        raise UnusableRowsError(f"--strict: {len(bad)} row(s) cannot be used: {shown}{more}; "
-                                f"fix them or run without --strict to report them instead")
-
-
-def _nothing_fitted(fit: EngineFit, G: int) -> str:
-    biggest = int(fit.n.max()) if G else 0
-    first = next((r for r in fit.not_fitted_reason if r), "no usable rows")
-    need = int(fit.n_params.max()) if G else fit.p
-    return (f"no group could be fitted ({G} group(s); the largest has {biggest} usable rows, "
-            f"{need} coefficients need at least {need + 1}); first reason: {first}")
 
 
 def fit_job(job: FitJob, progress: ProgressCallback | None = None) -> FitResults:

@@ -11,6 +11,10 @@ practice in method validation). The blank (x = 0) has no deviation.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
+
+from ..job import Thresholds
+from .headers import USED, YES
 
 LIMIT_OF_DETECTION = "limit of detection"
 LIMIT_OF_QUANTIFICATION = "limit of quantification"
@@ -61,3 +65,12 @@ def back_calculation(x: np.ndarray, y: np.ndarray, codes: np.ndarray, used: np.n
         words[i] = (f"not read back: the slope is not distinguishable from zero (p = {slope_p[safe[i]]:.3g}), "
                     "so a response says little about the input")
     return {BACK_CALCULATED: back, DEVIATION: dev, STANDARD_OFF: words}
+
+
+def with_back_calculation(observations: pd.DataFrame, x: np.ndarray, y: np.ndarray, codes_all: np.ndarray,
+                          beta: np.ndarray, slope_p: np.ndarray, thr: Thresholds) -> pd.DataFrame:
+    """Observations with each standard's back-calculated input, its deviation and whether it is off (rows used)."""
+    used = (observations[USED] == YES).to_numpy()
+    found = back_calculation(x, y, codes_all, used, beta, slope_p, thr.alpha, thr.back_calc_limit,
+                             thr.back_calc_limit_lowest)
+    return observations.assign(**found)

@@ -8,7 +8,7 @@ inputs), not which ones; the coefficients sheet has each level against the refer
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 from scipy import stats
@@ -51,3 +51,14 @@ def level_columns(fit: EngineFit, terms: Sequence[Term], columns: Sequence[str],
         out[levels_f_header(col)] = F
         out[levels_p_header(col)] = p
     return out
+
+
+def category_about(levels: Mapping[str, Sequence[str]], reference: Mapping[str, str]) -> tuple[tuple[str, str], ...]:
+    """One `about` row per category input: its reference level, then the other levels."""
+    rows = []
+    for col, found in levels.items():
+        ref = reference[col]
+        rest = [lev for lev in found if lev != ref]
+        shown = ", ".join(rest[:30]) + (f" and {len(rest) - 30} more" if len(rest) > 30 else "")
+        rows.append((f"category input {col}", f"reference level {ref}; other levels: {shown or '(none)'}"))
+    return tuple(rows)

@@ -206,3 +206,15 @@ def group_labels(keys: pd.DataFrame) -> list[str]:
     for part in parts[1:]:
         joined = joined + " / " + part
     return joined.tolist()
+
+
+def across_groups(y: np.ndarray, X: np.ndarray, codes: np.ndarray, fitted_ok: np.ndarray, keys: pd.DataFrame,
+                  labels: Sequence[str], *, intercept: bool, thresholds: Thresholds, level: float,
+                  weights: np.ndarray | None = None) -> ComparisonTables | None:
+    """The across-groups tables of a run whose groups share their terms (`labels`: the coefficient labels),
+    or None when fewer than two groups were fitted."""
+    if int(np.asarray(fitted_ok).sum()) < 2:
+        return None
+    comp = compare_across_groups(y, X, codes, fitted_ok, intercept=intercept, thresholds=thresholds, level=level,
+                                 weights=weights)
+    return comparison_tables(comp, keys, list(labels)[1 if intercept else 0:], thresholds)
