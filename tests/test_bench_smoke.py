@@ -32,3 +32,11 @@ def test_change_point_bench_runs_at_a_small_size() -> None:
                        cwd=Path(__file__).resolve().parents[1])
     assert p.returncode == 0, p.stdout[-2000:] + p.stderr[-2000:]
     assert "straight line:" in p.stdout and "--change-point auto:" in p.stdout and "ratio: " in p.stdout
+
+
+def test_weights_bench_runs_at_a_small_size() -> None:
+    p = subprocess.run([sys.executable, "-m", "bench.weights_ratio", "--groups", "200", "--repeat", "1"],
+                       capture_output=True, text=True, timeout=240, stdin=subprocess.DEVNULL,
+                       cwd=Path(__file__).resolve().parents[1])
+    assert p.returncode == 0, p.stdout[-2000:] + p.stderr[-2000:]
+    assert "ordinary:" in p.stdout and "--weights 1/x^2:" in p.stdout and "ratio: " in p.stdout
