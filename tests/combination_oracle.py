@@ -1,7 +1,13 @@
 """The oracle of the combination matrix (tests/test_combinations.py): per group, the design built by hand
 from the README's definitions and fitted by statsmodels (OLS; WLS with the case's weights divided by
 their group's mean), the brute-force change-point search, and the expected value of every check, row
-measure, lack-of-fit test and calibration column.
+measure, lack-of-fit test, category test and calibration column.
+
+A group is a (response, file, --group value) as the results show it (README: several responses and several
+files are group keys): statsmodels per response on the rows where that response, every input and the
+weight are usable. A category input becomes, per group, the indicators of the levels its rows show against
+the run's reference (its own first level where it lacks the reference; none where it shows one level), a
+product `A by CAT` A times each of those indicators, `A by B` the product column.
 
 A weighted group (weights that vary; README: equal weights give the ordinary fit) is judged as the
 weighted model √w·y = √w·X·b: statsmodels `WLS(y, X, weights=w)` for the fit, its statsmodels OLS twin
@@ -14,7 +20,7 @@ statsmodels regressions, and the comment says so.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -29,16 +35,23 @@ from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflatio
 from statsmodels.stats.stattools import durbin_watson, jarque_bera
 from statsmodels.tools.sm_exceptions import SingularMatrixWarning
 
+from tests.combination_cases import Key, with_file_rows
 from tests.combinations import (
+    CATEGORY_TERMS,
     CHANGE_POINTS,
-    GROUP,
+    FILE_KEY,
+    INPUTS,
     REFERENCE_COLUMNS,
+    RESPONSE_KEY,
     SEQ,
+    SLOPES_BY_LEVEL,
     SOURCE,
     TEMPERATURE,
-    WEIGHTS,
     Case,
-    Y,
+    level_label,
+    numbers,
+    reference_weights,
+    run_levels,
 )
 
 BASELINE = ("baseline: CV(RMSE) within limit", "baseline: NMBE within limit", "baseline: R² at least limit")
@@ -71,23 +84,15 @@ def temperature_columns(t: np.ndarray, shape: Shape) -> list[np.ndarray]:
     return cols or [t]
 
 
-def reference_weights(case: Case, frame: pd.DataFrame) -> np.ndarray:
-    """Each row's weight by hand (README: the column W, 1/COL or 1/COL^2; inf where COL is 0); ones unweighted."""
-    if case.weights == "none":
-        return np.ones(len(frame))
-    column, power = WEIGHTS[case.weights]
-    values = frame[column].to_numpy(float)
-    with np.errstate(divide="ignore"):
-        return values if power == 0 else 1.0 / values**power
-
-
 @dataclass
 class GroupReference:
     """One group's usable rows in sequence, its design and its statsmodels fit."""
 
-    key: str | None
-    rows: pd.DataFrame          # usable rows in the order the fit sees them (file rows in `_file_row`)
+    key: Key
+    response: str
+    rows: pd.DataFrame          # usable rows in the order the fit sees them (`_file`, `_file_row`: where each is)
     X: np.ndarray               # design as fitted (intercept column first when there is one)
+    labels: list[str]           # the coefficients' names (README), one per column of X
     fit: object                 # statsmodels OLS or WLS results, change points counted in its df
     dropped: int                # rows of the group the model could not use
     shape: Shape                # the change-point shape the design was built at
@@ -95,6 +100,14 @@ class GroupReference:
     others: np.ndarray          # the design without the temperature's columns (the brute-force search)
     w: np.ndarray               # weights as fitted: divided by their mean (README); ones when they do not vary
     white: object               # statsmodels OLS of √w·y on √w·X (the fit itself when unweighted)
+    inputs: list[str]           # the columns the terms read (an input point for lack of fit: a row's values in all)
+    indicators: dict[str, list[int]] = field(default_factory=dict)   # category → its indicators' columns of X
+    seen: dict[str, list[str]] = field(default_factory=dict)         # category → the levels the rows show
+    levels: dict = field(default_factory=dict)       # category → (the run's levels, its reference): run_levels
+
+    @property
+    def label(self) -> str:
+        return ", ".join(f"{c} {v}" for c, v in self.key) or "the group"
 
     @property
     def k(self) -> int:
@@ -106,7 +119,7 @@ class GroupReference:
 
     @property
     def y(self) -> np.ndarray:
-        return self.rows[Y].to_numpy(float)
+        return numbers(self.rows, self.response)
 
     @property
     def weighted(self) -> bool:
@@ -131,44 +144,111 @@ def _fitted(model, case: Case, shape: Shape):
     return model.fit()
 
 
-def reference_fits(case: Case, table: pd.DataFrame, shapes: dict | None = None) -> list[GroupReference]:
-    """statsmodels OLS or WLS (the reference implementation) of every group, in order of first appearance,
-    at the shape and change points `shapes` gives per group key (sheetfit's; a straight line without)."""
-    table = table.assign(_file_row=np.arange(2, len(table) + 2))
-    keyed = table.groupby(GROUP, sort=False) if case.group else [(None, table)]
-    out = []
-    for key, g in keyed:
-        shape = (shapes or {}).get(key, Shape()) if case.change_point != "none" else Shape()
-        with np.errstate(divide="ignore", invalid="ignore"):     # log(0) = −inf, sqrt(−3.5) = NaN
-            plain = np.column_stack([REFERENCE_COLUMNS[t](g) for t in case.terms])
-        given = reference_weights(case, g)
-        # README: a row is used when every term is defined there and its weight is a positive number
-        ok = np.isfinite(plain).all(axis=1) & np.isfinite(given) & (given > 0)
-        rows, plain, given = g.loc[ok].copy(), plain[ok], given[ok]
-        seq = rows[SEQ].to_numpy() if case.order else rows["_file_row"].to_numpy()
-        sort = np.argsort(seq, kind="stable")
-        rows, plain, given = rows.iloc[sort], plain[sort], given[sort]
-        cols, sources, others = [], [], [np.ones(len(rows))] if case.intercept else []
-        for j, term in enumerate(case.terms):
-            own = temperature_columns(plain[:, j], shape) if term == TEMPERATURE else [plain[:, j]]
-            cols += own
-            sources += [SOURCE[term]] * len(own)
-            others += [] if term == TEMPERATURE else own
-        X = np.column_stack(cols)
-        if case.intercept:
-            X = sm.add_constant(X, has_constant="add")
-        y = rows[Y].to_numpy(float)
-        # README: weights are divided by their mean within the group; all equal: the ordinary fit
-        w = given / given.mean() if given.max() > given.min() else np.ones(len(rows))
-        weighted = bool((w != 1.0).any())
-        fit = _fitted(sm.WLS(y, X, weights=w) if weighted else sm.OLS(y, X), case, shape)
-        root = np.sqrt(w)
-        white = _fitted(sm.OLS(root * y, root[:, None] * X), case, shape) if weighted else fit
-        out.append(GroupReference(key=key, rows=rows, X=X, fit=fit, dropped=int((~ok).sum()), shape=shape,
-                                  sources=sources, others=np.column_stack(others) if others else X[:, :0],
-                                  w=w, white=white))
+def _usable(case: Case, g: pd.DataFrame, response: str) -> np.ndarray:
+    """README: a row is used when its response is a number, every term is defined there (a category cell not
+    blank) and its weight is a positive number."""
+    ok = np.isfinite(numbers(g, response))
+    given = reference_weights(case, g)
+    ok &= np.isfinite(given) & (given > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):     # log(0) = −inf, sqrt(−3.5) = NaN
+        for t in case.terms:
+            if t in REFERENCE_COLUMNS:
+                ok &= np.isfinite(REFERENCE_COLUMNS[t](g))
+            number, col = SLOPES_BY_LEVEL.get(t, (None, CATEGORY_TERMS.get(t)))
+            ok &= (g[col].map(level_label) != "").to_numpy() if col else True
+            ok &= np.isfinite(numbers(g, number)) if number else True
+    return ok
+
+
+def design(case: Case, g: pd.DataFrame, ok: np.ndarray, shape: Shape, levels: dict) -> dict:
+    """The group's design by hand on its usable rows `g[ok]`, term by term in the order given: the constant,
+    number terms (a product A·B), T's hinge columns under a shape, and per category, for each level of the run
+    but its reference that the rows show, the level's indicator (or A times it); where the rows lack the
+    reference their own first level is left out instead, and where they show one level only nothing (README)."""
+    rows = g.loc[ok]
+    out = {"cols": [np.ones(len(rows))] if case.intercept else [], "labels": ["constant"] if case.intercept else [],
+           "sources": [], "others": [], "indicators": {}, "seen": {}}
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for t in case.terms:
+            number, col = SLOPES_BY_LEVEL.get(t, (None, CATEGORY_TERMS.get(t)))
+            if col:
+                all_levels, ref = levels[col]
+                labels = rows[col].map(level_label).to_numpy()
+                seen = sorted(set(labels))
+                own = ref if ref in seen or not seen else seen[0]
+                out["seen"][col] = seen
+                new = [(f"{col}: {v} vs {ref}" if number is None else f"{number} by {col}: {v} vs {ref}",
+                        (labels == v) * (1.0 if number is None else numbers(rows, number)))
+                       for v in all_levels if v != ref and v != own and v in seen and len(seen) > 1]
+                if number is None:
+                    first = len(out["cols"])
+                    out["indicators"][col] = list(range(first, first + len(new)))
+            elif t == TEMPERATURE and shape.name != "line":
+                words = {"heating": ["below"], "cooling": ["above"]}.get(shape.name, ["below", "above"])
+                new = list(zip([f"{t} {w} change point" for w in words],
+                               temperature_columns(REFERENCE_COLUMNS[t](g)[ok], shape)))
+            else:
+                new = [(t, REFERENCE_COLUMNS[t](g)[ok])]
+            out["labels"] += [name for name, _ in new]
+            out["cols"] += [values for _, values in new]
+            out["sources"] += [SOURCE[t]] * len(new)
+            out["others"] += [] if t == TEMPERATURE else [values for _, values in new]
     return out
 
+
+def reference_fits(case: Case, table: pd.DataFrame, shapes: dict | None = None) -> list[GroupReference]:
+    """statsmodels OLS or WLS (the reference implementation) of every group, response by response, at the
+    shape and change points `shapes` gives per group key (sheetfit's; a straight line without)."""
+    table = with_file_rows(case, table)
+    levels = run_levels(case, table)
+    by = ["_file"] * (case.files > 1) + case.group
+    keyed = list(table.groupby(by, sort=False)) if by else [((), table)]
+    names = [FILE_KEY] * (case.files > 1) + case.group
+    out = []
+    for response in case.ys:
+        for values, g in keyed:
+            key = ((RESPONSE_KEY, response),) * (case.responses > 1) + tuple(
+                zip(names, map(str, values if isinstance(values, tuple) else (values,))))
+            shape = (shapes or {}).get(key, Shape()) if case.change_point != "none" else Shape()
+            out.append(_group_fit(case, g, key, response, shape, levels))
+    return out
+
+
+def _group_fit(case: Case, g: pd.DataFrame, key: Key, response: str, shape: Shape, levels: dict) -> GroupReference:
+    """One group's usable rows in sequence (README: --order, else the file's row order), design and fits."""
+    ok = _usable(case, g, response)
+    seq = g[SEQ].to_numpy() if case.order else g["_file_row"].to_numpy()
+    sort = np.argsort(seq[ok], kind="stable")
+    g = pd.concat([g.loc[ok].iloc[sort], g.loc[~ok]])          # usable rows in sequence first
+    ok = np.r_[np.ones(sort.size, dtype=bool), np.zeros(int((~ok).sum()), dtype=bool)]
+    d = design(case, g, ok, shape, levels)
+    rows = g.iloc[: sort.size]
+    X, y, given = np.column_stack(d["cols"]), numbers(rows, response), reference_weights(case, rows)
+    # README: weights are divided by their mean within the group; all equal: the ordinary fit
+    w = given / given.mean() if given.max() > given.min() else np.ones(len(rows))
+    weighted = bool((w != 1.0).any())
+    fit = _fitted(sm.WLS(y, X, weights=w) if weighted else sm.OLS(y, X), case, shape)
+    root = np.sqrt(w)
+    white = _fitted(sm.OLS(root * y, root[:, None] * X), case, shape) if weighted else fit
+    others = d["others"] + ([np.ones(len(rows))] if case.intercept else [])
+    return GroupReference(key=key, response=response, rows=rows, X=X, labels=d["labels"], fit=fit,
+                          dropped=len(g) - len(rows), shape=shape, sources=d["sources"],
+                          others=np.column_stack(others) if others else X[:, :0], w=w, white=white,
+                          inputs=list(dict.fromkeys(c for t in case.terms for c in INPUTS[t])),
+                          indicators=d["indicators"], seen=d["seen"], levels=levels)
+
+
+def levels_differ(gr: GroupReference, column: str) -> tuple[float, float]:
+    """The groups sheet's all-levels test of a category: statsmodels f_test of the group's indicators jointly
+    zero (classic covariance); NaN where the group estimates none."""
+    slots = gr.indicators.get(column, [])
+    if not slots:
+        return np.nan, np.nan
+    test = gr.fit.f_test(np.eye(gr.k)[slots])                                  # statsmodels
+    return float(np.squeeze(test.fvalue)), float(np.squeeze(test.pvalue))
+
+
+# ---------------------------------------------------------------- change points
 
 def hinge_rss(gr: GroupReference, shape: Shape) -> np.ndarray:
     """RSS of the least-squares fit of y on the group's other columns and the hinge columns of `shape`
@@ -212,13 +292,21 @@ def row_measures(gr: GroupReference) -> dict:
     p = k), and the externally studentized residual. statsmodels refits without each row on n − 1 − k df;
     README and sheetfit/model/engine.py (_influence) count the change points: s₍ᵢ₎² = (RSS − e²/(1 − h))/
     (n − k − c − 1), so each leave-one-out RSS of statsmodels is divided by that df instead. Also the Cook's
-    cut, the median of F(k, n − k − c) (scipy; Cook 1977, sheetfit/checks/influence.py cooks_cut)."""
-    infl = OLSInfluence(gr.white)                                                # statsmodels
-    n, k, c = len(gr.rows), gr.k, gr.c
-    h = infl.hat_matrix_diag
-    s2_without = infl.sigma2_not_obsi * (n - 1 - k) / (n - 1 - k - c)
-    return {"leverage": h, "cooks": infl.cooks_distance[0], "cut": stats.f.ppf(0.5, k, n - k - c),
-            "studentized": np.asarray(gr.white.resid) / np.sqrt(s2_without * (1 - h))}
+    cut, the median of F(k, n − k − c) (scipy; Cook 1977, sheetfit/checks/influence.py cooks_cut). A row of
+    leverage 1 (to 1e-10) alone fixes a coefficient: both of its measures divide by 1 − h = 0, so README
+    leaves them undefined (NaN)."""
+    with warnings.catch_warnings(), np.errstate(divide="ignore", invalid="ignore"):
+        warnings.simplefilter("ignore", SingularMatrixWarning)      # leaving out a leverage-1 row: rank-deficient
+        warnings.simplefilter("ignore", RuntimeWarning)
+        infl = OLSInfluence(gr.white)                                            # statsmodels
+        n, k, c = len(gr.rows), gr.k, gr.c
+        h = infl.hat_matrix_diag
+        one = h >= 1 - 1e-10
+        s2_without = infl.sigma2_not_obsi * (n - 1 - k) / (n - 1 - k - c)
+        studentized = np.asarray(gr.white.resid) / np.sqrt(s2_without * (1 - h))
+        cooks = np.asarray(infl.cooks_distance[0], dtype=float)
+    return {"leverage": h, "cooks": np.where(one, np.nan, cooks), "cut": stats.f.ppf(0.5, k, n - k - c),
+            "studentized": np.where(one, np.nan, studentized)}
 
 
 def expected_row_flags(gr: GroupReference, rm: dict) -> list[str]:
@@ -258,7 +346,9 @@ def coefficient_vifs(case: Case, gr: GroupReference) -> np.ndarray:
             r2 = sm.WLS(gr.X[:, j], np.delete(gr.X, j, axis=1), weights=gr.w).fit().rsquared
             out[j] = 1 / (1 - r2)
         else:
-            out[j] = variance_inflation_factor(gr.X, j, standardize=False)
+            with warnings.catch_warnings():       # a product beside its factors (condition ~1e4): statsmodels warns
+                warnings.simplefilter("ignore", UserWarning)
+                out[j] = variance_inflation_factor(gr.X, j, standardize=False)
     return out
 
 
@@ -302,7 +392,7 @@ def expected_checks(case: Case, gr: GroupReference, rm: dict, chosen) -> dict:
     bp = het_breuschpagan(e, exog_c, robust=True)
     # Bonferroni outlier test with sheetfit's documented df: t(n − k − c − 1) (sheetfit/checks/influence.py
     # outlier_test) on the studentized residuals of row_measures; scipy
-    t_max = np.abs(rm["studentized"]).max()
+    t_max = np.nanmax(np.abs(rm["studentized"])) if np.isfinite(rm["studentized"]).any() else np.nan
     want = {
         "model F-test": (chosen.fvalue, chosen.f_pvalue),   # fvalue first: a robust F caches its Wald F p-value
         "R² below threshold": (ref.rsquared, None),         # statsmodels WLS: 1 − Σw·e²/Σw·(y − ȳw)²
@@ -311,8 +401,8 @@ def expected_checks(case: Case, gr: GroupReference, rm: dict, chosen) -> dict:
         "normal residuals (Shapiro–Wilk)": (sw.statistic, sw.pvalue),
         "constant variance (Breusch–Pagan)": (bp[0], bp[1]),
         "independent residuals (Durbin–Watson)": (durbin_watson(e), durbin_watson_p(gr, durbin_watson(e))),
-        "outlier (Bonferroni)": (t_max, min(1.0, n * 2 * stats.t.sf(t_max, n - k - c - 1))),
-        "influence (Cook's distance)": (rm["cooks"].max(), None),
+        "outlier (Bonferroni)": (t_max, np.minimum(1.0, n * 2 * stats.t.sf(t_max, n - k - c - 1))),
+        "influence (Cook's distance)": (np.nanmax(rm["cooks"]), None),
         "single-row leverage": (rm["leverage"].max(), None),
         "collinearity (condition number)": (condition_number(gr), None),
     }
@@ -326,19 +416,26 @@ def durbin_watson_p(gr: GroupReference, d: float) -> float:
     """Two-sided p-value of the Durbin–Watson statistic d under independent normal errors, 2·min(F, 1 − F)
     (sheetfit's about sheet), F = P(DW ≤ d) = P(Σ(λ_i − d)·z_i² ≤ 0) exactly (Durbin & Watson 1971): λ_i the
     n − k non-zero eigenvalues of M·A·M (numpy; M the residual maker of the whitened design, A = DᵀD of the
-    first differences), F by Imhof's (1961) inversion formula integrated with scipy.integrate.quad."""
+    first differences), F by Imhof's (1961) inversion formula integrated with scipy.integrate.quad. With two
+    weights μ₊ > 0 > μ₋, z₁/z₂ is standard Cauchy and F = (2/π)·arctan(√(−μ₋/μ₊)) in closed form; with one,
+    DW is the constant λ₁ whatever the errors, so there is nothing to test (NaN)."""
     Xw = np.asarray(gr.white.model.exog)
     n, k = Xw.shape
     Q = np.linalg.qr(Xw)[0]
     M = np.eye(n) - Q @ Q.T
     D = np.diff(np.eye(n), axis=0)
     mu = np.sort(np.linalg.eigvalsh(M @ D.T @ D @ M))[k:] - d
+    if len(mu) < 2:
+        return np.nan
+    if (mu >= 0).all() or (mu <= 0).all():
+        low = float((mu <= 0).all())
+    elif len(mu) == 2:
+        low = 2 / np.pi * np.arctan(np.sqrt(-mu.min() / mu.max()))
+    else:
+        def integrand(u: float) -> float:
+            return np.sin(0.5 * np.arctan(mu * u).sum()) / (u * np.prod((1 + (mu * u) ** 2) ** 0.25))
 
-    def integrand(u: float) -> float:
-        return np.sin(0.5 * np.arctan(mu * u).sum()) / (u * np.prod((1 + (mu * u) ** 2) ** 0.25))
-
-    value = integrate.quad(integrand, 0, np.inf, limit=2000, epsabs=1e-13, epsrel=1e-12)[0]
-    low = 0.5 - value / np.pi
+        low = 0.5 - integrate.quad(integrand, 0, np.inf, limit=2000, epsabs=1e-13, epsrel=1e-12)[0] / np.pi
     return min(1.0, 2 * min(low, 1 - low))
 
 
@@ -348,6 +445,17 @@ def white(case: Case, gr: GroupReference):
         warnings.simplefilter("ignore", SingularMatrixWarning)
         exog_c = gr.X if case.intercept else sm.add_constant(gr.X, has_constant="add")
         return het_white(np.asarray(gr.white.resid), exog_c)[:2]                # statsmodels
+
+
+def white_rank(case: Case, gr: GroupReference) -> int:
+    """The rank of White's auxiliary design as statsmodels het_white builds it (every product x_i·x_j, i ≤ j,
+    of the design with a constant), by numpy matrix_rank on the non-zero columns scaled to unit length:
+    with n ≤ rank the squared residuals are fitted exactly and White's test has nothing left to test."""
+    exog_c = gr.X if case.intercept else sm.add_constant(gr.X, has_constant="add")
+    i, j = np.triu_indices(exog_c.shape[1])
+    Z = exog_c[:, i] * exog_c[:, j]
+    norms = np.linalg.norm(Z, axis=0)
+    return int(np.linalg.matrix_rank(Z[:, norms > 0] / norms[norms > 0]))
 
 
 def breusch_godfrey(case: Case, gr: GroupReference):
@@ -377,8 +485,7 @@ def lack_of_fit(case: Case, gr: GroupReference) -> tuple[float, float] | str:
     """README: F = (SS_LOF/(m − p))/(SS_PE/(n − m)), m distinct input points, p = k + c; the F-test of the
     fit against the cell-means model (one mean per input point, weighted alike), statsmodels
     compare_f_test (NIST/SEMATECH e-Handbook 4.6.1). Where it cannot run: why (no replicates, m ≤ p)."""
-    sources = list(dict.fromkeys(SOURCE[t] for t in case.terms))
-    point = gr.rows.groupby(sources, sort=False).ngroup().to_numpy()
+    point = gr.rows.groupby(gr.inputs, sort=False).ngroup().to_numpy()
     n, m = len(point), int(point.max()) + 1
     if n - m <= 0:
         return "no repeated input values"

@@ -1,63 +1,69 @@
-"""The combination matrix behind tests/test_combinations.py: its dimensions, a deterministic
-all-pairs covering design over them (impossible pairs left out), seeded data per case and the input
-files in every format. The per-group reference (the oracle) lives in tests/combination_oracle.py.
+"""The combination matrix behind tests/test_combinations.py: its dimensions, a deterministic all-pairs
+covering design over them (impossible pairs left out), what a case is (its settings and options) and the
+README's definitions the oracle builds by hand (term columns, levels, weights). Seeded data, input files
+and the run of a case live in tests/combination_cases.py; the per-group reference (the oracle) in
+tests/combination_oracle.py.
 
-Data are invented (seeded numpy); only the reference values come from statsmodels and scipy.
 `python -m tests.combinations` prints the cases of the design.
 """
 
 from __future__ import annotations
 
-import csv
 import datetime as dt
-import io
 import itertools
-import shutil
-import subprocess
 import zlib
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from tests.corpus import writers
-
 # ---------------------------------------------------------------- the dimensions
 # One entry per dimension; a new level joins the matrix by being added to its list (and, for a new
-# term kind, to TERMS, REFERENCE_COLUMNS and SOURCE below; for a new --weights level, to WEIGHTS). The
-# design below covers every possible pair of levels.
+# term kind, to TERMS, REFERENCE_COLUMNS / CATEGORY_TERMS / SLOPES_BY_LEVEL, SOURCE and its data in
+# combination_cases._second_part; for a new --weights level, to WEIGHTS). The design below covers every
+# possible pair of levels.
 DIMENSIONS: dict[str, list] = {
-    "term": ["plain", "power", "log", "sqrt", "date", "one"],  # kind of the input terms (TERMS)
+    "term": ["plain", "power", "log", "sqrt", "date", "one",       # kind of the input terms (TERMS)
+             "category", "levels", "product", "slope by level"],
     "sizes": ["equal", "unequal", "tiny", "one"],            # group sizes (Case.group_sizes)
     "intercept": [True, False],                              # intercept= / --no-intercept
     "order": [False, True],                                  # order="Seq" / --order Seq, rows shuffled in the file
     "observations": ["all", "flagged", "none"],              # observations= / --observations
     "inference": ["classic", "robust"],                      # inference= / --inference
-    "format": ["xlsx", "csv", "ods", "xls"],                 # input file format (write_input)
+    "format": ["xlsx", "csv", "ods", "xls"],                 # input file format (combination_cases.write_input)
     "route": ["api", "cli"],                                 # fit_workbook + write_results, or the real CLI
     "change_point": ["none", "heating", "two-slopes", "auto", "heating-cooling"],  # change_point= / --change-point
-    "weights": ["none", "1/Pallets^2", "Weight"],            # weights= / --weights (WEIGHTS)
+    "weights": ["none", "1/Pallets^2", "Weight", "1/Gas"],   # weights= / --weights (WEIGHTS)
     "calibration": [False, True],                            # calibration= / --calibration
+    "responses": [1, 2],                                     # y="kWh" or y=["kWh", "Gas"] / --y repeated
+    "files": [1, 2],                                         # one input file, or the table split in two by group
 }
+CATEGORY_KINDS = ("category", "levels", "slope by level")    # term kinds holding a category input
 # Pairs of levels no run can have: neither required of the design nor generated. Each is refused with a
-# JobError (README): --change-point needs the constant and takes no --weights; --calibration needs one
-# plain --x column with the constant and no change point.
+# JobError (README): --change-point needs the constant, takes no --weights and no category input;
+# --calibration needs one plain --x column with the constant and no change point; --weights may not name a
+# response's own column when several responses are fitted.
 IMPOSSIBLE: list[tuple[str, object, str, object]] = [
     *(("intercept", False, "change_point", cp) for cp in DIMENSIONS["change_point"] if cp != "none"),
     *(("weights", w, "change_point", cp) for w in DIMENSIONS["weights"] if w != "none"
       for cp in DIMENSIONS["change_point"] if cp != "none"),
+    *(("change_point", cp, "term", t) for cp in DIMENSIONS["change_point"] if cp != "none" for t in CATEGORY_KINDS),
     ("calibration", True, "intercept", False),
     *(("calibration", True, "term", t) for t in DIMENSIONS["term"] if t != "one"),
     *(("calibration", True, "change_point", cp) for cp in DIMENSIONS["change_point"] if cp != "none"),
+    ("responses", 2, "weights", "1/Gas"),
 ]
-PREFER = {"route": "api"}     # where pairs allow: a CLI case starts a process (about 3 s more per case)
-DESIGN_SEED = 2021            # of the seeds 2000–2059, the design with the fewest CLI cases (6: one per term kind)
+# where pairs allow: a CLI case starts a process (about 3 s more per case); one file and one response are cheaper
+PREFER = {"route": "api", "files": 1, "responses": 1}
+DESIGN_SEED = 2006            # of the seeds 2000–2059, the design with the fewest cases (63), then CLI cases (10)
 
 # Columns of every input file. Site: group key; Seq: the sequence (time order) of the rows; Day: a date;
-# Weight: positive row weights (some zero or negative where the case weights by it: WEIGHT_PROBLEMS).
-GROUP, SEQ, DAY, WEIGHT, Y = "Site", "Seq", "Day", "Weight", "kWh"
-HEADER = [GROUP, SEQ, DAY, "CDD", "Pallets", WEIGHT, Y]
+# Shift: text levels; Crew: whole numbers used as levels; Weight: positive row weights (some zero or negative
+# where the case weights by it: WEIGHT_PROBLEMS); kWh and Gas: the responses (Gas has one blank cell).
+GROUP, SEQ, DAY, SHIFT, CREW, WEIGHT, Y, GAS = "Site", "Seq", "Day", "Shift", "Crew", "Weight", "kWh", "Gas"
+HEADER = [GROUP, SEQ, DAY, "CDD", "Pallets", SHIFT, CREW, WEIGHT, Y, GAS]
+RESPONSE_KEY, FILE_KEY, RESPONSE_VALUE = "response", "file", "response value"   # README: sheetfit's own keys
+FILE_NAMES = {1: ("usage",), 2: ("north", "south")}     # input file stems; with two, group g goes to file g mod 2
 
 TERMS: dict[str, list[str]] = {          # the --x terms of each term kind (two inputs: VIF applies, but to "one")
     "plain": ["CDD", "Pallets"],
@@ -66,18 +72,32 @@ TERMS: dict[str, list[str]] = {          # the --x terms of each term kind (two 
     "sqrt": ["CDD", "sqrt(Pallets)"],
     "date": ["CDD", DAY],
     "one": ["CDD"],                      # a straight line in one input: what --calibration needs
+    "category": ["CDD", SHIFT],          # a text column: a category, reference the first level in sorted order
+    "levels": ["CDD", f"levels({CREW})"],                # numbers as levels, reference chosen (REFERENCE)
+    "product": ["CDD", "Pallets", "CDD by Pallets"],     # the product of two number columns
+    "slope by level": ["CDD", SHIFT, f"CDD by {SHIFT}"],  # CDD's extra slope at each level but the reference
 }
+REFERENCE = {"levels": f"{CREW}=3"}      # reference= / --reference of a term kind (README: COL=LEVEL)
+# the levels of each category column as written, and the reference each one's data are laid out around
+LEVELS = {SHIFT: ("day", "evening", "night"), CREW: (2, 3, 4)}
+DATA_REFERENCE = {SHIFT: "day", CREW: 3}
+# which levels group g's rows show (g beyond: every level): README's cases of a group lacking a level, lacking
+# the reference (measured against its own first level) and holding one level only (no level effects)
+LEVEL_PATTERN = {1: "no other", 2: "no reference", 3: "one level"}
+LEVEL_EFFECT = {SHIFT: {"day": 0.0, "evening": -4.0, "night": 6.0}, CREW: {2: -3.0, 3: 0.0, 4: 4.0}}
+LEVEL_SLOPE = {"day": 0.0, "evening": 0.5, "night": -0.8}      # CDD's extra slope per Shift level
 # the input levels of a one-input line without change points: a calibration run's standards, a blank
 # (0) among them, repeated so that groups of more than 7 rows have replicates (lack of fit runs)
 STANDARDS = np.array([0.0, 1.0, 2.0, 5.0, 10.0, 20.0, 30.0])
 # each --weights level: 1/Pallets^2 a function of an input (of a number column that is no input where the
-# terms leave Pallets out), Weight a plain column
-WEIGHTS = {"1/Pallets^2": ("Pallets", 2), "Weight": (WEIGHT, 0)}     # level → (column, inverse power)
+# terms leave Pallets out), Weight a plain column, 1/Gas a function of the second response's column
+WEIGHTS = {"1/Pallets^2": ("Pallets", 2), "Weight": (WEIGHT, 0), "1/Gas": (GAS, 1)}   # level → (column, inverse power)
 # where the case weights by the Weight column: extra rows in S01 and S02 (group index 0, 1) whose weight is
 # not positive (README: such a row is not used, with a reason); S03's weights are all equal (README: that
 # group gets the ordinary fit)
 WEIGHT_PROBLEMS = {0: [0.0, -1.5], 1: [0.0]}
 EQUAL_WEIGHT_GROUP, EQUAL_WEIGHT = 2, 2.5
+GAS_BLANK_GROUP = 1      # one row of this group has no Gas reading (README: unusable for Gas only)
 
 TEMPERATURE = "CDD"     # the first plain-column --x of every term kind: the change-point input by default (README)
 # the temperature part of y for each shape of the data: README's shapes with change points at 16 (11 and 21)
@@ -100,19 +120,35 @@ def _days_since_earliest(g: pd.DataFrame) -> np.ndarray:
     return days - days.min()
 
 
-# term → its column in the reference design, built by hand from the README's definitions
+def numbers(g: pd.DataFrame, column: str) -> np.ndarray:
+    """A column as float64; NaN where a cell is blank or not a number."""
+    return pd.to_numeric(g[column], errors="coerce").to_numpy(float)
+
+
+# number term → its column in the reference design, built by hand from the README's definitions
 # (never with sheetfit.terms); `g` holds every row of one group as written in the file.
 REFERENCE_COLUMNS = {
-    "CDD": lambda g: g["CDD"].to_numpy(float),
-    "Pallets": lambda g: g["Pallets"].to_numpy(float),
-    "CDD^2": lambda g: g["CDD"].to_numpy(float) ** 2,
-    "log(Pallets)": lambda g: np.log(g["Pallets"].to_numpy(float)),
-    "sqrt(Pallets)": lambda g: np.sqrt(g["Pallets"].to_numpy(float)),
+    "CDD": lambda g: numbers(g, "CDD"),
+    "Pallets": lambda g: numbers(g, "Pallets"),
+    "CDD^2": lambda g: numbers(g, "CDD") ** 2,
+    "log(Pallets)": lambda g: np.log(numbers(g, "Pallets")),
+    "sqrt(Pallets)": lambda g: np.sqrt(numbers(g, "Pallets")),
     DAY: _days_since_earliest,
+    "CDD by Pallets": lambda g: numbers(g, "CDD") * numbers(g, "Pallets"),     # README: the product column A·B
 }
-SOURCE = {"CDD": "CDD", "Pallets": "Pallets", "CDD^2": "CDD", "log(Pallets)": "Pallets",   # term → its input
-          "sqrt(Pallets)": "Pallets", DAY: DAY}
-BAD_VALUE = {"log": 0.0, "sqrt": -3.5}    # one row of the first group the term cannot use (README: left out)
+CATEGORY_TERMS = {SHIFT: SHIFT, f"levels({CREW})": CREW}      # category term → its column
+SLOPES_BY_LEVEL = {f"CDD by {SHIFT}": ("CDD", SHIFT)}         # `A by CAT` → (A, CAT): A·(CAT = L) per level L
+# term → the input whose family it joins for the GVIF (sheetfit/checks/collinearity.py: a term's first column)
+SOURCE = {"CDD": "CDD", "Pallets": "Pallets", "CDD^2": "CDD", "log(Pallets)": "Pallets", "sqrt(Pallets)": "Pallets",
+          DAY: DAY, "CDD by Pallets": "CDD", SHIFT: SHIFT, f"levels({CREW})": CREW, f"CDD by {SHIFT}": "CDD"}
+# term → the columns it reads (an input point for lack of fit is a row's values in all of them)
+INPUTS = {t: (s,) for t, s in SOURCE.items()} | {"CDD by Pallets": ("CDD", "Pallets"),
+                                                 f"CDD by {SHIFT}": ("CDD", SHIFT)}
+COLUMNS_OF_TERM = {SHIFT: 2, f"levels({CREW})": 2, f"CDD by {SHIFT}": 2}   # design columns of a term at most (else 1)
+# one row of the first group the term kind cannot use (README: left out with a reason): a value outside the
+# term's domain, or a blank category cell
+BAD_CELL = {"log": ("Pallets", 0.0), "sqrt": ("Pallets", -3.5), "category": (SHIFT, None), "levels": (CREW, None),
+            "slope by level": (SHIFT, None)}
 
 
 # ---------------------------------------------------------------- the covering design
@@ -208,14 +244,16 @@ class Case:
     change_point: str = "none"
     weights: str = "none"
     calibration: bool = False
+    responses: int = 1
+    files: int = 1
 
     @property
     def id(self) -> str:
         weights = "unweighted" if self.weights == "none" else "w_" + self.weights.replace("1/", "inv_").replace("^", "")
-        return "-".join([self.term, self.sizes, "icpt" if self.intercept else "noicpt",
+        return "-".join([self.term.replace(" ", "_"), self.sizes, "icpt" if self.intercept else "noicpt",
                          "order" if self.order else "roworder", f"obs_{self.observations}", self.inference,
                          self.format, self.route, f"cp_{self.change_point}", weights,
-                         "calib" if self.calibration else "nocalib"])
+                         "calib" if self.calibration else "nocalib", f"{self.responses}y", f"{self.files}files"])
 
     @property
     def seed(self) -> int:
@@ -226,15 +264,36 @@ class Case:
         return TERMS[self.term]
 
     @property
+    def ys(self) -> list[str]:
+        """The response columns, in the order given."""
+        return [Y, GAS][: self.responses]
+
+    @property
+    def categories(self) -> dict[str, str]:
+        """Category column → its reference level as text (README: the first in sorted order unless chosen)."""
+        chosen = dict([REFERENCE[self.term].split("=", 1)]) if self.term in REFERENCE else {}
+        cols = [CATEGORY_TERMS[t] for t in self.terms if t in CATEGORY_TERMS]
+        return {c: chosen.get(c, sorted(str(v) for v in LEVELS[c])[0]) for c in cols}
+
+    @property
     def p(self) -> int:
         """Parameters of the largest model the case can fit: its coefficients (one more where two hinge
-        columns take the temperature's place) and change points (README)."""
+        columns take the temperature's place; a category's indicators) and change points (README)."""
         two = self.change_point in ("two-slopes", "heating-cooling", "auto")
-        return len(self.terms) + self.intercept + two + CHANGE_POINTS[self.change_point]
+        columns = sum(COLUMNS_OF_TERM.get(t, 1) for t in self.terms)
+        return columns + self.intercept + two + CHANGE_POINTS[self.change_point]
 
     @property
     def group(self) -> list[str]:
         return [] if self.sizes == "one" else [GROUP]
+
+    @property
+    def keys(self) -> list[str]:
+        """The group columns of every results table, in order (README: response, then file, then --group)."""
+        return [RESPONSE_KEY] * (self.responses > 1) + [FILE_KEY] * (self.files > 1) + self.group
+
+    def file_names(self) -> list[str]:
+        return [f"{stem}.{self.format}" for stem in FILE_NAMES[self.files]]
 
     def group_sizes(self) -> list[int]:
         """Rows per group; tiny: 2 residual df in the largest model, and with a change point one group
@@ -244,14 +303,15 @@ class Case:
 
     def settings(self) -> dict:
         """Keyword settings of fit_workbook."""
-        return {"y": Y, "x": self.terms, "group": self.group, "intercept": self.intercept,
-                "order": SEQ if self.order else None, "observations": self.observations,
-                "inference": self.inference, "change_point": self.change_point,
-                "weights": None if self.weights == "none" else self.weights, "calibration": self.calibration}
+        out = {"y": self.ys[0] if self.responses == 1 else self.ys, "x": self.terms, "group": self.group,
+               "intercept": self.intercept, "order": SEQ if self.order else None, "observations": self.observations,
+               "inference": self.inference, "change_point": self.change_point,
+               "weights": None if self.weights == "none" else self.weights, "calibration": self.calibration}
+        return out | ({"reference": [REFERENCE[self.term]]} if self.term in REFERENCE else {})
 
     def cli_args(self) -> list[str]:
         """The same settings as `sheetfit fit` options."""
-        args = ["--y", Y]
+        args = [a for y in self.ys for a in ("--y", y)]
         for t in self.terms:
             args += ["--x", t]
         for g in self.group:
@@ -266,6 +326,8 @@ class Case:
             args += ["--weights", self.weights]
         if self.calibration:
             args.append("--calibration")
+        if self.term in REFERENCE:
+            args += ["--reference", REFERENCE[self.term]]
         return args + ["--observations", self.observations, "--inference", self.inference]
 
     def data_shape(self, g: int) -> str:
@@ -282,123 +344,33 @@ class Case:
         return WEIGHT_PROBLEMS.get(g, []) if self.weights == WEIGHT else []
 
 
-def cases() -> list[Case]:
-    return [Case(**c) for c in all_pairs(DIMENSIONS, seed=DESIGN_SEED, impossible=IMPOSSIBLE, prefer=PREFER)]
+# ---------------------------------------------------------------- the README's definitions, by hand
+
+def level_label(value) -> str:
+    """A category cell as its level's text (README: 2, 2.0 and "2" are one level); '' for a blank cell."""
+    if value is None or (isinstance(value, float) and np.isnan(value)) or value == "":
+        return ""
+    return str(int(value)) if isinstance(value, (int, float, np.integer)) and float(value).is_integer() else str(value)
 
 
-# ---------------------------------------------------------------- seeded data
-
-def make_table(case: Case) -> pd.DataFrame:
-    """The rows of the input file, in file order (seeded by the case id).
-
-    Per group: inputs on different scales, a temperature part of the case's shape (a clear bend in
-    CDD for change-point cases; the STANDARDS' levels for a one-input line), errors that are
-    heteroscedastic (group 1), AR(1) along the sequence (group 2) or plain (group 3), so robust std
-    errors come into play where groups are big enough, and positive weights (all equal in group 3, a
-    few extra rows with weights that are not positive where the case weights by them). Groups
-    interleave in the file; with an order column the rows are shuffled and Seq gives the sequence,
-    without one the file order is the sequence.
-    """
-    rng = np.random.default_rng(case.seed)
-    parts = []
-    for g, n in enumerate(case.group_sizes()):
-        extra = 1 if (g == 0 and case.term in BAD_VALUE) else 0
-        bad_weights = case.weight_problems(g)
-        m = n + extra + len(bad_weights)
-        cdd = rng.uniform(1.0, 30.0, m)
-        if case.standards:
-            cdd = rng.permutation(np.resize(STANDARDS, m))
-        pallets = rng.uniform(5.0, 200.0, m)
-        offsets = np.sort(rng.choice(4 * m, size=m, replace=False)) + 11 * g
-        days = [FIRST_DAY + dt.timedelta(days=int(o)) for o in offsets]
-        second = {"plain": pallets, "power": cdd**2, "log": np.log(pallets), "sqrt": np.sqrt(pallets),
-                  "date": (offsets - offsets.min()).astype(float), "one": np.zeros(m)}[case.term]
-        slope2 = {"plain": 0.4, "power": -0.08, "log": 12.0, "sqrt": 2.5, "date": 0.3, "one": 0.0}[case.term]
-        y = 40.0 * case.intercept + TEMPERATURE_PART[case.data_shape(g)](cdd) + slope2 * second + _errors(rng, g, cdd)
-        weight = np.full(m, EQUAL_WEIGHT) if g == EQUAL_WEIGHT_GROUP else rng.uniform(0.5, 4.0, m)
-        weight[m - len(bad_weights):] = bad_weights           # extra rows at the end of the group's sequence
-        frame = pd.DataFrame({GROUP: f"S{g + 1:02d}", DAY: days, "CDD": cdd, "Pallets": pallets, WEIGHT: weight, Y: y})
-        if extra:
-            frame.loc[m // 2, "Pallets"] = BAD_VALUE[case.term]
-        frame["_time"] = np.cumsum(rng.exponential(size=m))
-        parts.append(frame)
-    table = pd.concat(parts, ignore_index=True).sort_values("_time", kind="stable")
-    table[SEQ] = np.arange(1, len(table) + 1)
-    if case.order:
-        table = table.iloc[rng.permutation(len(table))]
-    return table[HEADER].reset_index(drop=True)
+def run_levels(case: Case, table: pd.DataFrame) -> dict[str, tuple[tuple[str, ...], str]]:
+    """Each category column's levels over every row read, sorted as text, and the run's reference (README)."""
+    return {col: (tuple(sorted({level_label(v) for v in table[col]} - {""})), ref)
+            for col, ref in case.categories.items()}
 
 
-def _errors(rng: np.random.Generator, g: int, cdd: np.ndarray) -> np.ndarray:
-    """Group g's errors: spread growing with CDD (g mod 3 = 0), AR(1) along the sequence (1) or plain (2)."""
-    m = len(cdd)
-    kind = g % 3
-    if kind == 0:
-        return rng.normal(size=m) * 0.004 * cdd**2.5
-    if kind == 1:
-        e = rng.normal(scale=2.0, size=m)
-        err = np.empty(m)
-        err[0] = e[0]
-        for i in range(1, m):
-            err[i] = 0.9 * err[i - 1] + e[i]
-        return err
-    return rng.normal(scale=2.0, size=m)
+def reference_weights(case: Case, frame: pd.DataFrame) -> np.ndarray:
+    """Each row's weight by hand (README: the column W, 1/COL or 1/COL^2; inf where COL is 0); ones unweighted."""
+    if case.weights == "none":
+        return np.ones(len(frame))
+    column, power = WEIGHTS[case.weights]
+    values = numbers(frame, column)
+    with np.errstate(divide="ignore"):
+        return values if power == 0 else 1.0 / values**power
 
 
-# ---------------------------------------------------------------- input files
-
-def _rows(table: pd.DataFrame) -> list[list]:
-    return [[r[GROUP], int(r[SEQ]), r[DAY], float(r["CDD"]), float(r["Pallets"]), float(r[WEIGHT]), float(r[Y])]
-            for r in table.to_dict("records")]
-
-
-def _csv(table: pd.DataFrame, path: Path) -> None:
-    out = io.StringIO()
-    w = csv.writer(out, lineterminator="\n")
-    w.writerow(HEADER)
-    for row in _rows(table):
-        w.writerow([row[0], row[1], row[2].isoformat(), *map(repr, row[3:])])
-    path.write_text(out.getvalue(), encoding="utf-8")
-
-
-def _ods_cell(v) -> str:
-    if isinstance(v, dt.date):
-        return (f'<table:table-cell office:value-type="date" office:date-value="{v.isoformat()}">'
-                f'<text:p>{v.isoformat()}</text:p></table:table-cell>')
-    if isinstance(v, (int, float)):
-        return (f'<table:table-cell office:value-type="float" office:value="{v!r}"><text:p>{v!r}</text:p>'
-                f'</table:table-cell>')
-    return f'<table:table-cell office:value-type="string"><text:p>{v}</text:p></table:table-cell>'
-
-
-def _ods(table: pd.DataFrame, path: Path) -> None:
-    xml = "".join("<table:table-row>" + "".join(_ods_cell(v) for v in row) + "</table:table-row>"
-                  for row in [HEADER, *_rows(table)])
-    writers.ods(xml)(path)
-
-
-def write_input(case: Case, table: pd.DataFrame, path: Path) -> None:
-    """The table as an input file of the case's format (.xls: see convert_to_xls)."""
-    if case.format == "csv":
-        _csv(table, path)
-    elif case.format == "ods":
-        _ods(table, path)
-    elif case.format in ("xlsx", "xls"):     # .xls: this .xlsx, converted by LibreOffice in one batch
-        writers.xlsx([HEADER, *_rows(table)], title="Data")(path)
-    else:
-        raise ValueError(case.format)
-
-
-def soffice() -> str | None:
-    return shutil.which("soffice") or shutil.which("libreoffice")
-
-
-def convert_to_xls(sources: list[Path], outdir: Path) -> None:
-    """Convert .xlsx files to legacy .xls with LibreOffice, all in one call (its start-up is slow)."""
-    outdir.mkdir(parents=True, exist_ok=True)
-    subprocess.run([soffice(), "--headless", f"-env:UserInstallation=file://{outdir}/profile", "--convert-to",
-                    "xls", "--outdir", str(outdir), *map(str, sources)], check=True, capture_output=True,
-                   timeout=300)
+def cases(seed: int = DESIGN_SEED) -> list[Case]:
+    return [Case(**c) for c in all_pairs(DIMENSIONS, seed=seed, impossible=IMPOSSIBLE, prefer=PREFER)]
 
 
 if __name__ == "__main__":
@@ -406,4 +378,5 @@ if __name__ == "__main__":
     for c in design:
         print(c.id)
     missing = pairs_missing([vars(c) for c in design], DIMENSIONS, IMPOSSIBLE)
-    print(f"{len(design)} cases; possible pairs left uncovered: {len(missing)}")
+    print(f"{len(design)} cases ({sum(c.route == 'cli' for c in design)} by the CLI); possible pairs left "
+          f"uncovered: {len(missing)}")

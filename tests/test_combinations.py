@@ -1,16 +1,20 @@
 """The combination matrix: options and inputs in combination, every group against statsmodels.
 
 Oracle (tests/combination_oracle.py): statsmodels OLS fitted group by group, or WLS with the case's
-weights divided by their group's mean (the design built by hand from the README's term definitions,
-hinge columns at sheetfit's change points included), statsmodels OLSInfluence of the whitened model
-√w·y on √w·X, statsmodels diagnostics of the residuals √w·e (Jarque–Bera, Breusch–Pagan in Koenker's
-form, White, Durbin–Watson statistic, Breusch–Godfrey, RESET F form, VIF, robust HC3 / Newey–West
-covariances and their Wald F, the lack-of-fit F against the cell-means model), scipy (Shapiro–Wilk, t,
-F and chi² laws; the exact Durbin–Watson p-value by Imhof's formula with scipy.integrate.quad over numpy
-eigenvalues), statsmodels `multipletests` (Benjamini–Hochberg), a brute-force numpy search for the
-change points, and the ICH Q2 formulas for calibration limits and back-calculated standards. Rules of
-thumb for the softer row flags and the standards' deviation limits are common practice (README). Data
-are invented and seeded.
+weights divided by their group's mean (the design built by hand from the README's term definitions:
+indicator and product columns of the levels each group shows, hinge columns at sheetfit's change points),
+statsmodels OLSInfluence of the whitened model √w·y on √w·X, statsmodels diagnostics of the residuals √w·e
+(Jarque–Bera, Breusch–Pagan in Koenker's form, White, Durbin–Watson statistic, Breusch–Godfrey, RESET F
+form, VIF, robust HC3 / Newey–West covariances and their Wald F, the lack-of-fit F against the cell-means
+model, `f_test` of a category's indicators), scipy (Shapiro–Wilk, t, F and chi² laws; the exact
+Durbin–Watson p-value by Imhof's formula with scipy.integrate.quad over numpy eigenvalues), statsmodels
+`multipletests` (Benjamini–Hochberg), a brute-force numpy search for the change points, and the ICH Q2
+formulas for calibration limits and back-calculated standards. Rules of thumb for the softer row flags and
+the standards' deviation limits are common practice (README). Data are invented and seeded.
+
+A group is a (response, file, --group value) (README: with --y repeated every row appears once per
+response, `response` the first group column; with several files the file name is the next one), fitted
+on the rows where its response is a number; adjusted p-values are taken across all of them.
 
 Change points count as parameters (README: residual df n − k − c, k coefficients, c change points).
 The reference fit carries that df (statsmodels uses it for scale, std errors, t, p, intervals, F,
@@ -20,26 +24,33 @@ is named.
 
 Each value is compared at 1e-9 relative with an absolute floor of 1e-9 · the value's scale (the
 coefficient's std error, max |y|, 1 for p-values and statistics of order one). Checks that cannot
-run are n/a with a note (allowed only for White, Breusch–Godfrey and RESET in the tiny groups, for
-the VIF check when all terms come from one input, and for lack of fit without replicates).
+run are n/a with a note (allowed only for White where the rows are no more than the rank of its
+products, for Breusch–Godfrey and RESET in the tiny groups, for the VIF check when all terms come from
+one input, and for lack of fit without replicates). A row of leverage 1 has no studentized residual
+or Cook's distance, and with one residual degree of freedom the Durbin–Watson statistic is a constant
+with no p-value (its null law is a point mass).
 
 Cases come from a deterministic all-pairs covering design over the dimensions below (every possible
 pair of levels of any two dimensions occurs in some case; tests.combinations.IMPOSSIBLE lists the
 pairs no run can have); `python -m tests.combinations` lists them.
 How a new option joins the matrix — add a level to its list in `tests/combinations.DIMENSIONS`:
-  term          "plain" | "power" | "log" | "sqrt" | "date" | "one"  (+ its --x terms in TERMS, its column in
-                                                             REFERENCE_COLUMNS, its input in SOURCE)
+  term          "plain" | "power" | "log" | "sqrt" | "date" | "one" | "category" | "levels" | "product" |
+                "slope by level"                             (+ its --x terms in TERMS, its columns in
+                                                             REFERENCE_COLUMNS or CATEGORY_TERMS / SLOPES_BY_LEVEL,
+                                                             its input in SOURCE, its data in combination_cases)
   sizes         "equal" | "unequal" | "tiny" | "one"         (+ its sizes in Case.group_sizes)
   intercept     True | False
   order         False | True                                 (order column "Seq"; rows shuffled in the file)
   observations  "all" | "flagged" | "none"                   (only the written observations sheet changes)
   inference     "classic" | "robust"
-  format        "xlsx" | "csv" | "ods" | "xls"               (+ its writer in write_input)
+  format        "xlsx" | "csv" | "ods" | "xls"               (+ its writer in combination_cases.write_input)
   route         "api" | "cli"                                (fit_workbook + write_results, or `python -m sheetfit fit`)
   change_point  "none" | "heating" | "two-slopes" | "auto" | "heating-cooling"   (+ its data in TEMPERATURE_PART;
                                                              a new shape also in temperature_columns and CHANGE_POINTS)
-  weights       "none" | "1/Pallets^2" | "Weight"            (+ its column and inverse power in WEIGHTS)
+  weights       "none" | "1/Pallets^2" | "Weight" | "1/Gas"  (+ its column and inverse power in WEIGHTS)
   calibration   False | True                                 (needs term "one": a line in one input)
+  responses     1 | 2                                        (y = kWh, or kWh and Gas: Case.ys)
+  files         1 | 2                                        (the table in one file, or split by group: FILE_NAMES)
 A new dimension: a new key with its levels, a field of `Case`, and its effect in Case.settings/cli_args;
 pairs of levels that cannot go together go into IMPOSSIBLE (the design neither needs nor makes them, and
 test_the_impossible_pairs_are_refused expects a JobError for each).
@@ -71,7 +82,28 @@ from sheetfit.results.calibration import (
     LIMIT_OF_QUANTIFICATION,
     STANDARD_OFF,
 )
+from sheetfit.results.categories import LEVELS_NOTE, levels_f_header, levels_p_header
 from sheetfit.results.headers import WEIGHT_USED
+from tests.combination_cases import (
+    CALIBRATION_ROWS,
+    PART,
+    SOURCE_FILE,
+    RowId,
+    convert_to_xls,
+    every_row,
+    file_tables,
+    key_of,
+    make_table,
+    num,
+    of_group,
+    read_sheet,
+    row_ids,
+    run_case,
+    soffice,
+    text,
+    with_file_rows,
+    write_input,
+)
 from tests.combination_oracle import (
     BASELINE,
     GroupReference,
@@ -86,35 +118,34 @@ from tests.combination_oracle import (
     expected_row_flags,
     grid_search,
     lack_of_fit,
+    levels_differ,
     nmbe,
     reference_fits,
-    reference_weights,
     reset,
     robust_fits,
     row_measures,
     white,
+    white_rank,
 )
 from tests.combinations import (
+    CATEGORY_KINDS,
     DIMENSIONS,
-    GROUP,
+    FILE_KEY,
     IMPOSSIBLE,
+    LEVEL_PATTERN,
+    RESPONSE_KEY,
+    RESPONSE_VALUE,
     TEMPERATURE,
     Case,
     cases,
-    convert_to_xls,
-    make_table,
     pairs_impossible,
     pairs_missing,
-    soffice,
-    write_input,
+    reference_weights,
 )
 
 RTOL = 1e-9
-SHEETS = ("groups", "coefficients", "checks", "observations")
-OBS_VALUES = ("fitted value", "residual", "leverage", "Cook's distance", "studentized residual")
 TWO_HINGES = ("two-slopes", "heating-cooling")
 HINGE_SHAPES = ("heating", "cooling", *TWO_HINGES)
-CALIBRATION_ROWS = (BACK_CALCULATED, DEVIATION, STANDARD_OFF)
 LACK_OF_FIT = "lack of fit (replicates)"
 
 
@@ -125,7 +156,8 @@ class KnownFault(AssertionError):
 # Sheetfit faults the matrix finds: (the comparisons it breaks, which cases, what fails). Each listed
 # case is a strict xfail that must fail with KnownFault: its comparisons of that kind run last, and
 # fail as listed, while everything else matches. A fix shows up as XPASS(strict): the entry must go.
-KNOWN_FAULTS: list[tuple[str, Callable[[Case], bool], str]] = []
+KNOWN_FAULTS: list[tuple[str, Callable[[Case], bool], str]] = [
+]
 
 CASES = cases()
 
@@ -173,43 +205,24 @@ def close(actual, expected, what: str, scale=0.0) -> None:
                              f"{bad.size} values off)")
 
 
-def num(values) -> np.ndarray:
-    """A column as float64, empty workbook cells (None) as NaN."""
-    return pd.to_numeric(pd.Series(list(values), dtype=object), errors="coerce").to_numpy(dtype=float)
+def reference_ids(gr: GroupReference) -> list[RowId]:
+    """The group's used rows as (response, file name, row in that file)."""
+    return list(zip([gr.response] * len(gr.rows), gr.rows["_file"], gr.rows["_file_row"].astype(int)))
 
 
-def text(value) -> str:
-    """A text cell as str, an empty workbook cell (None) or a missing value (NaN) as ''."""
-    return "" if value is None or (isinstance(value, float) and np.isnan(value)) else str(value)
-
-
-def of_group(frame: pd.DataFrame, key) -> pd.DataFrame:
-    return frame if key is None else frame[frame[GROUP].astype(str) == key]
-
-
-def coefficient_labels(gr: GroupReference, case: Case) -> list[str]:
-    """README: `constant`, then the terms; under a change-point shape T's slots are named `T below change
-    point` and `T above change point`."""
-    temp = {"heating": ["below"], "cooling": ["above"]}.get(gr.shape.name, ["below", "above"])
-    out = ["constant"] if case.intercept else []
-    for t in case.terms:
-        out += [f"{t} {w} change point" for w in temp] if t == TEMPERATURE and gr.shape.name in HINGE_SHAPES else [t]
-    return out
-
-
-def compare_shape_name(case: Case, gr: GroupReference, row: pd.Series, label: str) -> None:
+def compare_shape_name(case: Case, gr: GroupReference, row: pd.Series) -> None:
     """README: the shape asked for, or under auto any shape; a group fitted as a straight line says why."""
     name = gr.shape.name
     assert name in ("line", case.change_point) or (case.change_point == "auto" and name in HINGE_SHAPES), \
-        f"{label}: shape {name!r}"
-    assert name != "line" or text(row["why this shape"]).strip(), f"{label}: a straight line without a reason"
+        f"{gr.label}: shape {name!r}"
+    assert name != "line" or text(row["why this shape"]).strip(), f"{gr.label}: a straight line without a reason"
 
 
-def compare_shape(case: Case, gr: GroupReference, label: str) -> None:
+def compare_shape(case: Case, gr: GroupReference) -> None:
     """README: τ is the exact least-squares optimum among change points with at least 3 rows on each
     side; an optimum at the end of that range means a straight line. Oracle: the brute-force search of
-    tests.combinations.grid_search (numpy SVD at every observed CDD and a fine grid between)."""
-    name = gr.shape.name
+    tests.combination_oracle.grid_search (numpy SVD at every observed CDD and a fine grid between)."""
+    name, label = gr.shape.name, gr.label
     if name not in HINGE_SHAPES:
         if case.change_point == "auto" or len(gr.rows) < 6:       # auto: chosen by BIC; < 6 rows: not searched
             return
@@ -225,11 +238,10 @@ def compare_shape(case: Case, gr: GroupReference, label: str) -> None:
         f"{label}: RSS {gr.fit.ssr!r} at τ = {taus} above the brute-force minimum {rss.min()!r}"
 
 
-def compare_groups_row(case: Case, gr: GroupReference, t: dict, rm: dict, flags: list[str],
-                       label: str) -> pd.Series:
+def compare_groups_row(case: Case, gr: GroupReference, t: dict, flags: list[str]) -> pd.Series:
     """The group's row on `groups` (returned). Weighted: statsmodels WLS's R², F, AIC/BIC (README: ½Σ ln w in
     the log-likelihood) and RSS = Σw·e²; CV(RMSE) over the plain mean of y."""
-    ref, y, n = gr.fit, gr.y, len(gr.rows)
+    ref, y, n, label = gr.fit, gr.y, len(gr.rows), gr.label
     row = of_group(t["groups"], gr.key)
     assert len(row) == 1, f"{label}: {len(row)} rows on groups"
     row = row.iloc[0]
@@ -243,6 +255,9 @@ def compare_groups_row(case: Case, gr: GroupReference, t: dict, rm: dict, flags:
             ("condition number", condition_number(gr), 1)]                                      # numpy
     if case.change_point != "none":
         want.append(("NMBE %", *nmbe(gr)))
+    for column in case.categories:              # README: per category, the joint F of its indicators
+        F, p = levels_differ(gr, column)
+        want += [(levels_f_header(column), F, 1), (levels_p_header(column), p, 1)]
     for col, value, scale in want:
         close(num([row[col]]), value, f"{label} groups {col}", scale)
     for col, word in [("high-leverage rows", "high leverage"), ("outlying rows", "outlying"),
@@ -250,13 +265,31 @@ def compare_groups_row(case: Case, gr: GroupReference, t: dict, rm: dict, flags:
         assert int(row[col]) == sum(word in f.split("; ") for f in flags), f"{label} groups {col}"
     for col in (LIMIT_OF_DETECTION, LIMIT_OF_QUANTIFICATION):     # README: on groups with --calibration only
         assert (col in t["groups"].columns) == case.calibration, f"{label}: groups column {col!r}"
+    assert (LEVELS_NOTE in t["groups"].columns) == bool(case.categories), f"{label}: groups column {LEVELS_NOTE!r}"
+    if case.categories:
+        compare_levels_note(gr, text(row[LEVELS_NOTE]))
     return row
 
 
-def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict, label: str) -> tuple[dict, list]:
+def compare_levels_note(gr: GroupReference, note: str) -> None:
+    """README: the `categories note` says what a group's rows leave out: empty where they show every level;
+    else it names the category and each level the group lacks (the reference included), or the only level
+    a group of one level shows."""
+    for column, (all_levels, _ref) in gr.levels.items():
+        seen = gr.seen[column]
+        lacking = [v for v in all_levels if v not in seen]
+        if not lacking:
+            assert f"{column}:" not in note, f"{gr.label}: {LEVELS_NOTE} {note!r} with every level of {column}"
+            continue
+        named = seen if len(seen) == 1 else lacking
+        assert f"{column}:" in note and all(v in note for v in named), \
+            f"{gr.label}: {LEVELS_NOTE} {note!r} for rows showing {seen} of {list(all_levels)}"
+
+
+def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict) -> tuple[dict, list]:
     """Every check of the group on `checks`; returns whether robust std errors apply and the comparisons
     a known fault breaks (run last)."""
-    checks = of_group(t["checks"], gr.key)
+    checks, label = of_group(t["checks"], gr.key), gr.label
 
     def value(check, column):
         hit = checks[checks["check"] == check]
@@ -280,25 +313,23 @@ def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict, label: str
     if case.change_point == "none":
         assert not checks["check"].isin(BASELINE).any(), f"{label}: baseline checks without --change-point"
 
-    # White, Breusch–Godfrey and RESET are n/a (with a note) when the rows are too few for their
-    # auxiliary regressions (README); elsewhere they match statsmodels
-    def optional(check, compute):
+    # White, Breusch–Godfrey and RESET are n/a (with a note) when the rows are too few for their auxiliary
+    # regressions (README): for White, when they are no more than the rank of its products (statsmodels would
+    # fit the squared residuals exactly), for the others in the tiny groups; elsewhere they match statsmodels
+    def optional(check, compute, too_few: bool):
         if np.isnan(value(check, "statistic")):
             assert not_applicable(check), f"{label}: {check} blank without n/a and a note"
-            assert case.sizes == "tiny", f"{label}: {check} n/a with {len(gr.rows)} rows"
+            assert too_few, f"{label}: {check} n/a with {len(gr.rows)} rows"
         else:
             want[check] = compute(case, gr)
 
-    def white_last():                    # KNOWN_FAULTS "white": White in two-hinge groups
-        optional("constant variance (White)", white)
+    def white_last():                    # KNOWN_FAULTS "white"
+        optional("constant variance (White)", white, len(gr.rows) <= white_rank(case, gr))
         compare_values({k: v for k, v in want.items() if k == "constant variance (White)"}, value, label)
 
-    later = [("white", white_last)] if gr.shape.name in TWO_HINGES else []
-    for check, compute in [("constant variance (White)", white),
-                           ("independent residuals (Breusch–Godfrey)", breusch_godfrey),
-                           ("linear form (RESET)", reset)]:
-        if not (later and compute is white):
-            optional(check, compute)
+    later = [("white", white_last)]
+    optional("independent residuals (Breusch–Godfrey)", breusch_godfrey, case.sizes == "tiny")
+    optional("linear form (RESET)", reset, case.sizes == "tiny")
     if np.isnan(want["collinearity (condition number)"][0]):
         assert not_applicable("collinearity (condition number)"), f"{label}: condition number of one column"
     # The VIF check judges inputs (source columns): n/a for one input (CDD with CDD^2, or CDD's hinges with CDD^2)
@@ -324,12 +355,13 @@ def compare_values(want: dict, value, label: str) -> None:
             close(value(check, "p-value"), np.squeeze(pval), f"{label} {check} p-value", 1)
 
 
-def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict, label: str) -> None:
-    """The group's rows on `coefficients`, in sheetfit's order: constant, then the terms with T's slots."""
-    ref, p = gr.fit, gr.k
+def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict) -> None:
+    """The group's rows on `coefficients`, in sheetfit's order: constant, then the terms as given with T's
+    slots and each category's levels (README: no row for a level the group does not estimate)."""
+    ref, p, label = gr.fit, gr.k, gr.label
     coef = of_group(t["coefficients"], gr.key)
     assert len(coef) == p, f"{label}: {len(coef)} coefficient rows for {p} coefficients"
-    assert list(coef["input"]) == coefficient_labels(gr, case), f"{label}: inputs {list(coef['input'])}"
+    assert list(coef["input"]) == gr.labels, f"{label}: inputs {list(coef['input'])}, expected {gr.labels}"
     se, chosen, hc, hac, het, dep = ref.bse, inf["chosen"], inf["hc"], inf["hac"], inf["het"], inf["dep"]
     close(num(coef["coefficient"]), ref.params, f"{label} estimate", se)
     close(num(coef["std error"]), se, f"{label} std error")
@@ -352,21 +384,30 @@ def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict, lab
         assert list(coef["std error used"]) == [used] * p, f"{label}: std error used {list(coef['std error used'])}"
 
 
-def compare_observations(case: Case, gr: GroupReference, t: dict, rm: dict, flags: list[str], label: str) -> None:
-    """The group's used rows on `observations` (those it holds): fitted values and residuals in the
-    response's units (README: y − ŷ also when weighted), the row measures of the whitened model, and the
-    weights as fitted where the case is weighted."""
+def _used_rows(case: Case, gr: GroupReference, t: dict) -> tuple[pd.DataFrame, np.ndarray, np.ndarray]:
+    """The group's used rows on `observations` that the table holds (all of them unless only some were
+    written), in the fit's order; which of the group's rows they are; the group's source rows."""
     obs = of_group(t["observations"], gr.key)
     obs = obs.set_index(num(obs["source row"]).astype(int))
     rows = gr.rows["_file_row"].to_numpy()
     present = np.isin(rows, obs.index)
     if case.observations == "all" or t.get("_in_memory"):
-        assert present.all(), f"{label}: used rows missing from observations"
-    at = obs.loc[rows[present]]
+        assert present.all(), f"{gr.label}: used rows missing from observations"
+    return obs.loc[rows[present]], present, rows
+
+
+def compare_observations(case: Case, gr: GroupReference, t: dict, rm: dict, flags: list[str]) -> None:
+    """The group's used rows on `observations` (those it holds): the response's values (README: in `response
+    value` when several are fitted), fitted values and residuals in the response's units (README: y − ŷ also
+    when weighted), the row measures of the whitened model, and the weights as fitted where the case is
+    weighted."""
+    at, present, _ = _used_rows(case, gr, t)
+    label = gr.label
     assert (at["used in fit"] == "yes").all(), f"{label}: used rows marked unused"
     yscale = np.abs(gr.y).max()
-    want = [("fitted value", gr.fit.fittedvalues, yscale), ("residual", gr.fit.resid, yscale),
-            ("leverage", rm["leverage"], 1), ("Cook's distance", rm["cooks"], rm["cooks"].max()),
+    want = [(RESPONSE_VALUE if case.responses > 1 else gr.response, gr.y, 0),
+            ("fitted value", gr.fit.fittedvalues, yscale), ("residual", gr.fit.resid, yscale),
+            ("leverage", rm["leverage"], 1), ("Cook's distance", rm["cooks"], np.nanmax(rm["cooks"])),
             ("studentized residual", rm["studentized"], 1)]
     assert (WEIGHT_USED in t["observations"].columns) == (case.weights != "none"), f"{label}: {WEIGHT_USED!r} column"
     if case.weights != "none":
@@ -375,59 +416,58 @@ def compare_observations(case: Case, gr: GroupReference, t: dict, rm: dict, flag
         close(num(at[col]), np.asarray(want_v)[present], f"{label} observations {col}", scale)
     got_flags = [text(v) for v in at["row flags"]]
     assert got_flags == list(np.asarray(flags, dtype=object)[present]), f"{label}: row flags"
+    if case.files > 1:                              # README: `source file` on observations
+        assert (at[SOURCE_FILE].astype(str) == gr.rows["_file"].to_numpy()[present]).all(), f"{label}: {SOURCE_FILE}"
 
 
-def compare_calibration(case: Case, gr: GroupReference, t: dict, row: pd.Series, chosen, label: str) -> np.ndarray:
+def compare_calibration(case: Case, gr: GroupReference, t: dict, row: pd.Series, chosen) -> np.ndarray:
     """--calibration: limits on `groups` and each standard read back on `observations` (oracle: ICH Q2 and
-    README, tests.combination_oracle); the slope's p-value is the one `coefficients` shows. Returns the
-    group's file rows whose `standard off` says something (written under observations = flagged)."""
+    README, tests.combination_oracle); the slope's p-value is the one `coefficients` shows. Returns which of
+    the group's used rows `standard off` says something of (written under observations = flagged)."""
+    label = gr.label
     assert all((c in t["observations"].columns) == case.calibration for c in CALIBRATION_ROWS), \
         f"{label}: calibration columns on observations"
     if not case.calibration:
-        return np.zeros(0, dtype=int)
+        return np.zeros(len(gr.rows), dtype=bool)
     slope_p = np.asarray(chosen.pvalues)[1]
     close(num([row[LIMIT_OF_DETECTION], row[LIMIT_OF_QUANTIFICATION]]), calibration_limits(gr, slope_p),
           f"{label} calibration limits", 0)
     want = back_calculation(gr, slope_p)
-    obs = of_group(t["observations"], gr.key)
-    obs = obs.set_index(num(obs["source row"]).astype(int))
-    rows = gr.rows["_file_row"].to_numpy()
-    present = np.isin(rows, obs.index)
-    at = obs.loc[rows[present]]
+    at, present, rows = _used_rows(case, gr, t)
     x = gr.rows[TEMPERATURE].to_numpy(float)
     close(num(at[BACK_CALCULATED]), want["back"][present], f"{label} {BACK_CALCULATED}", np.abs(x).max())
     close(num(at[DEVIATION]), want["deviation"][present], f"{label} {DEVIATION}", 1)
     said = np.array([bool(text(v).strip()) for v in at[STANDARD_OFF]], dtype=bool)
-    assert (said == want["says"][present]).all(), f"{label}: {STANDARD_OFF} at rows {rows[present][said != want['says'][present]]}"
-    return rows[want["says"]]
+    off = rows[present][said != want["says"][present]]
+    assert (said == want["says"][present]).all(), f"{label}: {STANDARD_OFF} at rows {off}"
+    return want["says"]
 
 
-def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) -> tuple[np.ndarray, list]:
+def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) -> tuple[set[RowId], list]:
     """Every value of one group on the groups, coefficients, checks and observations tables; returns the
-    group's flagged file rows (row flags or a standard off) and, by kind, the comparisons a known fault
+    group's flagged rows (row flags or a standard off) and, by kind, the comparisons a known fault
     may break (to run last)."""
-    label = f"group {gr.key}" if gr.key else "the group"
     rm = row_measures(gr)
     flags = expected_row_flags(gr, rm)
-    row = compare_groups_row(case, gr, t, rm, flags, label)
-    inf, later = compare_checks(case, gr, t, rm, label)
-    compare_coefficients(case, gr, t, inf, label)
-    compare_observations(case, gr, t, rm, flags, label)
-    said = compare_calibration(case, gr, t, row, inf["chosen"], label)
+    row = compare_groups_row(case, gr, t, flags)
+    inf, later = compare_checks(case, gr, t, rm)
+    compare_coefficients(case, gr, t, inf)
+    compare_observations(case, gr, t, rm, flags)
+    said = compare_calibration(case, gr, t, row, inf["chosen"])
     if case.change_point != "none":
-        assert int(num([row["change points"]])[0]) == gr.c, f"{label}: change points {row['change points']}"
-        later += [("shape", lambda: compare_shape_name(case, gr, row, label)),
-                  ("search", lambda: compare_shape(case, gr, label))]
-    flagged = gr.rows["_file_row"].to_numpy()[np.asarray([bool(f) for f in flags], dtype=bool)]
-    return np.union1d(flagged, said), later
+        assert int(num([row["change points"]])[0]) == gr.c, f"{gr.label}: change points {row['change points']}"
+        later += [("shape", lambda: compare_shape_name(case, gr, row)),
+                  ("search", lambda: compare_shape(case, gr))]
+    marked = np.asarray([bool(f) for f in flags], dtype=bool) | said
+    return {i for i, m in zip(reference_ids(gr), marked) if m}, later
 
 
-def compare_adjusted_p_values(refs: list[GroupReference], t: dict[str, pd.DataFrame]) -> None:
-    """adjusted p-value = Benjamini–Hochberg across groups, per check (statsmodels multipletests)."""
-    checks = t["checks"]
-    for name, rows in checks.groupby("check", sort=False):
-        if len(refs) > 1:
-            rows = rows.set_index(rows[GROUP].astype(str)).loc[[r.key for r in refs]]
+def compare_adjusted_p_values(case: Case, refs: list[GroupReference], t: dict[str, pd.DataFrame]) -> None:
+    """adjusted p-value = Benjamini–Hochberg across all groups (every response's and file's), per check
+    (statsmodels multipletests)."""
+    for name, rows in t["checks"].groupby("check", sort=False):
+        at = {key_of(case, r): i for i, (_, r) in enumerate(rows.iterrows())}
+        rows = rows.iloc[[at[r.key] for r in refs]]
         pv = num(rows["p-value"])
         ok = np.isfinite(pv)
         if not ok.any():
@@ -446,24 +486,11 @@ def reported_shapes(case: Case, groups: pd.DataFrame) -> dict:
         upper = num([row.get("upper change point")])[0]
         below = cp if name in ("heating", "two-slopes", "heating-cooling") else np.nan
         above = {"cooling": cp, "two-slopes": cp, "heating-cooling": upper}.get(name, np.nan)
-        out[str(row[GROUP]) if case.group else None] = Shape(name, below, above)
+        out[key_of(case, row)] = Shape(name, below, above)
     return out
 
 
-# ---------------------------------------------------------------- reading the results workbook
-
-def read_sheet(book, name: str) -> pd.DataFrame | None:
-    """A table sheet of the results workbook (header in row 1); None for an observations sheet without rows."""
-    ws = book[name]
-    rows = list(ws.iter_rows(values_only=True))
-    if not rows or (name == "observations" and "source row" not in rows[0]):     # observations = none: a note
-        return None
-    head = [h for h in rows[0]]
-    width = max((i + 1 for i, h in enumerate(head) if h is not None), default=0)
-    return pd.DataFrame([list(r[:width]) + [None] * (width - len(r)) for r in rows[1:]], columns=head[:width])
-
-
-def observations_sheet_holds(case: Case, out: Path, all_rows: np.ndarray, flagged: set[int]) -> None:
+def observations_sheet_holds(case: Case, out: Path, all_rows: set[RowId], flagged: set[RowId]) -> None:
     """The observations setting changes only the written sheet: all rows, the flagged ones, or a note."""
     book = openpyxl.load_workbook(out, read_only=True, data_only=True)
     try:
@@ -473,9 +500,9 @@ def observations_sheet_holds(case: Case, out: Path, all_rows: np.ndarray, flagge
             first = next(book["observations"].iter_rows(values_only=True))[0]
             assert "observations = none" in str(first)
             return
-        written = set(num(sheet["source row"]).astype(int))
+        written = set(row_ids(case, sheet))
         if case.observations == "all":
-            assert written == set(all_rows), "observations = all did not write every row"
+            assert written == all_rows, "observations = all did not write every row"
         else:
             assert written == flagged, (f"observations = flagged wrote rows {sorted(written)}, expected "
                                         f"{sorted(flagged)} (unusable, highlighted or a standard off)")
@@ -483,42 +510,37 @@ def observations_sheet_holds(case: Case, out: Path, all_rows: np.ndarray, flagge
         book.close()
 
 
-def run_case(case: Case, src: Path, out: Path, cli) -> dict[str, pd.DataFrame]:
-    """sheetfit on the input, by the case's route; the four tables (in memory, or read back from `out`)."""
-    if case.route == "api":
-        res = sheetfit.fit_workbook(src, **case.settings())
-        assert res.info.date_columns == (("Day",) if case.term == "date" else ()), res.info.date_columns
-        sheetfit.write_results(res, out)
-        return {"groups": res.groups, "coefficients": res.coefficients, "checks": res.checks,
-                "observations": res.observations, "_in_memory": True}
-    done = cli("fit", src.name, *case.cli_args(), "--out", out.name, cwd=src.parent)
-    assert done.returncode == 0, done.stderr
-    book = openpyxl.load_workbook(out, read_only=True, data_only=True)
-    tables = {name: read_sheet(book, name) for name in SHEETS}
-    book.close()
-    if tables["observations"] is None:             # observations = none: no rows, the columns a run would have
-        ours = [*([WEIGHT_USED] if case.weights != "none" else []), *(CALIBRATION_ROWS if case.calibration else [])]
-        tables["observations"] = pd.DataFrame(columns=[GROUP, "source row", "used in fit", "row flags", *OBS_VALUES,
-                                                       *ours])
-    return tables
-
-
 # ---------------------------------------------------------------- the tests
 
 @pytest.fixture(scope="module")
-def xls_inputs(tmp_path_factory) -> dict[str, Path]:
-    """Every .xls input of the matrix, converted by LibreOffice in one batch."""
+def xls_inputs(tmp_path_factory) -> dict[str, list[Path]]:
+    """Every .xls input of the matrix (each file of a case), converted by LibreOffice in one batch."""
     wanted = [c for c in CASES if c.format == "xls"]
     if not wanted or soffice() is None:
         return {}
     work = tmp_path_factory.mktemp("xls")
-    sources = []
+    made: dict[str, list[Path]] = {}
     for c in wanted:
-        src = work / f"{c.id}.xlsx"
-        write_input(c, make_table(c), src)
-        sources.append(src)
-    convert_to_xls(sources, work / "out")
-    return {c.id: work / "out" / f"{c.id}.xls" for c in wanted}
+        for k, (_, rows) in enumerate(file_tables(c, make_table(c))):
+            src = work / f"{c.id}-{k}.xlsx"
+            write_input(c, rows, src)
+            made.setdefault(c.id, []).append(src)
+    convert_to_xls([s for sources in made.values() for s in sources], work / "out")
+    return {cid: [work / "out" / s.with_suffix(".xls").name for s in sources] for cid, sources in made.items()}
+
+
+def input_files(case: Case, table: pd.DataFrame, folder: Path, xls_inputs: dict) -> list[Path]:
+    """The case's input file(s) in `folder`, named as the case names them."""
+    paths = []
+    for k, (name, rows) in enumerate(file_tables(case, table)):
+        paths.append(folder / name)
+        if case.format == "xls":
+            if case.id not in xls_inputs:
+                pytest.skip("LibreOffice (soffice) is not installed; it is needed to make a .xls file")
+            shutil.copy(xls_inputs[case.id][k], paths[-1])
+        else:
+            write_input(case, rows, paths[-1])
+    return paths
 
 
 def test_the_design_covers_every_pair_of_levels():
@@ -532,21 +554,31 @@ def test_the_design_covers_every_pair_of_levels():
         assert any(c.route == "cli" and c.observations == mode for c in CASES), f"no CLI case with {mode}"
 
 
+# what the one-line refusal of each pair of dimensions names (README: the options that cannot go together)
+REFUSED = {("intercept", "change_point"): "--change-point.*--no-intercept",
+           ("weights", "change_point"): "--weights.*--change-point",
+           ("change_point", "term"): "--change-point.*categor",
+           ("calibration", "intercept"): "--calibration", ("calibration", "term"): "--calibration",
+           ("calibration", "change_point"): "--calibration", ("responses", "weights"): "--weights.*response"}
+
+
 @pytest.mark.parametrize("pair", IMPOSSIBLE, ids=lambda pair: f"{pair[0]}={pair[1]}-{pair[2]}={pair[3]}")
 def test_the_impossible_pairs_are_refused(pair):
-    # README: --change-point with --no-intercept or with --weights, and --calibration with anything but one
-    # plain --x column, the constant and no change point, are refused with a JobError; so the design leaves
-    # these pairs out. A case of the design holding the first level, given the second.
+    # README: --change-point with --no-intercept, with --weights or with a category input, --calibration with
+    # anything but one plain --x column, the constant and no change point, and --weights naming a response's
+    # column with --y repeated are refused with a JobError; so the design leaves these pairs out. A case of
+    # the design holding one level of the pair, given the other.
     p, a, q, b = pair
     tried = [Case(**{**vars(c), q: b}) for c in CASES if getattr(c, p) == a]
+    tried += [Case(**{**vars(c), p: a}) for c in CASES if getattr(c, q) == b]
     case = next(c for c in tried if pairs_impossible([vars(c)], IMPOSSIBLE) == [pair])   # no other pair to refuse
-    with pytest.raises(JobError):
+    with pytest.raises(JobError, match=REFUSED[p, q]):
         sheetfit.fit_frame(make_table(case), **case.settings())
 
 
 def test_statsmodels_counts_degrees_of_freedom_set_before_fit():
-    # The oracle's premise (tests.combinations.reference_fits): df set on the model before fit() carry into
-    # scale, std errors, t, p, intervals, F, adjusted R² and AIC/BIC; checked against numpy/scipy by hand
+    # The oracle's premise (tests.combination_oracle.reference_fits): df set on the model before fit() carry
+    # into scale, std errors, t, p, intervals, F, adjusted R² and AIC/BIC; checked against numpy/scipy by hand
     case = next(c for c in CASES if c.intercept)
     gr = reference_fits(case, make_table(case))[0]
     rng = np.random.default_rng(5)
@@ -588,55 +620,67 @@ def test_statsmodels_wls_is_the_whitened_fit():
     close([*rescaled.params, *rescaled.bse], [*fit.params, *fit.bse], "weights times 7", np.r_[fit.bse, fit.bse])
 
 
+def compare_rows(case: Case, table: pd.DataFrame, refs: list[GroupReference], obs: pd.DataFrame) -> set[RowId]:
+    """`observations` lists every row once per response, says which are used (an unusable row with a
+    reason, a used row without), and names a weight that is not positive; returns the unusable rows."""
+    ids = row_ids(case, obs)
+    everything = every_row(case, table)
+    columns = list(obs.columns)                      # README: `source file` before `source sheet`, with two files
+    before = columns[columns.index("source sheet") - 1]
+    assert (before == SOURCE_FILE) if case.files > 1 else (SOURCE_FILE not in columns), f"columns {columns[:6]}"
+    assert sorted(ids) == sorted(everything), "observations table does not list every input row once per response"
+    used = {i for gr in refs for i in reference_ids(gr)}
+    unusable = everything - used
+    marked, reasons = dict(zip(ids, obs["used in fit"])), dict(zip(ids, obs["reason"].map(text)))
+    assert {i for i, u in marked.items() if u == "no"} == unusable, "rows marked unused"
+    assert all(reasons[i].strip() for i in unusable), "an unusable row without a reason"
+    assert not any(reasons[i] for i in used), "a used row with a reason"
+    t = with_file_rows(case, table)
+    given = reference_weights(case, t)     # README: a weight that is not positive is the row's reason
+    with np.errstate(invalid="ignore"):
+        bad = ~np.isnan(given) & ~(np.isfinite(given) & (given > 0))
+    assert all("weight" in reasons[(r, f, int(i))] for r in case.ys
+               for f, i in zip(t["_file"][bad], t["_file_row"][bad])), "a row with a bad weight, not said so"
+    return unusable
+
+
 @pytest.mark.parametrize("case", [_param(c) for c in CASES])
 def test_combination_matches_statsmodels(case: Case, tmp_path, xls_inputs, cli):
     table = make_table(case)
-    src = tmp_path / f"usage.{case.format}"
-    if case.format == "xls":
-        if case.id not in xls_inputs:
-            pytest.skip("LibreOffice (soffice) is not installed; it is needed to make a .xls file")
-        shutil.copy(xls_inputs[case.id], src)
-    else:
-        write_input(case, table, src)
+    sources = input_files(case, table, tmp_path, xls_inputs)
     out = tmp_path / "results.xlsx"
-    tables = run_case(case, src, out, cli)
+    tables = run_case(case, sources, out, cli)
+    ours = [c for c in tables["groups"].columns if c in (RESPONSE_KEY, FILE_KEY)]     # README: only when asked for
+    assert list(tables["groups"].columns[: len(case.keys)]) == case.keys and ours == case.keys[: len(ours)], \
+        f"group columns {list(tables['groups'].columns[:4])}"
     refs = reference_fits(case, table, reported_shapes(case, tables["groups"]))
     assert len(tables["groups"]) == len(refs), f"{len(tables['groups'])} groups, expected {len(refs)}"
-    flagged: set[int] = set()
+    flagged: set[RowId] = set()
     later: list[tuple[str, Callable[[], None]]] = []
     for gr in refs:
         rows, broken = compare_group(case, gr, tables)
-        flagged |= set(rows.tolist())
+        flagged |= rows
         later += broken
-    compare_adjusted_p_values(refs, tables)
-    file_rows = np.arange(2, len(table) + 2)
-    used = set().union(*(set(gr.rows["_file_row"]) for gr in refs))
-    unusable = {int(r) for r in file_rows if r not in used}
+    compare_adjusted_p_values(case, refs, tables)
     if tables.get("_in_memory") or case.observations == "all":
-        obs = tables["observations"]
-        rows = num(obs["source row"]).astype(int)
-        assert sorted(rows) == list(file_rows), "observations table does not list every input row once"
-        marked = dict(zip(rows, obs["used in fit"]))
-        assert {r for r, u in marked.items() if u == "no"} == unusable, "rows marked unused"
-        reasons = dict(zip(rows, obs["reason"]))
-        assert all(str(reasons[r] or "").strip() for r in unusable), "an unusable row without a reason"
-        given = reference_weights(case, table)     # README: a weight that is not positive is the row's reason
-        with np.errstate(invalid="ignore"):
-            bad = file_rows[~(np.isfinite(given) & (given > 0))]
-        assert all("weight" in text(reasons[r]) for r in bad), "a row with a bad weight, not said so"
-    observations_sheet_holds(case, out, file_rows, flagged | unusable)
+        unusable = compare_rows(case, table, refs, tables["observations"])
+    else:
+        unusable = every_row(case, table) - {i for gr in refs for i in reference_ids(gr)}
+    observations_sheet_holds(case, out, every_row(case, table), flagged | unusable)
     run_last(case, later)
 
 
 def test_robust_std_errors_come_into_play_somewhere():
-    # The seeded errors (heteroscedastic, AR(1)) must make the matrix exercise HC3 and Newey–West:
-    # the first robust case with groups of 12 rows or more whose terms need no dates, fitted in memory
-    # with its own settings (weights included).
-    case = next(c for c in CASES if c.inference == "robust" and c.sizes in ("equal", "unequal")
-                and c.term != "date" and c.change_point == "none" and not fault(c))
-    res = sheetfit.fit_frame(make_table(case), **case.settings())
-    used = set(res.coefficients["std error used"])
-    assert {"HC3", "Newey–West (HAC)"} <= used, f"{case.id}: std errors used {used}"
+    # The seeded errors (heteroscedastic, AR(1)) must make the matrix exercise HC3 and Newey–West: the
+    # robust cases with groups of 12 rows or more whose terms need no dates, fitted in memory with their own
+    # settings (weights included), until both have been used.
+    used: set[str] = set()
+    for case in (c for c in CASES if c.inference == "robust" and c.sizes in ("equal", "unequal")
+                 and c.term != "date" and c.change_point == "none" and not fault(c)):
+        used |= set(sheetfit.fit_frame(make_table(case), **case.settings()).coefficients["std error used"])
+        if {"HC3", "Newey–West (HAC)"} <= used:
+            return
+    raise AssertionError(f"std errors used: {used}")
 
 
 def test_weights_and_calibration_come_into_play():
@@ -659,6 +703,32 @@ def test_weights_and_calibration_come_into_play():
     assert {0.0, -1.5} <= set(bad), f"weights that are not positive: {sorted(set(bad))}"
     assert replicated >= 5, f"lack of fit runs in {replicated} groups"
     assert 0 < sum(said) < len(said), f"{sum(said)} of {len(said)} standards beyond their limits"
+
+
+def test_categories_responses_and_files_come_into_play():
+    # The seeded data must make the matrix exercise what the new dimensions add (oracle: tests.combination_oracle):
+    # groups lacking a level, lacking the reference (README: measured against their own first level) and
+    # showing one level only (no level effects), with their indicators left out; blank category cells; a
+    # blank Gas cell leaving its row to kWh; two files each holding groups; every category case with a group
+    # whose levels all count.
+    lacking = {"no other": 0, "no reference": 0, "one level": 0}
+    blank_gas = files = 0
+    for case in CASES:
+        table = make_table(case)
+        refs = reference_fits(case, table)
+        files += case.files > 1 and set(table[PART]) == {0, 1}
+        for gr in refs:
+            for column, seen in gr.seen.items():
+                all_levels, ref = gr.levels[column]
+                kind = ("one level" if len(seen) == 1 else "no reference" if ref not in seen
+                        else "no other" if len(seen) < len(all_levels) else None)
+                lacking[kind] = lacking.get(kind, 0) + 1
+                assert len(gr.indicators.get(column, [0, 0])) == max(len(seen) - 1, 0), gr.label
+        kwh, gas = (set().union(*(reference_ids(g) for g in refs if g.response == r)) for r in ("kWh", "Gas"))
+        blank_gas += case.responses > 1 and len({i[1:] for i in kwh} - {i[1:] for i in gas}) > 0
+    assert min(lacking[k] for k in LEVEL_PATTERN.values()) >= 3, f"groups by the levels they lack: {lacking}"
+    assert blank_gas >= 5 and files >= 10, f"{blank_gas} cases with a blank Gas cell, {files} with two files"
+    assert sum(c.term in CATEGORY_KINDS for c in CASES) >= 12
 
 
 def test_change_point_cases_find_interior_change_points(tmp_path):

@@ -113,15 +113,17 @@ def white(fit: EngineFit, terms: Sequence[Term]) -> CheckResult:
         r2, _, ok = aux_r2(Z, b.resid**2, b.mask)
         lm = b.n * r2
         df = np.full(len(b.groups), k - 1.0)
-        for gi in np.flatnonzero(~small & ~ok):       # rare: products redundant in this group only
+        too_few = np.zeros(len(b.groups), dtype=bool)
+        for gi in np.flatnonzero(small | ~ok):        # products redundant in this group (indicators, hinges)
             lm[gi], df[gi] = _reduced_to_rank(Z[gi][b.mask[gi]], b.resid[gi][b.mask[gi]] ** 2)
-            if np.isfinite(lm[gi]):
+            too_few[gi] = b.n[gi] <= df[gi] + 1       # the rank: a test needs more rows than that
+            if np.isfinite(lm[gi]) and not too_few[gi] and df[gi] + 1 < k:
                 note[b.groups[gi]] = f"{int(df[gi]) + 1} of the {k} products are independent; tested on those"
-        bad = small | ~np.isfinite(lm)
+        bad = too_few | ~np.isfinite(lm)
         lm[bad] = np.nan
         for gi in np.flatnonzero(bad):
-            note[b.groups[gi]] = (f"White's test needs more than {k} rows; this group has {b.n[gi]}"
-                                  if small[gi] else "squared residuals do not vary")
+            note[b.groups[gi]] = (f"White's test needs more rows than its {int(df[gi]) + 1} independent products; "
+                                  f"this group has {b.n[gi]}" if too_few[gi] else "squared residuals do not vary")
         stat[b.groups] = lm
         pval[b.groups] = stats.chi2.sf(lm, df)
     return CheckResult(WHITE, "constant variance (White)", "p_small", stat, pval,
