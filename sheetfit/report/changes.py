@@ -14,7 +14,7 @@ from xlsxwriter.utility import xl_col_to_name
 from ..results.changes import CHANGED, NEWLY_FLAGGED, WHAT_CHANGED, RunChanges
 from .book import WriteContext
 from .columns import Column
-from .savings import SIDE_MARGIN, plan_table, set_columns, table_look, write_header, write_rows
+from .savings import plan_table, print_wide, set_columns, table_look, write_header, write_rows
 from .tables import ROW_HEIGHT, wrapped_lines
 
 SHEET = "since previous run"
@@ -47,9 +47,7 @@ def changes_sheet(ctx: WriteContext) -> None:
         return
     st, look = ctx.styles, table_look(ctx.workbook)
     ws = ctx.add_sheet(SHEET)
-    ws.set_landscape()
-    ws.set_margins(left=SIDE_MARGIN, right=SIDE_MARGIN)
-    ws.fit_to_pages(1, 0)
+    print_wide(ws)
     groups = _columns(changes.groups)
     layout = plan_table(st, look, groups, TEXT_WIDTHS)
     set_columns(ws, layout)
@@ -80,8 +78,7 @@ def _coefficient_sheet(ctx: WriteContext, changes: RunChanges) -> None:
     """The coefficients of every group fitted in both runs: before, now, the change and its interval."""
     st, look = ctx.styles, table_look(ctx.workbook)
     ws = ctx.add_sheet(COEFFICIENT_SHEET)
-    ws.set_landscape()
-    ws.fit_to_pages(1, 0)
+    print_wide(ws)
     columns = _columns(changes.coefficients)
     layout = plan_table(st, look, columns, TEXT_WIDTHS)
     set_columns(ws, layout)

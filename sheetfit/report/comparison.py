@@ -25,7 +25,7 @@ from ..results.headers import INPUT, INTERVAL_HIGH, INTERVAL_LOW, P_VALUE, STD_E
 from . import styles as S
 from .book import WriteContext
 from .columns import P_VALUE_FORMAT, Column, number_format
-from .savings import (HEADER_PAD, SIDE_MARGIN, TableLayout, TableLook, plan_table, set_columns, table_look,
+from .savings import (HEADER_PAD, TableLayout, TableLook, plan_table, print_wide, set_columns, table_look,
     write_header, write_rows)
 from .tables import ROW_HEIGHT, wrapped_lines
 
@@ -67,9 +67,7 @@ def comparison_sheet(ctx: WriteContext, tables: ComparisonTables | None = None) 
         return
     st, look = ctx.styles, table_look(ctx.workbook)
     ws = ctx.add_sheet(SHEET)
-    ws.set_landscape()
-    ws.set_margins(left=SIDE_MARGIN, right=SIDE_MARGIN)
-    ws.fit_to_pages(1, 0)
+    print_wide(ws)
     if tables.reason:
         ws.set_column(0, 0, 100)
         ws.write_string(0, 0, TITLE, st.title)

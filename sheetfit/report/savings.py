@@ -142,6 +142,13 @@ def plan_table(st: Styles, look: TableLook, columns: Sequence[Column],
     return TableLayout(widths, formats, heads, wrapped, lines)
 
 
+def print_wide(ws: Any) -> None:
+    """Printed landscape with narrow side margins, every column on the page width (a wide table prints larger)."""
+    ws.set_landscape()
+    ws.set_margins(left=SIDE_MARGIN, right=SIDE_MARGIN)
+    ws.fit_to_pages(1, 0)
+
+
 def set_columns(ws: Any, layout: TableLayout) -> None:
     """Each column's width and the format its cells take."""
     for j, (width, fmt) in enumerate(zip(layout.widths, layout.formats)):
@@ -234,9 +241,7 @@ def savings_sheet(ws: Any, st: Styles, look: TableLook, savings: Savings) -> Non
     write_rows(ws, layout, columns, top + 1, 0, n)
     ws.freeze_panes(top + 1, 0)
     ws.autofilter(top, 0, top + max(n, 1), last)
-    ws.set_landscape()
-    ws.set_margins(left=SIDE_MARGIN, right=SIDE_MARGIN)
-    ws.fit_to_pages(1, 0)                 # printed: every column on the page width
+    print_wide(ws)
     ws.repeat_rows(top)
     if n and {VERDICT, ROWS_IN_TOTALS, ROWS_OUTSIDE} <= set(headers):
         for formula, key in shading_rules(headers, top + 2):
