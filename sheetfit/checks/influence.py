@@ -12,7 +12,8 @@ import numpy as np
 from scipy import stats
 
 from ..job import Thresholds
-from ..model.engine import LEVERAGE_ONE_TOL, EngineFit
+from ..model.engine import EngineFit
+from ..model.row_measures import LEVERAGE_ONE_TOL
 from .result import CheckResult
 
 OUTLIER = "outlier"

@@ -19,7 +19,8 @@ from scipy import stats
 
 from ..job import Thresholds
 from ..model.basis import pow2_exponent
-from ..model.engine import LEVERAGE_ONE_TOL, Batch, EngineFit
+from ..model.engine import Batch, EngineFit
+from ..model.row_measures import LEVERAGE_ONE_TOL
 from ..model.inference import Inference
 
 

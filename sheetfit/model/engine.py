@@ -35,6 +35,7 @@ from .basis import (
     triangular_order,
     working_design,
 )
+from .row_measures import influence, scaled_weights, total_sum_of_squares
 from .unfit import (
     coefficients_out_of_range,
     exactly_collinear,
@@ -42,7 +43,6 @@ from .unfit import (
     values_out_of_range,
 )
 
-LEVERAGE_ONE_TOL = 1e-10    # leverage within this of 1: the row alone fixes a coefficient
 PAD_RATIO = 1.3             # groups in one batch differ in size by at most this factor
 BATCH_ROWS = 400_000        # padded rows per batch, bounds memory
 
@@ -234,21 +234,6 @@ def fit_groups(y: np.ndarray, cols: Mapping[str, np.ndarray], codes: np.ndarray,
     return dataclasses.replace(fit, weights=scaled[0], weight_mean=scaled[1], half_log_weights=half_log)
 
 
-def scaled_weights(weights: np.ndarray, codes: np.ndarray, n_groups: int
-                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Weights divided by their group's mean (exactly 1 where a group's weights are all equal), the
-    means, and per group whether its weights vary (only those groups are whitened)."""
-    counts = np.bincount(codes, minlength=n_groups)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.bincount(codes, weights=weights, minlength=n_groups) / counts
-    hi = np.full(n_groups, -np.inf)
-    lo = np.full(n_groups, np.inf)
-    np.maximum.at(hi, codes, weights)
-    np.minimum.at(lo, codes, weights)
-    varies = hi > lo
-    return np.where(varies[codes], weights / mean[codes], 1.0), mean, varies
-
-
 @dataclass(frozen=True)
 class _Part:
     """A batch's groups on their way to a solution: padded rows, working basis and (once factored) QR."""
@@ -406,19 +391,10 @@ class _Collected:
             self.resid[rows[mask]] = (raw_resid * ys[:, None])[mask]
         self.y_scale[ids] = ys
         self.rss[ids] = r_ss
-        self.tss[ids] = _total_sum_of_squares(batch.y, mask, sw, intercept)
+        self.tss[ids] = total_sum_of_squares(batch.y, mask, sw, intercept)
         self.resid_scaled[rows[mask]] = batch.resid[mask]
         self.leverage[rows[mask]] = batch.leverage[mask]
         self.batches.append(batch)
-
-
-def _total_sum_of_squares(yw: np.ndarray, mask: np.ndarray, sw: np.ndarray | None, intercept: bool) -> np.ndarray:
-    """Σ w·(y − ȳ_w)² from the (whitened) y of a batch, ȳ_w the weighted mean (Σ y² without a constant)."""
-    if not intercept:
-        return ((yw * mask) ** 2).sum(axis=1)
-    root = mask.astype(np.float64) if sw is None else sw
-    ybar = (root * yw).sum(axis=1) / (root**2).sum(axis=1)
-    return (((yw - root * ybar[:, None]) * mask) ** 2).sum(axis=1)
 
 
 def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: np.ndarray,
@@ -427,7 +403,7 @@ def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: 
     ok = reason == ""
     n_groups = len(counts)
     df_resid = (counts - p - extra).astype(np.float64)
-    internal, external, cooks = _influence(out.resid_scaled, out.leverage, codes, out.rss, df_resid, p)
+    internal, external, cooks = influence(out.resid_scaled, out.leverage, codes, out.rss, df_resid, p)
     return EngineFit(n_groups=n_groups, p=p, intercept=intercept, fitted_ok=ok,
                      not_fitted_reason=reason, n=counts, beta=out.beta, se=out.se, xtx_inv=out.xtx_inv,
                      y_scale=out.y_scale, rss_scaled=out.rss, tss_scaled=out.tss, df_resid=df_resid,
@@ -435,23 +411,3 @@ def _engine_fit(out: _Collected, reason: np.ndarray, codes: np.ndarray, counts: 
                      resid=out.resid, leverage=out.leverage, studentized=external, internal=internal,
                      cooks=cooks, batches=tuple(out.batches), active=np.ones((n_groups, p), dtype=bool),
                      n_coef=np.full(n_groups, p), extra_params=extra)
-
-
-def _influence(resid: np.ndarray, h: np.ndarray, codes: np.ndarray, rss: np.ndarray,
-               df_resid: np.ndarray, p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Internally and externally studentized residuals and Cook's distance per row (scale-free:
-    residuals and rss in the units of y / y_scale). df_resid is per group and counts any extra
-    parameters: s² = RSS/df, s_(i)² = (RSS − e_i²/(1−h_i))/(df − 1), D_i = r_i²·h_i/(p·(1−h_i))."""
-    rss_r = rss[codes]
-    df_r = df_resid[codes]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        s2 = rss_r / df_r
-        one_minus_h = 1.0 - h
-        lev_one = one_minus_h < LEVERAGE_ONE_TOL
-        one_minus_h = np.where(lev_one, np.nan, one_minus_h)
-        internal = resid / np.sqrt(s2 * one_minus_h)
-        s2_without = (rss_r - resid**2 / one_minus_h) / (df_r - 1)
-        s2_without = np.where((df_r > 1) & (s2_without > 0), s2_without, np.nan)
-        external = resid / np.sqrt(s2_without * one_minus_h)
-        cooks = internal**2 * h / one_minus_h / p
-    return internal, external, cooks

@@ -17,7 +17,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..terms import Term
-from .engine import Batch, EngineFit, fit_groups, group_bounds, scaled_weights
+from .engine import Batch, EngineFit, fit_groups, group_bounds
+from .row_measures import scaled_weights
 
 NO_COEFFICIENT = "no coefficient is active for this group, so there is nothing to estimate"
 

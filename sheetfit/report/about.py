@@ -6,7 +6,7 @@ import datetime as _dt
 import math
 from typing import Any
 
-from ..model.engine import LEVERAGE_ONE_TOL
+from ..model.row_measures import LEVERAGE_ONE_TOL
 from ..results.headers import (COEFFICIENT, COEFFICIENT_COUNT, DAYS_MARK, FITTED, HIGH_LEVERAGE_FLAG,
     INFLUENTIAL_FLAG, INTERVAL_HIGH, INTERVAL_LOW, LEVERAGE_ONE_FLAG, LOOK_HERE, MOVES_FIT_FLAG, OUTLYING_FLAG,
     ROW_FLAGS, ROWS_USED, cell_text)
