@@ -29,11 +29,10 @@ from ..terms import HINGES, design_matrix
 from .book import WriteContext
 from .columns import SCIENTIFIC, number_format
 from .formulas import Cells, area, lookup, ref
+from .live_formulas import ABOVE, BELOW, check_formula, check_text, level_check, term_formula
 from .store_sheet import fill_store
 
 MAX_COLUMNS = 16_384
-LITERAL_LABEL = 200    # characters of a term's label quoted inside a formula (text in a formula: ≤ 255)
-BELOW, ABOVE = "below the observed range", "above the observed range"
 SHEET = "live prediction"
 TOP_INPUT = 8          # first input row (0-based) on the live prediction sheet
 GROUP_ROW, LEVEL_ROW, STORE_ROW = 3, 4, 5     # the chosen group, the level, its row in the store
@@ -149,12 +148,6 @@ def _level_lists(ws: Any, store: ModelStore) -> None:
                 "error_message": f"Choose one of the levels of {col} the fit saw."})
 
 
-def _level_check(store: ModelStore, col: str, x: str, row: str) -> str:
-    """The check formula of a category input: empty, or that the typed level is not one the fit saw."""
-    names = ",".join(f'"{_quoted(n)}"' for n in sorted(store.level_codes(col)))
-    return f'=IF(ISNA({row}),"",IF(ISNA(MATCH({x},{{{names}}},0)),"not a level of the fit",""))'
-
-
 def _mid(lo: float, hi: float) -> float:
     """The middle of the observed range, rounded to the fewest digits that keep it inside the range."""
     if not (math.isfinite(lo) and math.isfinite(hi)):
@@ -176,64 +169,6 @@ def tau_label(store: ModelStore, kind: str) -> str:
     """The label of a change point: τ in max(0, τ − T) ('below') or in max(0, T − τ) ('above')."""
     col = next(t.column for t in store.terms if t.kind == kind)
     return cell_text(f"τ in max(0, τ − {col})" if kind == "below" else f"τ in max(0, {col} − τ)")
-
-
-def _term_formula(term: Any, x: str, tau: str | None = None, other: str | None = None) -> str:
-    """The term's value from input cell `x` (#N/A when the input cannot give one); a change-point term
-    takes its τ from cell `tau` and is 0 when that cell holds no number (the group's shape does not use it);
-    an indicator is 1 at its level; a product multiplies by cell `other` (or by 1 at its level of it)."""
-    if term.kind == "indicator":
-        return f'IF({x}="{_quoted(term.level)}",1,0)'
-    if term.kind == "product":
-        factor = f'IF({other}="{_quoted(term.level)}",1,0)' if term.code >= 0 else other
-        return f"IF(ISNUMBER({x}),{x}*{factor},NA())"
-    if term.kind in HINGES:
-        gap = f"{tau}-{x}" if term.kind == "below" else f"{x}-{tau}"
-        return f"IF(ISNUMBER({x}),IF(ISNUMBER({tau}),MAX(0,{gap}),0),NA())"
-    if term.kind == "power":
-        return f"IF(ISNUMBER({x}),{x}^{term.power},NA())"
-    if term.kind == "log":
-        return f"IF(AND(ISNUMBER({x}),{x}>0),LN({x}),NA())"
-    if term.kind == "sqrt":
-        return f"IF(AND(ISNUMBER({x}),{x}>=0),SQRT({x}),NA())"
-    return f"IF(ISNUMBER({x}),{x},NA())"
-
-
-def _check_formula(store: ModelStore, j: int, x: str, lo: str, hi: str, row: str) -> str:
-    """The check cell of input j: empty, "needs a number", a term's domain, or outside the observed range."""
-    col = store.sources[j]
-    inner = f'IF({x}<{lo},"{BELOW}",IF({x}>{hi},"{ABOVE}",""))'
-    for t in store.terms:
-        if t.column == col and t.kind == "log":
-            inner = f'IF({x}<=0,"must be above 0 for {_quoted(_short(t.label))}",{inner})'
-        elif t.column == col and t.kind == "sqrt":
-            inner = f'IF({x}<0,"must be 0 or more for {_quoted(_short(t.label))}",{inner})'
-    return f'=IF(ISNA({row}),"",IF(NOT(ISNUMBER({x})),"needs a number",{inner}))'
-
-
-def _quoted(text: str) -> str:
-    """Text for inside a formula's string literal: double quotes are doubled."""
-    return text.replace('"', '""')
-
-
-def _short(label: str) -> str:
-    """A term's label as a formula's text may quote it (a text in a formula holds at most 255 characters)."""
-    return cell_text(label, LITERAL_LABEL)
-
-
-def _check_text(store: ModelStore, g: int, j: int, x: float) -> str:
-    """What the check formula of input j shows for value `x` in group g (its cached result)."""
-    col = store.sources[j]
-    for t in store.terms:
-        if t.column == col and t.kind == "log" and x <= 0:
-            return f"must be above 0 for {_short(t.label)}"
-        if t.column == col and t.kind == "sqrt" and x < 0:
-            return f"must be 0 or more for {_short(t.label)}"
-    if x < store.lo[g, j]:
-        return BELOW
-    if x > store.hi[g, j]:
-        return ABOVE
-    return ""
 
 
 def _predict_cells(ctx: WriteContext, cells: Cells, ps: PredictSheet) -> None:
@@ -305,11 +240,11 @@ def _input_cells(cells: Cells, st: Any, ps: PredictSheet) -> list[tuple[str, str
             cells.formula(r, 3, "=" + ps.pick(lay.col_max(j)), None, store.hi[g, j])
         if col in store.category_columns:
             text = "" if ps.values[j] in store.level_codes(col) else "not a level of the fit"
-            cells.formula(r, 4, _level_check(store, col, x, ps.row), None, text)
+            cells.formula(r, 4, level_check(store, col, x, ps.row), None, text)
             checks.append((ref(None, r, 0), ref(None, r, 4), col, text))
             continue
-        text = _check_text(store, g, j, ps.values[j])
-        cells.formula(r, 4, _check_formula(store, j, x, lo, hi, ps.row), None, text)
+        text = check_text(store, g, j, ps.values[j])
+        cells.formula(r, 4, check_formula(store, j, x, lo, hi, ps.row), None, text)
         checks.append((ref(None, r, 0), ref(None, r, 4), col, text))
     return checks
 
@@ -410,7 +345,7 @@ def _calculation_cells(cells: Cells, st: Any, ps: PredictSheet, calc: int) -> No
             cells.number(r, 1, 1.0)
         else:
             tau = ps.tau(term.kind) if term.kind in HINGES else None
-            cells.formula(r, 1, "=" + _term_formula(term, src_cell[term.column], tau, src_cell.get(term.by)), None,
+            cells.formula(r, 1, "=" + term_formula(term, src_cell[term.column], tau, src_cell.get(term.by)), None,
                           d_vals[i])
         cells.formula(r, 2, "=" + ps.pick(lay.col_coef(i)), sci, float(store.beta[g, i]))
         for j in range(p):
