@@ -13,7 +13,6 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pandas as pd
 
 from .job import FitJob, job_file_settings, make_job
@@ -77,9 +76,9 @@ def read_back(results_or_path: FitResults | str | Path, new_rows: pd.DataFrame, 
     prediction): `new_rows` holds the group keys and the responses in the column named as the fit's
     response; `replicates` names a column of how many measurements each response averages. Returns
     the columns given, then prediction.inverse.INVERSE_COLUMNS (as `sheetfit predict --inverse` writes)."""
-    from .prediction.compute import at_level, group_positions, store_of
+    from .prediction.compute import at_level, store_of
     from .errors import ColumnNotFoundError, JobError, not_found_message
-    from .prediction.inverse import INVERSE_COLUMNS, inverse_predict, line_problem, quantification_limits
+    from .prediction.inverse import INVERSE_COLUMNS, line_problem, read_back_cells
     from .results.headers import shown_names
 
     store = at_level(store_of(results_or_path), level)
@@ -91,13 +90,8 @@ def read_back(results_or_path: FitResults | str | Path, new_rows: pd.DataFrame, 
         if name not in given:
             raise ColumnNotFoundError(not_found_message("column", name, given))
     column = {c: new_rows.iloc[:, given.index(c)] for c in (*store.group_columns, store.y, replicates) if c in given}
-    gpos, why = group_positions(store, {c: v.tolist() for c, v in column.items()}, len(new_rows))
-    counts = None if replicates is None else column[replicates].to_numpy(dtype=object)
-    extra = [c for c in store.extra_columns if c in given]      # a weighted fit's own weight column
-    weight_values = (pd.to_numeric(new_rows.iloc[:, given.index(extra[0])], errors="coerce").to_numpy(np.float64)
-                     if extra else None)
-    found = inverse_predict(store, gpos, column[store.y].to_numpy(dtype=object), counts, None,
-                            quantification_limits(store), group_reasons=why, weight_values=weight_values)
+    cells = {c: new_rows.iloc[:, given.index(c)].tolist() for c in (*column, *store.extra_columns) if c in given}
+    found = read_back_cells(store, cells, len(new_rows), replicates)
     front = pd.DataFrame({c: v.to_numpy() for c, v in column.items()}, index=new_rows.index)
     front.columns = shown_names(list(column), INVERSE_COLUMNS)
     return pd.concat([front, found.set_axis(new_rows.index)], axis=1)

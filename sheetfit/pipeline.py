@@ -14,7 +14,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pandas as pd
 
 from . import checks
 from .checks import robust
@@ -379,8 +378,7 @@ def _read_back_workbook(store: Any, new: Any, target: Path, overwrite: bool, abo
                         summary: Callable[[object], None] | None) -> Path:
     """`sheetfit predict --inverse`: each row's input value read back from its measured response (in the
     column named as the fit's response) through its group's calibration line (prediction.inverse)."""
-    from .prediction.compute import group_positions
-    from .prediction.inverse import READ_BACK, inverse_predict, line_problem, quantification_limits
+    from .prediction.inverse import READ_BACK, line_problem, read_back_cells
     from .prediction.new_rows import inputs_as_numbers, require_columns
     from .prediction.summary import PredictionSummary, nothing_predicted
     from .report.predictions import write_predictions
@@ -390,13 +388,8 @@ def _read_back_workbook(store: Any, new: Any, target: Path, overwrite: bool, abo
         raise JobError(f"--inverse: {problem}; fit one --x column with a constant to read values back")
     require_columns(new, store, (*store.group_columns, store.y, *((replicates,) if replicates else ())))
     progress("predicting")
-    gpos, why = group_positions(store, {c: new.frame[c].tolist() for c in store.group_columns}, len(new.frame))
-    counts = None if replicates is None else np.asarray(new.frame[replicates].tolist(), dtype=object)
-    extra = [c for c in store.extra_columns if c in new.frame.columns]
-    weight_values = (np.asarray(pd.to_numeric(new.frame[extra[0]], errors="coerce"), dtype=np.float64)
-                     if extra else None)
-    table = inverse_predict(store, gpos, np.asarray(new.frame[store.y].tolist(), dtype=object), counts, None,
-                            quantification_limits(store), group_reasons=why, weight_values=weight_values)
+    table = read_back_cells(store, {str(c): new.frame[c].tolist() for c in new.frame.columns}, len(new.frame),
+                            replicates)
     done = int(table[READ_BACK].notna().sum())
     if done == 0:
         raise nothing_predicted(table, new.source_rows, new.where())

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -253,3 +253,19 @@ def _table(out: dict[str, np.ndarray], flags: dict[str, np.ndarray], reasons: li
     """The result columns in INVERSE_COLUMNS order."""
     table = pd.DataFrame({**out, **flags, PREDICTION_REASON: ["; ".join(r) for r in reasons]})
     return table[list(INVERSE_COLUMNS)]
+
+
+def read_back_cells(store: ModelStore, columns: Mapping[str, Sequence[object]], n_rows: int,
+                    replicates: str | None, level: float | None = None) -> pd.DataFrame:
+    """`inverse_predict` for new rows given as raw cells per column (the group keys, the response under the fit's
+    response name, the replicates column when named, a weighted fit's own weight column when present), as
+    `sheetfit predict --inverse` and `sheetfit.read_back` both read them. Columns: INVERSE_COLUMNS."""
+    from .compute import group_positions
+
+    gpos, why = group_positions(store, {c: list(columns[c]) for c in store.group_columns}, n_rows)
+    counts = None if replicates is None else np.asarray(list(columns[replicates]), dtype=object)
+    extra = [c for c in store.extra_columns if c in columns]
+    weight_values = (pd.to_numeric(pd.Series(list(columns[extra[0]])), errors="coerce").to_numpy(np.float64)
+                     if extra else None)
+    return inverse_predict(store, gpos, np.asarray(list(columns[store.y]), dtype=object), counts, level,
+                           quantification_limits(store), group_reasons=why, weight_values=weight_values)
