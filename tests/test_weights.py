@@ -231,3 +231,22 @@ def test_cli_weighted_run(tmp_path):
     assert about[1].astype(str).str.contains("weighted least squares with weights 1/Std\\^2").any()
     bad = CliRunner().invoke(app, ["fit", str(src), "--y", "Signal", "--x", "Std", "--weights", "1/Nope"])
     assert bad.exit_code != 0 and "Nope" in bad.output and "Traceback" not in bad.output
+
+
+def test_savings_of_a_weighted_baseline_use_each_rows_weight(tmp_path):
+    rng = np.random.default_rng(3)
+    base = pd.DataFrame({"Site": "a", "T": rng.uniform(0, 25, 36)})
+    base["kWh"] = 200 + 8 * base["T"] + rng.normal(0, 1, 36) * base["T"]
+    path = sheetfit.write_results(sheetfit.fit_frame(base, y="kWh", x=["T"], group="Site", weights="1/T"),
+                                  tmp_path / "baseline.xlsx")
+    new = pd.DataFrame({"Site": "a", "T": rng.uniform(1, 25, 12)})
+    new["kWh"] = 0.9 * (200 + 8 * new["T"])
+    _, groups = sheetfit.savings(path, new, "kWh")
+    # Var(avoided total) = s²·(Σ 1/w0 + d'(X'WX)⁻¹d), w0 each row's weight over the baseline's mean weight,
+    # with s² and (X'WX)⁻¹ from statsmodels WLS (weights w/mean(w))
+    w = 1 / base["T"]
+    ref = sm.WLS(base["kWh"], sm.add_constant(base["T"]), weights=w / w.mean()).fit()
+    d = sm.add_constant(new["T"]).to_numpy().sum(axis=0)
+    w0 = (1 / new["T"]) / w.mean()
+    var = ref.scale * ((1 / w0).sum() + d @ ref.normalized_cov_params.to_numpy() @ d)
+    assert groups["std error of avoided total"].iloc[0] == pytest.approx(np.sqrt(var), rel=1e-9)

@@ -113,6 +113,11 @@ def design_for_rows(store: ModelStore, raw: dict[str, list], n_rows: int
     return _design(store, raw, n_rows)[:3]
 
 
+def input_values(store: ModelStore, raw: dict[str, list], n_rows: int) -> np.ndarray:
+    """The rows' source-column values as numbers (n, m); NaN where a cell is not one (its reason is not kept)."""
+    return _inputs(store, raw, n_rows, [[] for _ in range(n_rows)])
+
+
 def group_positions(store: ModelStore, raw: dict[str, list], n_rows: int) -> tuple[np.ndarray, list[list[str]]]:
     """Each new row's group position in the store (−1 unknown) and, per row, why its group is not known."""
     reasons: list[list[str]] = [[] for _ in range(n_rows)]

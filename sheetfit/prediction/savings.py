@@ -92,7 +92,7 @@ class Savings:
 
 def reporting_savings(store: ModelStore, group_pos: np.ndarray, design: np.ndarray, actual_raw: list,
                       level: float | None = None, *, outside: np.ndarray | None = None,
-                      actual_column: str = ACTUAL_USE) -> Savings:
+                      actual_column: str = ACTUAL_USE, row_weights: np.ndarray | None = None) -> Savings:
     """Avoided use per row and per group, with the exact std error of each group's avoided total.
 
     `group_pos` (n,) is each row's group in the store (−1 unknown), `design` (n, p) its raw design
@@ -102,7 +102,8 @@ def reporting_savings(store: ModelStore, group_pos: np.ndarray, design: np.ndarr
     Var(A) = s²·(m + dᵀ(X'X)⁻¹d), d = Σ x_r over the m rows used: the m reporting deviations are
     independent with the baseline's residual variance, and the baseline's own error enters through
     d; exact for the fitted model, taking any change points as known. Intervals use t with the
-    baseline's residual df at `level` (None: the store's level).
+    baseline's residual df at `level` (None: the store's level). A weighted baseline gives each row
+    its own weight relative to its group's, `row_weights` (n,): m becomes Σ 1/w0 over the rows used.
     """
     level = store.level if level is None else float(check_setting("level", level))
     group_pos = np.asarray(group_pos, dtype=np.int64)
@@ -115,11 +116,15 @@ def reporting_savings(store: ModelStore, group_pos: np.ndarray, design: np.ndarr
             why_not[r].append(problem)
         else:
             actual[r] = value
+    if row_weights is not None:
+        for r in np.flatnonzero(~(np.asarray(row_weights) > 0)):
+            why_not[r].append(f"no weight for this row (the baseline is weighted by {store.weights})")
     used = np.array([not w for w in why_not], dtype=bool)
     avoided = np.where(used, yhat - actual, np.nan)
     rows = pd.DataFrame({ADJUSTED_BASELINE: yhat, ACTUAL_USE: actual, AVOIDED_USE: avoided,
                          LEFT_OUT_BECAUSE: ["; ".join(w) for w in why_not]})
-    groups = _group_table(store, group_pos, np.asarray(design, dtype=np.float64), rows, used, outside, level)
+    groups = _group_table(store, group_pos, np.asarray(design, dtype=np.float64), rows, used, outside, level,
+                          row_weights)
     return Savings(rows, groups, level, actual_column, int((group_pos < 0).sum()))
 
 
@@ -154,7 +159,8 @@ def _actual_number(v: Any, column: str) -> tuple[float, str]:
 
 
 def _group_table(store: ModelStore, group_pos: np.ndarray, design: np.ndarray, rows: pd.DataFrame,
-                 used: np.ndarray, outside: np.ndarray | None, level: float) -> pd.DataFrame:
+                 used: np.ndarray, outside: np.ndarray | None, level: float,
+                 row_weights: np.ndarray | None = None) -> pd.DataFrame:
     """One row per group that has reporting rows, in the order the groups first appear."""
     from scipy import stats
 
@@ -176,7 +182,8 @@ def _group_table(store: ModelStore, group_pos: np.ndarray, design: np.ndarray, r
     inv = np.nan_to_num(store.xtx_inv[gs], nan=0.0)
     s2, df = store.sigma2[gs], store.df[gs]
     with np.errstate(all="ignore"):
-        var = s2 * (m + np.einsum("gp,gpq,gq->g", d, inv, d))
+        spread = m if row_weights is None else np.bincount(at[used], weights=1.0 / row_weights[used], minlength=G)
+        var = s2 * (spread + np.einsum("gp,gpq,gq->g", d, inv, d))
         se = np.where((m > 0) & (df > 0), np.sqrt(np.maximum(var, 0.0)), np.nan)
         t_q = stats.t.ppf(0.5 + level / 2.0, np.where(df > 0, df, np.nan))
         frac = np.where(sums[ADJUSTED_BASELINE] != 0, sums[AVOIDED_USE] / sums[ADJUSTED_BASELINE], np.nan)
@@ -286,11 +293,15 @@ def savings_for_cells(store: ModelStore, raw: dict[str, list], n_rows: int, actu
 
     The store's level sets the intervals (`compute.at_level` first to change it).
     """
-    from .compute import design_for_rows
+    from .compute import design_for_rows, input_values, new_row_weights
 
     group_pos, design, _ = design_for_rows(store, raw, n_rows)
+    weights = None
+    if store.weights:
+        measured = np.array([_actual_number(v, actual_column)[0] for v in actual_raw], dtype=np.float64)
+        weights = new_row_weights(store, raw, group_pos, input_values(store, raw, n_rows), measured)[0]
     return reporting_savings(store, group_pos, design, actual_raw, None, outside=extrapolated(preds),
-                             actual_column=actual_column)
+                             actual_column=actual_column, row_weights=weights)
 
 
 def frame_savings(results_or_path: FitResults | Path | str | ModelStore, new_rows: pd.DataFrame, actual: str,
