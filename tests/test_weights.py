@@ -21,6 +21,7 @@ import sheetfit
 import sheetfit.api
 from sheetfit.errors import JobError
 from sheetfit.model.engine import fit_groups
+from sheetfit.prediction.savings import AVOIDED_STD_ERROR
 from sheetfit.model.inference import inference
 from sheetfit.read.tidy import REASON
 from sheetfit.results.headers import COEFFICIENT, INPUT, STD_ERROR, USED, WEIGHT_USED, YES
@@ -249,4 +250,4 @@ def test_savings_of_a_weighted_baseline_use_each_rows_weight(tmp_path):
     d = sm.add_constant(new["T"]).to_numpy().sum(axis=0)
     w0 = (1 / new["T"]) / w.mean()
     var = ref.scale * ((1 / w0).sum() + d @ ref.normalized_cov_params.to_numpy() @ d)
-    assert groups["std error of avoided total"].iloc[0] == pytest.approx(np.sqrt(var), rel=1e-9)
+    assert groups[AVOIDED_STD_ERROR].iloc[0] == pytest.approx(np.sqrt(var), rel=1e-9)
