@@ -1,16 +1,18 @@
 """The combination matrix: options and inputs in combination, every group against statsmodels.
 
-Oracle (tests/combination_oracle.py): statsmodels OLS fitted group by group, or WLS with the case's
-weights divided by their group's mean (the design built by hand from the README's term definitions:
-indicator and product columns of the levels each group shows, hinge columns at sheetfit's change points),
-statsmodels OLSInfluence of the whitened model √w·y on √w·X, statsmodels diagnostics of the residuals √w·e
-(Jarque–Bera, Breusch–Pagan in Koenker's form, White, Durbin–Watson statistic, Breusch–Godfrey, RESET F
-form, VIF, robust HC3 / Newey–West covariances and their Wald F, the lack-of-fit F against the cell-means
-model, `f_test` of a category's indicators), scipy (Shapiro–Wilk, t, F and chi² laws; the exact
-Durbin–Watson p-value by Imhof's formula with scipy.integrate.quad over numpy eigenvalues), statsmodels
-`multipletests` (Benjamini–Hochberg), a brute-force numpy search for the change points, and the ICH Q2
-formulas for calibration limits and back-calculated standards. Rules of thumb for the softer row flags and
-the standards' deviation limits are common practice (README). Data are invented and seeded.
+Oracle: tests/combination_oracle.py (fits and row measures) — statsmodels OLS fitted group by group, or WLS
+with the case's weights divided by their group's mean (the design built by hand from the README's term
+definitions: indicator and product columns of the levels each group shows, hinge columns at sheetfit's
+change points), statsmodels OLSInfluence of the whitened model √w·y on √w·X, robust HC3 / Newey–West
+covariances and their Wald F, a brute-force numpy search for the change points, and the ICH Q2 formulas for
+calibration limits and back-calculated standards; tests/combination_checks.py (the checks, and the checks
+sheet compared with them) — statsmodels diagnostics of the residuals √w·e (Jarque–Bera, Breusch–Pagan in
+Koenker's form, White, Durbin–Watson statistic, Breusch–Godfrey, RESET F form, VIF, the lack-of-fit F
+against the cell-means model, `f_test` of a category's indicators), scipy (Shapiro–Wilk, t, F and chi²
+laws; the exact Durbin–Watson p-value by Imhof's formula with scipy.integrate.quad over numpy eigenvalues),
+statsmodels `multipletests` (Benjamini–Hochberg). Rules of thumb for the softer row flags and the
+standards' deviation limits are common practice (README). Data are invented and seeded. This module runs
+the cases and compares the groups, coefficients and observations sheets.
 
 A group is a (response, file, --group value) (README: with --y repeated every row appears once per
 response, `response` the first group column; with several files the file name is the next one), fitted
@@ -22,38 +24,17 @@ adjusted R², AIC/BIC); where sheetfit's documented definition with c, or with w
 statsmodels gives even then, the expected value is computed by hand from that definition, whose source
 is named.
 
-Each value is compared at 1e-9 relative with an absolute floor of 1e-9 · the value's scale (the
-coefficient's std error, max |y|, 1 for p-values and statistics of order one). Checks that cannot
-run are n/a with a note (allowed only for White where the rows are no more than the rank of its
-products, for Breusch–Godfrey and RESET in the tiny groups, for the VIF check when all terms come from
-one input, and for lack of fit without replicates). A row of leverage 1 has no studentized residual
+Each value is compared (combination_oracle.close) at 1e-9 relative with an absolute floor of 1e-9 · the
+value's scale (the coefficient's std error, max |y|, 1 for p-values and statistics of order one). Checks
+that cannot run are n/a with a note (combination_checks.compare_checks; allowed only for White where the
+rows are no more than the rank of its products, for Breusch–Godfrey and RESET in the tiny groups, for the
+VIF check when all terms come from one input, and for lack of fit without replicates). A row of leverage 1 has no studentized residual
 or Cook's distance, and with one residual degree of freedom the Durbin–Watson statistic is a constant
 with no p-value (its null law is a point mass).
 
-Cases come from a deterministic all-pairs covering design over the dimensions below (every possible
-pair of levels of any two dimensions occurs in some case; tests.combinations.IMPOSSIBLE lists the
-pairs no run can have); `python -m tests.combinations` lists them.
-How a new option joins the matrix — add a level to its list in `tests/combinations.DIMENSIONS`:
-  term          "plain" | "power" | "log" | "sqrt" | "date" | "one" | "category" | "levels" | "product" |
-                "slope by level"                             (+ its --x terms in TERMS, its columns in
-                                                             REFERENCE_COLUMNS or CATEGORY_TERMS / SLOPES_BY_LEVEL,
-                                                             its input in SOURCE, its data in combination_cases)
-  sizes         "equal" | "unequal" | "tiny" | "one"         (+ its sizes in Case.group_sizes)
-  intercept     True | False
-  order         False | True                                 (order column "Seq"; rows shuffled in the file)
-  observations  "all" | "flagged" | "none"                   (only the written observations sheet changes)
-  inference     "classic" | "robust"
-  format        "xlsx" | "csv" | "ods" | "xls"               (+ its writer in combination_cases.write_input)
-  route         "api" | "cli"                                (fit_workbook + write_results, or `python -m sheetfit fit`)
-  change_point  "none" | "heating" | "two-slopes" | "auto" | "heating-cooling"   (+ its data in TEMPERATURE_PART;
-                                                             a new shape also in temperature_columns and CHANGE_POINTS)
-  weights       "none" | "1/Pallets^2" | "Weight" | "1/Gas"  (+ its column and inverse power in WEIGHTS)
-  calibration   False | True                                 (needs term "one": a line in one input)
-  responses     1 | 2                                        (y = kWh, or kWh and Gas: Case.ys)
-  files         1 | 2                                        (the table in one file, or split by group: FILE_NAMES)
-A new dimension: a new key with its levels, a field of `Case`, and its effect in Case.settings/cli_args;
-pairs of levels that cannot go together go into IMPOSSIBLE (the design neither needs nor makes them, and
-test_the_impossible_pairs_are_refused expects a JobError for each).
+Cases come from a deterministic all-pairs covering design (tests/combinations.py; seeded data, input files
+and the run of a case in tests/combination_cases.py). How a new option or dimension joins the matrix, and
+the tests of the design itself and of the oracle's premises: tests/test_combinations_design.py.
 Known sheetfit faults found by the matrix are listed in KNOWN_FAULTS (strict xfail, one-line reason):
 the comparisons a fault breaks run last and raise KnownFault, so any other failure of such a case
 still fails the test.
@@ -69,12 +50,7 @@ import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
-import statsmodels.api as sm
-from scipy import stats
-from statsmodels.stats.multitest import multipletests
 
-import sheetfit
-from sheetfit.errors import JobError
 from sheetfit.results.calibration import (
     BACK_CALCULATED,
     DEVIATION,
@@ -86,13 +62,11 @@ from sheetfit.results.categories import LEVELS_NOTE, levels_f_header, levels_p_h
 from sheetfit.results.headers import WEIGHT_USED
 from tests.combination_cases import (
     CALIBRATION_ROWS,
-    PART,
     SOURCE_FILE,
     RowId,
     convert_to_xls,
     every_row,
     file_tables,
-    key_of,
     make_table,
     num,
     of_group,
@@ -104,49 +78,37 @@ from tests.combination_cases import (
     with_file_rows,
     write_input,
 )
-from tests.combination_oracle import (
-    BASELINE,
-    GroupReference,
-    Shape,
-    back_calculation,
-    breusch_godfrey,
-    calibration_limits,
+from tests.combination_checks import (
     coefficient_vifs,
+    compare_adjusted_p_values,
+    compare_checks,
     condition_number,
-    expected_checks,
-    expected_gvif,
-    expected_row_flags,
-    grid_search,
-    lack_of_fit,
     levels_differ,
     nmbe,
+)
+from tests.combination_oracle import (
+    HINGE_SHAPES,
+    RTOL,
+    GroupReference,
+    back_calculation,
+    calibration_limits,
+    close,
+    expected_row_flags,
+    grid_search,
     reference_fits,
-    reset,
-    robust_fits,
+    reference_ids,
+    reported_shapes,
     row_measures,
-    white,
-    white_rank,
 )
 from tests.combinations import (
-    CATEGORY_KINDS,
-    DIMENSIONS,
     FILE_KEY,
-    IMPOSSIBLE,
-    LEVEL_PATTERN,
     RESPONSE_KEY,
     RESPONSE_VALUE,
     TEMPERATURE,
     Case,
     cases,
-    pairs_impossible,
-    pairs_missing,
     reference_weights,
 )
-
-RTOL = 1e-9
-TWO_HINGES = ("two-slopes", "heating-cooling")
-HINGE_SHAPES = ("heating", "cooling", *TWO_HINGES)
-LACK_OF_FIT = "lack of fit (replicates)"
 
 
 class KnownFault(AssertionError):
@@ -188,27 +150,7 @@ def run_last(case: Case, later: list[tuple[str, Callable[[], None]]]) -> None:
         raise KnownFault("; ".join(seen.values()))
 
 
-# ---------------------------------------------------------------- comparisons
-
-def close(actual, expected, what: str, scale=0.0) -> None:
-    """|actual − expected| ≤ 1e-9·|expected| + 1e-9·scale, elementwise; NaN only where expected is NaN."""
-    a = np.atleast_1d(np.asarray(actual, dtype=float))
-    e = np.atleast_1d(np.asarray(expected, dtype=float))
-    assert a.shape == e.shape, f"{what}: shape {a.shape} against {e.shape}"
-    assert (np.isnan(a) == np.isnan(e)).all(), f"{what}: NaN at {np.isnan(a)} expected at {np.isnan(e)}"
-    tol = RTOL * np.abs(e) + RTOL * np.broadcast_to(np.asarray(scale, dtype=float), e.shape)
-    bad = ~np.isnan(e) & ~(np.abs(a - e) <= tol)
-    if bad.any():
-        i = int(np.flatnonzero(bad)[np.argmax((np.abs(a - e) / np.maximum(tol, 1e-300))[bad])])
-        raise AssertionError(f"{what}: {a[i]!r} against the reference {e[i]!r} (relative difference "
-                             f"{abs(a[i] - e[i]) / abs(e[i]) if e[i] else float('inf'):.2e}; {bad.sum()} of "
-                             f"{bad.size} values off)")
-
-
-def reference_ids(gr: GroupReference) -> list[RowId]:
-    """The group's used rows as (response, file name, row in that file)."""
-    return list(zip([gr.response] * len(gr.rows), gr.rows["_file"], gr.rows["_file_row"].astype(int)))
-
+# ---------------------------------------------------------------- comparisons (the checks sheet's: tests/combination_checks.py)
 
 def compare_shape_name(case: Case, gr: GroupReference, row: pd.Series) -> None:
     """README: the shape asked for, or under auto any shape; a group fitted as a straight line says why."""
@@ -284,75 +226,6 @@ def compare_levels_note(gr: GroupReference, note: str) -> None:
         named = seen if len(seen) == 1 else lacking
         assert f"{column}:" in note and all(v in note for v in named), \
             f"{gr.label}: {LEVELS_NOTE} {note!r} for rows showing {seen} of {list(all_levels)}"
-
-
-def compare_checks(case: Case, gr: GroupReference, t: dict, rm: dict) -> tuple[dict, list]:
-    """Every check of the group on `checks`; returns whether robust std errors apply and the comparisons
-    a known fault breaks (run last)."""
-    checks, label = of_group(t["checks"], gr.key), gr.label
-
-    def value(check, column):
-        hit = checks[checks["check"] == check]
-        assert len(hit) == 1, f"{label}: check {check!r} appears {len(hit)} times"
-        return num([hit[column].iloc[0]])[0]
-
-    def verdict(check):
-        return checks[checks["check"] == check]["verdict"].iloc[0]
-
-    def not_applicable(check):
-        note = text(checks[checks["check"] == check]["note"].iloc[0]).strip()
-        return np.isnan(value(check, "statistic")) and verdict(check) == "n/a" and bool(note)
-
-    het = any(verdict(c) == "fail" for c in ("constant variance (Breusch–Pagan)", "constant variance (White)"))
-    dep = any(verdict(c) == "fail" for c in ("independent residuals (Durbin–Watson)",
-                                             "independent residuals (Breusch–Godfrey)"))
-    hc, hac, lag = robust_fits(gr.fit, len(gr.rows))
-    robust = case.inference == "robust" and (het or dep)
-    chosen = hac if (robust and dep) else hc if robust else gr.fit
-    want = expected_checks(case, gr, rm, chosen)
-    if case.change_point == "none":
-        assert not checks["check"].isin(BASELINE).any(), f"{label}: baseline checks without --change-point"
-
-    # White, Breusch–Godfrey and RESET are n/a (with a note) when the rows are too few for their auxiliary
-    # regressions (README): for White, when they are no more than the rank of its products (statsmodels would
-    # fit the squared residuals exactly), for the others in the tiny groups; elsewhere they match statsmodels
-    def optional(check, compute, too_few: bool):
-        if np.isnan(value(check, "statistic")):
-            assert not_applicable(check), f"{label}: {check} blank without n/a and a note"
-            assert too_few, f"{label}: {check} n/a with {len(gr.rows)} rows"
-        else:
-            want[check] = compute(case, gr)
-
-    def white_last():                    # KNOWN_FAULTS "white"
-        optional("constant variance (White)", white, len(gr.rows) <= white_rank(case, gr))
-        compare_values({k: v for k, v in want.items() if k == "constant variance (White)"}, value, label)
-
-    later = [("white", white_last)]
-    optional("independent residuals (Breusch–Godfrey)", breusch_godfrey, case.sizes == "tiny")
-    optional("linear form (RESET)", reset, case.sizes == "tiny")
-    if np.isnan(want["collinearity (condition number)"][0]):
-        assert not_applicable("collinearity (condition number)"), f"{label}: condition number of one column"
-    # The VIF check judges inputs (source columns): n/a for one input (CDD with CDD^2, or CDD's hinges with CDD^2)
-    if len(set(gr.sources)) < 2:
-        assert np.isnan(value("collinearity (VIF)", "statistic")) and verdict("collinearity (VIF)") == "n/a", \
-            f"{label}: VIF check on one input"
-    else:
-        want["collinearity (VIF)"] = (expected_gvif(gr, case), None)
-    found = lack_of_fit(case, gr)            # README: n/a with a note without replicates
-    if isinstance(found, str):
-        assert not_applicable(LACK_OF_FIT), f"{label}: lack of fit not n/a with a note ({found})"
-    else:
-        want[LACK_OF_FIT] = found
-    compare_values(want, value, label)
-    close(value("influence (Cook's distance)", "threshold"), rm["cut"], f"{label} Cook's distance threshold", 1)
-    return {"het": het, "dep": dep, "hc": hc, "hac": hac, "lag": lag, "chosen": chosen}, later
-
-
-def compare_values(want: dict, value, label: str) -> None:
-    for check, (stat, pval) in want.items():
-        close(value(check, "statistic"), np.squeeze(stat), f"{label} {check} statistic", 1)
-        if pval is not None:
-            close(value(check, "p-value"), np.squeeze(pval), f"{label} {check} p-value", 1)
 
 
 def compare_coefficients(case: Case, gr: GroupReference, t: dict, inf: dict) -> None:
@@ -462,34 +335,6 @@ def compare_group(case: Case, gr: GroupReference, t: dict[str, pd.DataFrame]) ->
     return {i for i, m in zip(reference_ids(gr), marked) if m}, later
 
 
-def compare_adjusted_p_values(case: Case, refs: list[GroupReference], t: dict[str, pd.DataFrame]) -> None:
-    """adjusted p-value = Benjamini–Hochberg across all groups (every response's and file's), per check
-    (statsmodels multipletests)."""
-    for name, rows in t["checks"].groupby("check", sort=False):
-        at = {key_of(case, r): i for i, (_, r) in enumerate(rows.iterrows())}
-        rows = rows.iloc[[at[r.key] for r in refs]]
-        pv = num(rows["p-value"])
-        ok = np.isfinite(pv)
-        if not ok.any():
-            continue
-        want = np.full(len(pv), np.nan)
-        want[ok] = multipletests(pv[ok], method="fdr_bh")[1]                    # statsmodels
-        close(num(rows["adjusted p-value"]), want, f"{name} adjusted p-value", 1)
-
-
-def reported_shapes(case: Case, groups: pd.DataFrame) -> dict:
-    """Each group's shape and change point(s) as sheetfit reports them on `groups` (README: `change point`
-    is the single one, or heating-cooling's lower one; `upper change point` its upper one)."""
-    out = {}
-    for _, row in groups.iterrows() if case.change_point != "none" else ():
-        name, cp = text(row["shape"]), num([row["change point"]])[0]
-        upper = num([row.get("upper change point")])[0]
-        below = cp if name in ("heating", "two-slopes", "heating-cooling") else np.nan
-        above = {"cooling": cp, "two-slopes": cp, "heating-cooling": upper}.get(name, np.nan)
-        out[key_of(case, row)] = Shape(name, below, above)
-    return out
-
-
 def observations_sheet_holds(case: Case, out: Path, all_rows: set[RowId], flagged: set[RowId]) -> None:
     """The observations setting changes only the written sheet: all rows, the flagged ones, or a note."""
     book = openpyxl.load_workbook(out, read_only=True, data_only=True)
@@ -543,82 +388,6 @@ def input_files(case: Case, table: pd.DataFrame, folder: Path, xls_inputs: dict)
     return paths
 
 
-def test_the_design_covers_every_pair_of_levels():
-    design = [vars(c) for c in CASES]
-    assert pairs_missing(design, DIMENSIONS, IMPOSSIBLE) == []
-    assert pairs_impossible(design, IMPOSSIBLE) == []
-    assert len({c.id for c in CASES}) == len(CASES)
-    for fmt in DIMENSIONS["format"]:
-        assert any(c.route == "cli" and c.format == fmt for c in CASES), f"no CLI case reads {fmt}"
-    for mode in DIMENSIONS["observations"]:
-        assert any(c.route == "cli" and c.observations == mode for c in CASES), f"no CLI case with {mode}"
-
-
-# what the one-line refusal of each pair of dimensions names (README: the options that cannot go together)
-REFUSED = {("intercept", "change_point"): "--change-point.*--no-intercept",
-           ("weights", "change_point"): "--weights.*--change-point",
-           ("change_point", "term"): "--change-point.*categor",
-           ("calibration", "intercept"): "--calibration", ("calibration", "term"): "--calibration",
-           ("calibration", "change_point"): "--calibration", ("responses", "weights"): "--weights.*response"}
-
-
-@pytest.mark.parametrize("pair", IMPOSSIBLE, ids=lambda pair: f"{pair[0]}={pair[1]}-{pair[2]}={pair[3]}")
-def test_the_impossible_pairs_are_refused(pair):
-    # README: --change-point with --no-intercept, with --weights or with a category input, --calibration with
-    # anything but one plain --x column, the constant and no change point, and --weights naming a response's
-    # column with --y repeated are refused with a JobError; so the design leaves these pairs out. A case of
-    # the design holding one level of the pair, given the other.
-    p, a, q, b = pair
-    tried = [Case(**{**vars(c), q: b}) for c in CASES if getattr(c, p) == a]
-    tried += [Case(**{**vars(c), p: a}) for c in CASES if getattr(c, q) == b]
-    case = next(c for c in tried if pairs_impossible([vars(c)], IMPOSSIBLE) == [pair])   # no other pair to refuse
-    with pytest.raises(JobError, match=REFUSED[p, q]):
-        sheetfit.fit_frame(make_table(case), **case.settings())
-
-
-def test_statsmodels_counts_degrees_of_freedom_set_before_fit():
-    # The oracle's premise (tests.combination_oracle.reference_fits): df set on the model before fit() carry
-    # into scale, std errors, t, p, intervals, F, adjusted R² and AIC/BIC; checked against numpy/scipy by hand
-    case = next(c for c in CASES if c.intercept)
-    gr = reference_fits(case, make_table(case))[0]
-    rng = np.random.default_rng(5)
-    X, y, k, c = gr.X, rng.normal(size=len(gr.X)), gr.X.shape[1], 2
-    model = sm.OLS(y, X)
-    model.df_resid, model.df_model = len(y) - k - c, k - 1 + c
-    fit, plain = model.fit(), sm.OLS(y, X).fit()
-    df = len(y) - k - c
-    s2 = plain.ssr / df
-    bse = np.sqrt(np.diag(np.linalg.inv(X.T @ X)) * s2)                                       # numpy
-    F = (plain.ess / (k - 1 + c)) / s2
-    close(fit.scale, s2, "scale")
-    close(fit.bse, bse, "bse")
-    close(fit.pvalues, 2 * stats.t.sf(np.abs(plain.params / bse), df), "p-values", 1)          # scipy
-    close(fit.conf_int(0.05)[:, 0], plain.params - stats.t.ppf(0.975, df) * bse, "interval low", bse)
-    close([fit.fvalue, fit.f_pvalue], [F, stats.f.sf(F, k - 1 + c, df)], "F", 1)
-    close(fit.rsquared_adj, 1 - (len(y) - 1) / df * (1 - plain.rsquared), "adjusted R²", 1)
-    close([fit.aic, fit.bic], [-2 * plain.llf + 2 * (k + c), -2 * plain.llf + np.log(len(y)) * (k + c)], "AIC, BIC", 1)
-
-
-def test_statsmodels_wls_is_the_whitened_fit():
-    # The oracle's premise for weighted cases (tests.combination_oracle): statsmodels WLS with weights w is
-    # OLS of √w·y on √w·X (estimates, std errors, HC3), its R² is README's 1 − Σw·e²/Σw·(y − ȳw)² and its
-    # log-likelihood that of the whitened fit plus ½Σ ln w; scaling w leaves estimates and std errors alone.
-    # Checked against numpy by hand and statsmodels OLS.
-    case = next(c for c in CASES if c.intercept and c.weights == "1/Pallets^2")
-    gr = next(g for g in reference_fits(case, make_table(case)) if g.weighted)
-    X, y, w = gr.X, gr.y, gr.w
-    root = np.sqrt(w)
-    fit, whitened = sm.WLS(y, X, weights=w).fit(), sm.OLS(root * y, root[:, None] * X).fit()
-    close(fit.params, whitened.params, "estimates", fit.bse)
-    close(fit.bse, whitened.bse, "std errors")
-    close(fit.get_robustcov_results("HC3").bse, whitened.get_robustcov_results("HC3").bse, "HC3 std errors")
-    e, ybar = y - X @ fit.params, np.average(y, weights=w)                                   # numpy
-    close(fit.rsquared, 1 - (w * e**2).sum() / (w * (y - ybar) ** 2).sum(), "weighted R²", 1)
-    close(fit.llf, whitened.llf + 0.5 * np.log(w).sum(), "log-likelihood", abs(fit.llf))
-    close(np.asarray(fit.resid), e, "residuals in the response's units", np.abs(y).max())
-    rescaled = sm.WLS(y, X, weights=7.0 * w).fit()
-    close([*rescaled.params, *rescaled.bse], [*fit.params, *fit.bse], "weights times 7", np.r_[fit.bse, fit.bse])
-
 
 def compare_rows(case: Case, table: pd.DataFrame, refs: list[GroupReference], obs: pd.DataFrame) -> set[RowId]:
     """`observations` lists every row once per response, says which are used (an unusable row with a
@@ -669,76 +438,3 @@ def test_combination_matches_statsmodels(case: Case, tmp_path, xls_inputs, cli):
     observations_sheet_holds(case, out, every_row(case, table), flagged | unusable)
     run_last(case, later)
 
-
-def test_robust_std_errors_come_into_play_somewhere():
-    # The seeded errors (heteroscedastic, AR(1)) must make the matrix exercise HC3 and Newey–West: the
-    # robust cases with groups of 12 rows or more whose terms need no dates, fitted in memory with their own
-    # settings (weights included), until both have been used.
-    used: set[str] = set()
-    for case in (c for c in CASES if c.inference == "robust" and c.sizes in ("equal", "unequal")
-                 and c.term != "date" and c.change_point == "none" and not fault(c)):
-        used |= set(sheetfit.fit_frame(make_table(case), **case.settings()).coefficients["std error used"])
-        if {"HC3", "Newey–West (HAC)"} <= used:
-            return
-    raise AssertionError(f"std errors used: {used}")
-
-
-def test_weights_and_calibration_come_into_play():
-    # The seeded data must make the matrix exercise what the weights and calibration dimensions add:
-    # groups whose weights vary and groups whose weights are all equal (README: the ordinary fit), rows
-    # with a zero and with a negative weight, replicates enough for lack of fit to run, and standards both
-    # within and beyond their limits (oracle: tests.combination_oracle, at a clearly steep slope).
-    varied = equal = replicated = 0
-    bad, said = [], []
-    for case in CASES:
-        table = make_table(case)
-        given = reference_weights(case, table)
-        bad += list(given[given <= 0])
-        for gr in reference_fits(case, table):
-            varied += gr.weighted
-            equal += case.weights != "none" and not gr.weighted
-            replicated += not isinstance(lack_of_fit(case, gr), str)
-            said += list(back_calculation(gr, 0.0)["says"]) if case.calibration else []
-    assert varied >= 10 and equal >= 2, f"{varied} weighted groups, {equal} with equal weights"
-    assert {0.0, -1.5} <= set(bad), f"weights that are not positive: {sorted(set(bad))}"
-    assert replicated >= 5, f"lack of fit runs in {replicated} groups"
-    assert 0 < sum(said) < len(said), f"{sum(said)} of {len(said)} standards beyond their limits"
-
-
-def test_categories_responses_and_files_come_into_play():
-    # The seeded data must make the matrix exercise what the new dimensions add (oracle: tests.combination_oracle):
-    # groups lacking a level, lacking the reference (README: measured against their own first level) and
-    # showing one level only (no level effects), with their indicators left out; blank category cells; a
-    # blank Gas cell leaving its row to kWh; two files each holding groups; every category case with a group
-    # whose levels all count.
-    lacking = {"no other": 0, "no reference": 0, "one level": 0}
-    blank_gas = files = 0
-    for case in CASES:
-        table = make_table(case)
-        refs = reference_fits(case, table)
-        files += case.files > 1 and set(table[PART]) == {0, 1}
-        for gr in refs:
-            for column, seen in gr.seen.items():
-                all_levels, ref = gr.levels[column]
-                kind = ("one level" if len(seen) == 1 else "no reference" if ref not in seen
-                        else "no other" if len(seen) < len(all_levels) else None)
-                lacking[kind] = lacking.get(kind, 0) + 1
-                assert len(gr.indicators.get(column, [0, 0])) == max(len(seen) - 1, 0), gr.label
-        kwh, gas = (set().union(*(reference_ids(g) for g in refs if g.response == r)) for r in ("kWh", "Gas"))
-        blank_gas += case.responses > 1 and len({i[1:] for i in kwh} - {i[1:] for i in gas}) > 0
-    assert min(lacking[k] for k in LEVEL_PATTERN.values()) >= 3, f"groups by the levels they lack: {lacking}"
-    assert blank_gas >= 5 and files >= 10, f"{blank_gas} cases with a blank Gas cell, {files} with two files"
-    assert sum(c.term in CATEGORY_KINDS for c in CASES) >= 12
-
-
-def test_change_point_cases_find_interior_change_points(tmp_path):
-    # The seeded bends must make most searched groups (6 rows or more) of the change-point cases find
-    # change points inside the range: a group fitted as a line is compared too, but exercises less.
-    shaped = searched = 0
-    for case in (c for c in CASES if c.change_point != "none"):
-        src = tmp_path / f"{case.id}.csv"
-        write_input(case, make_table(case), src)
-        groups = sheetfit.fit_workbook(src, **case.settings()).groups
-        shaped += int(groups["shape"].isin(HINGE_SHAPES).sum())
-        searched += int((groups["rows used"] >= 6).sum())
-    assert shaped >= 0.85 * searched, f"{shaped} of {searched} searched groups with a change point"
