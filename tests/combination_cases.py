@@ -50,6 +50,7 @@ from tests.combinations import (
 from tests.corpus import writers
 
 SHEETS = ("groups", "coefficients", "checks", "observations")
+CHANGE_TABLES = ("since previous run", "coefficient changes")     # README: the sheets --previous adds
 OBS_VALUES = ("fitted value", "residual", "leverage", "Cook's distance", "studentized residual")
 CALIBRATION_ROWS = (BACK_CALCULATED, DEVIATION, STANDARD_OFF)
 PART = "_part"            # the table's column saying which input file holds the row (0 or 1)
@@ -83,8 +84,9 @@ def _levels(column: str, g: int, m: int, good: np.ndarray, rng: np.random.Genera
     return out
 
 
-def make_table(case: Case) -> pd.DataFrame:
-    """The rows of the input, in file order (seeded by the case id), with PART saying which file holds each.
+def make_table(case: Case, seed: int | None = None) -> pd.DataFrame:
+    """The rows of the input, in file order (seeded by the case id, or by `seed`), with PART saying which file
+    holds each.
 
     Per group: inputs on different scales, levels of Shift and Crew (some groups lacking a level, the
     reference or all levels but one: LEVEL_PATTERN), a temperature part of the case's shape (a clear bend in
@@ -96,7 +98,7 @@ def make_table(case: Case) -> pd.DataFrame:
     and Seq gives the sequence, without one the file order is the sequence. With two files, group g goes to
     file g mod 2 (one group: its rows alternate along the sequence).
     """
-    rng = np.random.default_rng(case.seed)
+    rng = np.random.default_rng(case.seed if seed is None else seed)
     parts = []
     for g, n in enumerate(case.group_sizes()):
         bad = BAD_CELL.get(case.term) if g == 0 else None
@@ -271,9 +273,12 @@ def row_ids(case: Case, frame: pd.DataFrame) -> list[RowId]:
 
 
 def read_sheet(book, name: str) -> pd.DataFrame | None:
-    """A table sheet of the results workbook (header in row 1); None for an observations sheet without rows."""
+    """A table sheet of the results workbook (header in row 1; on `since previous run` the row starting with
+    its first column header, below the title and notes); None for an observations sheet without rows."""
     ws = book[name]
     rows = list(ws.iter_rows(values_only=True))
+    if name == CHANGE_TABLES[0]:
+        rows = rows[next(i for i, r in enumerate(rows) if r and "what changed" in r):]
     if not rows or (name == "observations" and "source row" not in rows[0]):     # observations = none: a note
         return None
     head = [h for h in rows[0]]
@@ -281,19 +286,25 @@ def read_sheet(book, name: str) -> pd.DataFrame | None:
     return pd.DataFrame([list(r[:width]) + [None] * (width - len(r)) for r in rows[1:]], columns=head[:width])
 
 
-def run_case(case: Case, sources: list[Path], out: Path, cli) -> dict[str, pd.DataFrame]:
-    """sheetfit on the input file(s), by the case's route; the four tables (in memory, or read back from `out`).
+def run_case(case: Case, sources: list[Path], out: Path, cli, previous: Path | None = None
+             ) -> dict[str, pd.DataFrame]:
+    """sheetfit on the input file(s), by the case's route; the four tables (in memory, or read back from `out`),
+    and with `previous` (an earlier results workbook) the two tables of what changed (CHANGE_TABLES).
     Two files are given as a list (API) or as two WORKBOOK arguments (CLI)."""
     if case.route == "api":
-        res = sheetfit.fit_workbook(sources[0] if case.files == 1 else sources, **case.settings())
+        res = sheetfit.fit_workbook(sources[0] if case.files == 1 else sources, **case.settings(),
+                                    **({"previous": previous} if previous is not None else {}))
         assert res.info.date_columns == ((DAY,) if case.term == "date" else ()), res.info.date_columns
         sheetfit.write_results(res, out)
+        changes = (None, None) if res.changes is None else (res.changes.groups, res.changes.coefficients)
         return {"groups": res.groups, "coefficients": res.coefficients, "checks": res.checks,
-                "observations": res.observations, "_in_memory": True}
-    done = cli("fit", *[s.name for s in sources], *case.cli_args(), "--out", out.name, cwd=sources[0].parent)
+                "observations": res.observations, "_in_memory": True, **dict(zip(CHANGE_TABLES, changes))}
+    extra = ["--previous", str(previous)] if previous is not None else []
+    done = cli("fit", *[s.name for s in sources], *case.cli_args(), *extra, "--out", out.name, cwd=sources[0].parent)
     assert done.returncode == 0, done.stderr
     book = openpyxl.load_workbook(out, read_only=True, data_only=True)
     tables = {name: read_sheet(book, name) for name in SHEETS}
+    tables |= {name: read_sheet(book, name) if name in book.sheetnames else None for name in CHANGE_TABLES}
     book.close()
     if tables["observations"] is None:             # observations = none: no rows, the columns a run would have
         ours = [*([WEIGHT_USED] if case.weights != "none" else []), *(CALIBRATION_ROWS if case.calibration else [])]

@@ -27,6 +27,8 @@ names in brackets live in tests/combinations.py unless another module is named:
   calibration   False | True                                 (needs term "one": a line in one input)
   responses     1 | 2                                        (y = kWh, or kWh and Gas: Case.ys)
   files         1 | 2                                        (the table in one file, or split by group: FILE_NAMES)
+  previous      False | True                                 (fitted twice, the earlier table and run in
+                                                             combination_previous; compared there)
 A new dimension: a new key with its levels, a field of `Case`, and its effect in Case.settings/cli_args;
 pairs of levels that cannot go together go into IMPOSSIBLE (the design neither needs nor makes them, and
 test_the_impossible_pairs_are_refused below expects a JobError for each, naming what REFUSED gives).
@@ -53,6 +55,7 @@ from tests.combination_oracle import (
     reference_fits,
     reference_ids,
 )
+from tests.combination_previous import GONE, NEW, earlier_table, expected_changes
 from tests.combinations import (
     CATEGORY_KINDS,
     DIMENSIONS,
@@ -216,3 +219,19 @@ def test_change_point_cases_find_interior_change_points(tmp_path):
         shaped += int(groups["shape"].isin(HINGE_SHAPES).sum())
         searched += int((groups["rows used"] >= 6).sum())
     assert shaped >= 0.85 * searched, f"{shaped} of {searched} searched groups with a change point"
+
+
+def test_previous_runs_come_into_play():
+    # The earlier tables (tests.combination_previous.earlier_table) must make the matrix exercise what
+    # --previous adds: groups whose relation changed (the shifted slope) and groups without a change found,
+    # new and gone groups, and groups left untested because their coefficients differ between the runs (a
+    # missing level). Oracle: the Chow test of tests.combination_previous on the statsmodels references of
+    # both tables, for the cases without change points (their shapes are sheetfit's).
+    seen = {"changed": 0, "unchanged": 0, NEW: 0, GONE: 0, "not tested": 0}
+    for case in (c for c in CASES if c.previous and c.change_point == "none"):
+        want = expected_changes(reference_fits(case, earlier_table(case)), reference_fits(case, make_table(case)), None)
+        for e in want.values():
+            kind = (NEW if e["old"] is None else GONE if e["new"] is None else "not tested" if e["test"] is None
+                    else "changed" if e["adjusted"] < 0.05 else "unchanged")
+            seen[kind] += 1
+    assert min(seen.values()) >= 2, f"groups by what changed: {seen}"

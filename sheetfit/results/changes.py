@@ -104,28 +104,34 @@ def compare_runs(old: ModelStore, new: ModelStore, previous: Path | str, thr: Th
 
 def chow(old: ModelStore, new: ModelStore, io: np.ndarray, inew: np.ndarray, level: float) -> dict:
     """Chow F, its df, p-value and the coefficient changes with std errors and intervals, for groups
-    `io` of `old` paired with `inew` of `new` (NaN where a group uses only some slots or lacks df)."""
-    k = len(new.term_labels)
-    b1, b2 = old.beta[io], new.beta[inew]
+    `io` of `old` paired with `inew` of `new`. A group is tested on the coefficients it uses (a change-point
+    shape or a category level may leave some unused: 0 in the store's (X'X)⁻¹) when it uses the same ones in
+    both runs; the denominator's df are the two fits' residual df. NaN where the coefficients differ or no df."""
+    used_old = np.diagonal(old.xtx_inv[io], axis1=1, axis2=2) != 0
+    used_new = np.diagonal(new.xtx_inv[inew], axis1=1, axis2=2) != 0
+    full = (used_old == used_new).all(axis=1)
+    k = used_new.sum(axis=1).astype(np.float64)
+    both = used_old & used_new
+    d = np.where(both, new.beta[inew] - old.beta[io], 0.0)
     V = old.xtx_inv[io] + new.xtx_inv[inew]
+    eye = np.broadcast_to(np.eye(V.shape[1]), V.shape)
+    V_used = np.where(both[:, :, None] & both[:, None, :], V, np.where(both[:, :, None] | both[:, None, :], 0.0, eye))
     rss = old.sigma2[io] * old.df[io] + new.sigma2[inew] * new.df[inew]
-    df2 = (old.n[io] + new.n[inew] - 2 * k).astype(np.float64)
-    full = ~(np.all(old.xtx_inv[io] == 0, axis=2).any(axis=1) | np.all(new.xtx_inv[inew] == 0, axis=2).any(axis=1))
-    d = b2 - b1
+    df2 = (old.df[io] + new.df[inew]).astype(np.float64)
     with np.errstate(all="ignore"):
         q = np.full(len(io), np.nan)
         if len(io):
-            solved = np.linalg.solve(np.where(full[:, None, None], V, np.eye(k)), d[..., None])[..., 0]
-            q = np.einsum("gk,gk->g", d, solved)
+            q = np.einsum("gk,gk->g", d, np.linalg.solve(V_used, d[..., None])[..., 0])
         s2 = rss / df2
         F = (q / k) / s2
-        ok = full & (df2 > 0) & np.isfinite(F) & (s2 > 0)
+        ok = full & (k > 0) & (df2 > 0) & np.isfinite(F) & (s2 > 0)
         F = np.where(ok, F, np.nan)
         p = stats.f.sf(F, k, df2)
-        se = np.sqrt(s2[:, None] * np.diagonal(V, axis1=1, axis2=2))
+        se = np.where(both, np.sqrt(s2[:, None] * np.diagonal(V, axis1=1, axis2=2)), np.nan)
         t = stats.t.ppf(0.5 + level / 2, np.where(df2 > 0, df2, np.nan))[:, None]
-    return {"F": F, "df1": np.full(len(io), float(k)), "df2": df2, "p": p, "change": d, "se": se,
-            "low": d - t * se, "high": d + t * se, "full": full}
+        change = np.where(both, d, np.nan)
+    return {"F": F, "df1": k, "df2": df2, "p": p, "change": change, "se": se,
+            "low": change - t * se, "high": change + t * se, "full": full}
 
 
 def _group_rows(old: ModelStore, new: ModelStore, keys: list, at_old: dict, at_new: dict, both: list,
@@ -150,7 +156,8 @@ def _group_rows(old: ModelStore, new: ModelStore, keys: list, at_old: dict, at_n
             words.append(NEWLY_FLAGGED)
         if flags_before > 0 and flags_now == 0:
             words.append(NO_LONGER_FLAGGED)
-        note = "" if test["full"][i] else "not tested: a coefficient is unused in one run (change-point shapes differ)"
+        note = "" if test["full"][i] else ("not tested: the two runs use different coefficients (another change-point "
+                                           "shape, or a category level seen in one run only)")
         if test["full"][i] and not np.isfinite(test["F"][i]):
             note = "not tested: too few rows in the two runs together, or no residual scatter"
         rows.append([*key, "; ".join(words) or UNCHANGED, test["F"][i], test["df1"][i], test["df2"][i],
