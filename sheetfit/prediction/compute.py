@@ -254,10 +254,8 @@ def new_row_weights(store: ModelStore, raw: dict[str, list], gidx: np.ndarray, X
     else:
         return np.full(len(gidx), np.nan), (f'no weight column "{spec.column}" in the new rows: the range for a '
                                             f'new row of a weighted fit needs its weight')
-    with np.errstate(all="ignore"):
-        w0 = spec.values(value) / np.where(gidx >= 0, store.weight_mean[gidx], np.nan)
-    w0 = np.where(np.isfinite(w0) & (w0 > 0), w0, np.nan)
-    return w0, f"weight {spec.label} is not a positive number here: no range for a new row"
+    return (store.relative_weights(gidx, value),
+            f"weight {spec.label} is not a positive number here: no range for a new row")
 
 
 def _weighted_new_row_intervals(store: ModelStore, raw: dict[str, list], gidx: np.ndarray, X: np.ndarray,

@@ -184,9 +184,7 @@ def _unknown_weight(store: ModelStore, g: np.ndarray, y0: np.ndarray, x0: np.nda
         value = weight_values
     else:
         return np.full(len(g), np.nan)
-    with np.errstate(all="ignore"):
-        w0 = spec.values(value) / store.weight_mean[g]
-    return np.where(np.isfinite(w0) & (w0 > 0), w0, np.nan)
+    return store.relative_weights(g, value)
 
 
 def _flag_rows(store: ModelStore, group_pos: np.ndarray, y0: np.ndarray, x0: np.ndarray, rows: np.ndarray,

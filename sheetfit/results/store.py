@@ -120,6 +120,16 @@ class ModelStore:
             codes[ref] = next(k for k in range(len(codes) + 1) if k not in codes.values())
         return codes
 
+    def relative_weights(self, groups: np.ndarray, values: np.ndarray) -> np.ndarray:
+        """A weighted fit's weight of each row, from the values of its weight column (the response, an input
+        or a column of its own: `weights_from_label(self.weights).column`), over its group's weight mean;
+        NaN where that is not a positive number or the group (−1) is unknown."""
+        spec = weights_from_label(self.weights)
+        groups = np.asarray(groups)
+        with np.errstate(all="ignore"):
+            w0 = spec.values(values) / np.where(groups >= 0, self.weight_mean[groups], np.nan)
+        return np.where(np.isfinite(w0) & (w0 > 0), w0, np.nan)
+
     @property
     def has_sums(self) -> bool:
         """Whether every group's sufficient statistics are known (a format-3 store)."""
