@@ -137,6 +137,15 @@ def test_predictions_know_the_levels(tmp_path):
     assert 'not a level of the fit' in pred["reason"][2]
 
 
+def test_a_category_with_one_level_in_the_whole_run_is_left_out():
+    # found by the property test below: no indicator at all, so no level effects and no all-levels F
+    frame = pd.DataFrame({"G": "P", "L": "x", "X": [0.0, 0.0, 1.0, 2.0]})
+    frame["Y"] = 2 * frame["X"] + np.array([0.0, 0.1, 0.05, 0.02])
+    res = sheetfit.fit_frame(frame, y="Y", x=["X", "L", "X by L"], group="G")
+    assert list(res.coefficients[INPUT]) == ["constant", "X"]
+    assert np.isnan(res.groups[levels_f_header("L")].iloc[0])
+
+
 @settings(max_examples=40, deadline=None)
 @given(st.lists(st.tuples(st.sampled_from("PQR"), st.sampled_from(["x", "y", "z", "w"]),
                           st.floats(0, 10, allow_nan=False)), min_size=1, max_size=40))

@@ -34,7 +34,8 @@ def level_columns(fit: EngineFit, terms: Sequence[Term], columns: Sequence[str],
     off = 1 if fit.intercept else 0
     out: dict[str, np.ndarray] = {LEVELS_NOTE: np.asarray(notes, dtype=object)}
     for col in columns:
-        slots = np.array([off + j for j, t in enumerate(terms) if t.kind == INDICATOR and t.column == col])
+        slots = np.array([off + j for j, t in enumerate(terms) if t.kind == INDICATOR and t.column == col],
+                         dtype=np.int64)          # none when the run saw one level only
         F = np.full(fit.n_groups, np.nan)
         q = np.zeros(fit.n_groups)
         for g in np.flatnonzero(fit.fitted_ok):
